@@ -1,0 +1,225 @@
+"""The ``ebbwatch`` command: a thin shell over :mod:`ebbwatch.api`.
+
+Each command parses options, calls one api function and renders; library errors become
+``Error: …`` on stderr with the exit code their type carries (2 usage/config, 3 unusable input).
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from functools import wraps
+
+import click
+
+from . import __version__, api
+from .errors import EbbwatchError
+
+EXIT_ALERTS = 1
+
+
+def _fail(message: str, code: int):
+    click.echo(f"Error: {message}", err=True)
+    sys.exit(code)
+
+
+def handle_errors(func):
+    @wraps(func)
+    def wrapper(*args, **kwargs):
+        try:
+            return func(*args, **kwargs)
+        except EbbwatchError as exc:
+            _fail(str(exc), exc.exit_code)
+        except ValueError as exc:  # a library-level argument check
+            _fail(str(exc), 2)
+    return wrapper
+
+
+def store_options(func):
+    func = click.option("--config", "config_path", type=click.Path(dir_okay=False),
+                        help="Config file (TOML). Default: ./ebbwatch.toml if present.")(func)
+    func = click.option("--db", envvar="EBBWATCH_DB", show_envvar=True,
+                        help="Activity store file. Default: ./ebbwatch.duckdb.")(func)
+    return func
+
+
+def _is_tty(stream) -> bool:
+    try:
+        return stream.isatty()
+    except (AttributeError, ValueError):
+        return False
+
+
+def _progress_printer(label: str):
+    if not _is_tty(sys.stderr):
+        return None
+
+    def show(*args):
+        if len(args) == 3:
+            name, done, total = args
+            text = f"\r{label} {done}/{total} {name[-50:]}"
+        else:
+            done, total = args
+            text = f"\r{label} {done}/{total}"
+        click.echo(text.ljust(80), err=True, nl=False)
+        if done == total:
+            click.echo("", err=True)
+    return show
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="ebbwatch")
+def main():
+    """Per-account activity baselines and daily alerts for drops and surges.
+
+    \b
+    A day's work:
+      ebbwatch ingest events/ --identities identities.csv --accounts accounts.csv
+      ebbwatch scan                      # ranked alerts for the last complete day
+      ebbwatch scan --format jsonl       # one alert per line, for chat or a queue
+    Try it first on invented data:  ebbwatch demo
+    """
+
+
+@main.command()
+@click.argument("inputs", nargs=-1, type=click.Path(allow_dash=True))
+@store_options
+@click.option("--accounts", type=click.Path(exists=True, dir_okay=False),
+              help="accounts.csv: account,name,seats,segment,timezone,mrr (load or update).")
+@click.option("--identities", type=click.Path(exists=True, dir_okay=False),
+              help="identities.csv: user,account,valid_from,valid_to (replaces those users' rows).")
+@click.option("--daily", type=click.Path(exists=True, dir_okay=False),
+              help="Pre-aggregated daily counts, CSV or Parquet: account,day,event,count[,users].")
+@click.option("--rejects", "rejects_path", type=click.Path(dir_okay=False),
+              help="Where rejected lines go (JSON lines). Default: beside the store.")
+@click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True,
+              help="json prints one summary object on stdout.")
+@handle_errors
+def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, fmt):
+    """Ingest JSON-lines events into the activity store.
+
+    INPUTS are .jsonl or .jsonl.gz files, directories (searched recursively, in sorted order) or
+    - for standard input. Each file is one transaction; a file already ingested (same content) is
+    skipped. Bad lines go to the rejects file with their line number and reason; the rest of the
+    file is ingested.
+
+    \b
+    Examples:
+      ebbwatch ingest events/ --identities identities.csv --accounts accounts.csv
+      zcat today.jsonl.gz | ebbwatch ingest -
+      ebbwatch ingest --daily warehouse_daily.parquet
+    """
+    if not (inputs or accounts or identities or daily):
+        raise click.UsageError("nothing to ingest: give INPUTS, --accounts, --identities or --daily")
+    summary = api.ingest_files(list(inputs), db=db, config=config_path, accounts=accounts,
+                               identities=identities, daily=daily, rejects_path=rejects_path,
+                               progress=_progress_printer("ingest"))
+    if fmt == "json":
+        click.echo(json.dumps(summary, default=str))
+    else:
+        _print_ingest_summary(summary)
+    if summary["errors"]:
+        sys.exit(3)
+
+
+def _print_ingest_summary(s: dict):
+    err = lambda text: click.echo(text, err=True)  # noqa: E731
+    loaded = [f"{s[k]} {label}" for k, label in (("accounts_loaded", "accounts"),
+              ("identities_loaded", "identity rows"), ("daily_rows_loaded", "daily rows")) if s[k]]
+    if loaded:
+        err("Loaded " + ", ".join(loaded) + ".")
+    if s["files"] or s["skipped_files"] or s["errors"]:
+        err(f"Ingested {s['ingested']:,} events from {s['files']} file(s), {s['lines']:,} lines "
+            f"in {s['seconds']:.1f} s; {s['duplicates']:,} duplicates dropped.")
+    if s["rejected"]:
+        total = sum(s["rejected"].values())
+        reasons = ", ".join(f"{k} {v:,}" for k, v in sorted(s["rejected"].items()))
+        err(f"Rejected {total:,} lines ({reasons}); see {s['rejects_file']}.")
+    if s["unattributed"]:
+        reasons = ", ".join(f"{k} {v:,}" for k, v in sorted(s["unattributed"].items()))
+        err(f"Unattributed {sum(s['unattributed'].values()):,} events ({reasons}).")
+    for skipped in s["skipped_files"]:
+        err(f"Skipped {skipped['file']}: {skipped['reason']}.")
+    for error in s["errors"]:
+        err(f"Error: {error['file']}: {error['error']} (nothing written for it)")
+
+
+@main.command()
+@store_options
+@click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True)
+@handle_errors
+def status(db, config_path, fmt):
+    """What the store holds: accounts, events, days covered, last ingest, data-gap days."""
+    info = api.status(db=db, config=config_path)
+    if fmt == "json":
+        click.echo(json.dumps(info, default=str))
+        return
+    click.echo(f"store          {info['store']} (schema {info['schema_version']})")
+    click.echo(f"accounts       {info['accounts']:,}")
+    click.echo(f"events         {info['events']:,}")
+    click.echo(f"days           {info['first_day']} .. {info['last_day']}")
+    last = info["last_ingest"]
+    click.echo(f"last ingest    {'-' if last is None else last['at'] + ' ' + last['file']}")
+    click.echo(f"data-gap days  {', '.join(info['gap_days']) or 'none'}")
+
+
+@main.group()
+def export():
+    """Take the history out of the store (to a notebook or a warehouse)."""
+
+
+@export.command("daily")
+@store_options
+@click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="File to write (- is not supported for parquet).")
+@handle_errors
+def export_daily(db, config_path, fmt, output):
+    """Write account, day, event, events, users for every stored day."""
+    rows = api.export_daily(output, fmt=fmt, db=db, config=config_path)
+    click.echo(f"Wrote {rows:,} rows to {output}.", err=True)
+
+
+@main.command()
+@store_options
+@click.option("--as-of", help="Day to judge, YYYY-MM-DD. Default: the last complete day in the store.")
+@click.option("--format", "fmt", type=click.Choice(["table", "jsonl", "csv", "markdown", "json"]),
+              default="table", show_default=True, help="jsonl: one alert per line with a ready `message`.")
+@click.option("--kind", "kinds", multiple=True, type=click.Choice(["drop", "stop", "slide", "surge"]),
+              help="Only these kinds (repeatable).")
+@click.option("--max-alerts", type=click.IntRange(min=0), help="At most this many alerts, most severe first.")
+@click.option("--fail-on-alert", is_flag=True, help="Exit with 1 when there is at least one alert.")
+@click.option("--chunk-size", type=click.IntRange(min=1), default=10_000, show_default=True,
+              help="Accounts scored at once (bounds memory).")
+@handle_errors
+def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size):
+    """Judge every account's recent days against its own history and print ranked alerts.
+
+    Kinds: drop (a sudden fall), stop (no activity, unusual for the account), slide (a gradual
+    fall over weeks), surge (a sudden rise). Each account is compared with its own weekday rhythm
+    and level history; Benjamini-Hochberg control keeps false alerts from growing with the fleet.
+
+    \b
+    Exit codes: 0 ran; 1 alerts found with --fail-on-alert; 2 usage or config error;
+    3 unusable input or store.
+    """
+    alerts = api.scan(as_of=as_of, db=db, config=config_path, kinds=list(kinds) or None,
+                      max_alerts=max_alerts, chunk_size=chunk_size, progress=_progress_printer("scan"))
+    from .report import render_alerts
+
+    summary = alerts.attrs["summary"]
+    click.echo(render_alerts(alerts, fmt, summary), nl=False)
+    if fmt == "table":
+        click.echo(
+            f"{summary['alerts']} alert(s) as of {summary['as_of']}; {summary['judged']:,} accounts judged, "
+            f"{len(summary['not_enough_history']):,} with not enough history, {summary['dormant']:,} dormant"
+            + (f"; masked data-gap days: {', '.join(summary['masked_days'])}" if summary["masked_days"] else "")
+            + ".",
+            err=True,
+        )
+    if fail_on_alert and len(alerts):
+        sys.exit(EXIT_ALERTS)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,71 @@
+"""Column names and record types that cross module boundaries, declared once."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+# Staged events, as the ingester hands them to the store: one row per valid line.
+EVENT_COLUMNS = ("ts", "event", "user", "account", "id")
+
+# The daily input (warehouse aggregates) and the daily export.
+DAILY_INPUT_COLUMNS = ("account", "day", "event", "count")
+DAILY_OPTIONAL_COLUMNS = ("users",)
+DAILY_EXPORT_COLUMNS = ("account", "day", "event", "events", "users")
+
+ACCOUNT_COLUMNS = ("account", "name", "seats", "segment", "timezone", "mrr")
+IDENTITY_COLUMNS = ("user", "account", "valid_from", "valid_to")
+OUTCOME_COLUMNS = ("account", "date", "outcome")
+
+# One alert as the scan returns it (the JSON-lines schema; README documents each key).
+ALERT_COLUMNS = (
+    "account",
+    "name",
+    "kind",
+    "direction",
+    "as_of",
+    "severity",
+    "p_value",
+    "q_value",
+    "percentile",
+    "change_pct",
+    "level",
+    "baseline_level",
+    "onset",
+    "baseline",
+    "message",
+)
+ALERT_KINDS = ("drop", "stop", "slide", "surge")
+
+
+@dataclass
+class Reject:
+    """One rejected input line: where it was, why, and a short excerpt of it."""
+
+    file: str
+    line: int
+    reason: str
+    excerpt: str
+    detail: str = ""
+
+    def as_dict(self) -> dict:
+        return {
+            "file": self.file,
+            "line": self.line,
+            "reason": self.reason,
+            "detail": self.detail,
+            "excerpt": self.excerpt,
+        }
+
+
+@dataclass
+class FileResult:
+    """What ingesting one file did."""
+
+    file: str
+    lines: int = 0
+    ingested: int = 0
+    duplicates: int = 0
+    rejected: dict = field(default_factory=dict)
+    unattributed: dict = field(default_factory=dict)
+    skipped: str | None = None  # reason the whole file was skipped (e.g. already ingested)
+    path_taken: str = "fast"  # "fast" (native reader) or "precise" (line by line)

@@ -1,0 +1,1 @@
+"""Readers, field mapping, timestamps and validation of input (no database access)."""

@@ -1,0 +1,136 @@
+"""Finding input files, hashing them, and reading their lines for the precise path."""
+
+from __future__ import annotations
+
+import gzip
+import hashlib
+import os
+import shutil
+import sys
+import tempfile
+import zlib
+from pathlib import Path
+from typing import Iterator
+
+import numpy as np
+
+from ..errors import InputError
+
+JSONL_SUFFIXES = (".jsonl", ".ndjson", ".json", ".jsonl.gz", ".ndjson.gz", ".json.gz")
+STDIN = "-"
+
+
+def expand_inputs(inputs: list[str]) -> list[str]:
+    """Files in the order given; directories expand to their JSON-lines files, recursively, sorted."""
+    files: list[str] = []
+    for item in inputs:
+        if item == STDIN:
+            files.append(STDIN)
+            continue
+        path = Path(item)
+        if path.is_dir():
+            found = sorted(
+                str(p) for p in path.rglob("*") if p.is_file() and p.name.lower().endswith(JSONL_SUFFIXES)
+            )
+            files.extend(found)
+        elif path.exists():
+            files.append(str(path))
+        else:
+            raise InputError(f"no such file or directory: {item}")
+    return files
+
+
+def spool_stdin(stream=None) -> str:
+    """Copy standard input to a temporary file so it can be hashed and read twice."""
+    stream = stream if stream is not None else sys.stdin.buffer
+    handle = tempfile.NamedTemporaryFile(prefix="ebbwatch-stdin-", suffix=".jsonl", delete=False)
+    with handle:
+        shutil.copyfileobj(stream, handle, 1 << 20)
+    return handle.name
+
+
+class _LongestLine:
+    """Tracks the longest line (bytes, without its terminator) across blocks of a stream."""
+
+    def __init__(self):
+        self.longest = 0
+        self.current = 0  # length of the unfinished line carried into the next block
+
+    def feed(self, block: bytes):
+        if not block:
+            return
+        newlines = np.flatnonzero(np.frombuffer(block, dtype=np.uint8) == 10)
+        if newlines.size == 0:
+            self.current += len(block)
+            return
+        first = self.current + int(newlines[0])
+        inner = int(np.diff(newlines).max()) - 1 if newlines.size > 1 else 0
+        self.longest = max(self.longest, first, inner)
+        self.current = len(block) - int(newlines[-1]) - 1
+
+    def result(self) -> int:
+        return max(self.longest, self.current)
+
+
+def scan_file(path: str) -> tuple[str, int]:
+    """One pass over a file: its SHA-256 (of the bytes as stored) and its longest line in bytes
+    (of the decompressed text for gzip).  DuckDB's reader does not enforce a per-line size limit
+    on its own, so the fast path relies on this."""
+    digest = hashlib.sha256()
+    longest = _LongestLine()
+    try:
+        gz = is_gzip(path)
+        inflater = zlib.decompressobj(wbits=47) if gz else None
+        with open(path, "rb") as handle:
+            for block in iter(lambda: handle.read(1 << 20), b""):
+                digest.update(block)
+                if inflater is None:
+                    longest.feed(block)
+                    continue
+                while block:
+                    longest.feed(inflater.decompress(block, 1 << 24))
+                    block = inflater.unconsumed_tail
+                    if inflater.eof and inflater.unused_data:
+                        # A second gzip member follows (concatenated files are valid gzip).
+                        rest = inflater.unused_data
+                        inflater = zlib.decompressobj(wbits=47)
+                        block = rest
+    except zlib.error as exc:
+        raise InputError(f"cannot read {path}: not a valid gzip file ({exc})") from exc
+    except OSError as exc:
+        raise InputError(f"cannot read {path}: {exc.strerror or exc}") from exc
+    return digest.hexdigest(), longest.result()
+
+
+def sha256_of(path: str) -> str:
+    return scan_file(path)[0]
+
+
+def is_gzip(path: str) -> bool:
+    with open(path, "rb") as handle:
+        return handle.read(2) == b"\x1f\x8b"
+
+
+def iter_lines(path: str) -> Iterator[tuple[int, bytes]]:
+    """``(line_number, raw_bytes)`` for each ``\\n``-terminated line; a trailing ``\\r`` is dropped.
+
+    Raises :class:`InputError` when the file cannot be read to its end (a gzip file cut short).
+    """
+    opener = gzip.open if is_gzip(path) else open
+    try:
+        with opener(path, "rb") as handle:
+            for number, raw in enumerate(handle, start=1):
+                if raw.endswith(b"\n"):
+                    raw = raw[:-1]
+                if raw.endswith(b"\r"):
+                    raw = raw[:-1]
+                yield number, raw
+    except (EOFError, gzip.BadGzipFile, OSError) as exc:
+        raise InputError(f"cannot read {path} to its end: {exc}") from exc
+
+
+def remove_quietly(path: str):
+    try:
+        os.unlink(path)
+    except OSError:
+        pass

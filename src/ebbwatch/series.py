@@ -1,0 +1,217 @@
+"""Store rows → accounts × days arrays of the activity index, with masks and the fleet factor.
+
+Shapes: ``A`` accounts (a chunk), ``D`` days; column ``D - 1`` is the as-of day.  Days are
+integers since 1970-01-01 (1970-01-01 was a Thursday, so weekday = (day + 3) % 7, Monday = 0).
+"""
+
+from __future__ import annotations
+
+import fnmatch
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+FLEET_GAP_RATIO = 0.3  # a day at under 30% of the fleet's usual volume is a data gap, not quiet
+FLEET_LOOKBACK_WEEKS = 4
+FLEET_DEADBAND = 0.05  # fleet-wide moves under ±5% are left alone (noise of the median)
+FLEET_MIN_ACCOUNTS = 8
+FLEET_MIN_REFERENCE = 3.0  # accounts whose usual day is under 3 events are too noisy to vote
+
+
+def weekday_of(day: np.ndarray | int):
+    """Monday = 0 … Sunday = 6 for days since the epoch."""
+    return (np.asarray(day) + 3) % 7
+
+
+def quiet_nanmedian(array, axis):
+    """``np.nanmedian`` without the warning for all-NaN slices (they give NaN, as intended)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanmedian(array, axis=axis)
+
+
+def quiet_nanmean(array, axis):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanmean(array, axis=axis)
+
+
+def resolve_event_weights(event_names, weights: dict[str, float], exclude=()) -> dict[str, float]:
+    """Each event name's weight: the first matching exact name, else the first matching glob,
+    else 1; names matching an ``exclude`` glob get weight 0."""
+    resolved = {}
+    globs = [(pattern, w) for pattern, w in weights.items() if any(c in pattern for c in "*?[")]
+    for name in event_names:
+        if any(fnmatch.fnmatchcase(name, pattern) for pattern in exclude):
+            resolved[name] = 0.0
+        elif name in weights:
+            resolved[name] = float(weights[name])
+        else:
+            resolved[name] = next((w for p, w in globs if fnmatch.fnmatchcase(name, p)), 1.0)
+    return resolved
+
+
+@dataclass
+class Panel:
+    """The activity of a block of accounts over consecutive days.
+
+    ``values`` (A, D) float64: the activity index, NaN where missing (before the account's first
+    activity, or a masked fleet-wide data-gap day).  ``counts`` (A, D): the weighted event totals
+    before normalisation (the count model's scale), NaN where ``values`` is.  ``start_day``: the
+    day number of column 0.  ``first_seen`` (A,): column of the first activity, ``D`` if none.
+    """
+
+    accounts: list
+    start_day: int
+    values: np.ndarray
+    counts: np.ndarray
+    first_seen: np.ndarray
+    masked: np.ndarray  # (D,) bool
+    fleet_factor: np.ndarray  # (D,)
+
+    @property
+    def n_days(self) -> int:
+        return self.values.shape[1]
+
+    @property
+    def days(self) -> np.ndarray:
+        return self.start_day + np.arange(self.n_days)
+
+
+def dense_matrix(account_index, day, value, n_accounts: int, start_day: int, n_days: int) -> np.ndarray:
+    """Scatter (account, day, value) rows into a zero-filled (A, D) float64 matrix."""
+    out = np.zeros((n_accounts, n_days))
+    col = np.asarray(day) - start_day
+    keep = (col >= 0) & (col < n_days)
+    np.add.at(out, (np.asarray(account_index)[keep], col[keep]), np.asarray(value)[keep])
+    return out
+
+
+def build_panel(
+    account_index, day, value, events, users, *, accounts, start_day: int, end_day: int,
+    normalise: str = "none", seats=None, fleet_factor=None, masked=None,
+) -> Panel:
+    """Arrays from the store's rows for one block of accounts.
+
+    ``normalise``: ``none``, ``seats`` (divide by the account's seats) or ``active_users``
+    (divide by the day's distinct users).  ``fleet_factor`` / ``masked`` (D,) come from
+    :func:`fleet_factor` computed over the whole fleet; they default to 1 / nothing masked.
+    """
+    n_days = end_day - start_day + 1
+    n_accounts = len(accounts)
+    counts = dense_matrix(account_index, day, value, n_accounts, start_day, n_days)
+    if normalise == "seats":
+        s = np.asarray(seats, dtype=float) if seats is not None else np.ones(n_accounts)
+        s = np.where(np.isfinite(s) & (s > 0), s, 1.0)
+        values = counts / s[:, None]
+    elif normalise == "active_users":
+        active = dense_matrix(account_index, day, users, n_accounts, start_day, n_days)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            values = np.where(active > 0, counts / np.maximum(active, 1), 0.0)
+    elif normalise == "none":
+        values = counts.copy()
+    else:
+        raise ValueError(f"unknown normalise {normalise!r}; expected none, seats or active_users")
+    active_any = counts > 0
+    first_seen = np.where(active_any.any(axis=1), active_any.argmax(axis=1), n_days)
+    before = np.arange(n_days)[None, :] < first_seen[:, None]
+    if masked is None:
+        masked = np.zeros(n_days, dtype=bool)
+    if fleet_factor is None:
+        fleet_factor = np.ones(n_days)
+    hide = before | masked[None, :]
+    values[hide] = np.nan
+    counts[hide] = np.nan
+    return Panel(list(accounts), start_day, values, counts, first_seen, np.asarray(masked, bool),
+                 np.asarray(fleet_factor, float))
+
+
+def _same_weekday_reference(matrix: np.ndarray, weeks: int = FLEET_LOOKBACK_WEEKS) -> np.ndarray:
+    """Median of the same weekday over the previous ``weeks`` weeks, (A, D); NaN where unknown."""
+    n_days = matrix.shape[1]
+    lagged = np.full((weeks,) + matrix.shape, np.nan)
+    for k in range(1, weeks + 1):
+        lagged[k - 1, :, 7 * k:] = matrix[:, : n_days - 7 * k]
+    return quiet_nanmedian(lagged, axis=0)
+
+
+def shorth_location(votes: np.ndarray, coverage: float = 0.6) -> np.ndarray:
+    """Per column of ``votes`` (A, D), the mean of the log votes inside the shortest interval
+    that holds ``coverage`` of them (the shorth of Andrews et al. 1972, averaged as in
+    Rousseeuw's least-trimmed-squares location).
+
+    Unlike the median, it stays with the bulk when a large minority of accounts (a fifth, say)
+    moves together in one direction; averaging inside the interval keeps it less noisy than the
+    interval's midpoint.  Returned on the ratio scale; NaN where no vote.
+    """
+    out = np.full(votes.shape[1], np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logs = np.log(votes)
+    for column in range(votes.shape[1]):
+        x = np.sort(logs[np.isfinite(logs[:, column]), column])
+        if x.size == 0:
+            continue
+        keep = max(int(np.ceil(coverage * x.size)), 1)
+        widths = x[keep - 1:] - x[: x.size - keep + 1]
+        best = int(np.argmin(widths))
+        out[column] = np.exp(x[best:best + keep].mean())
+    return out
+
+
+def fleet_factor(counts: np.ndarray, *, gap_ratio: float = FLEET_GAP_RATIO,
+                 iterations: int = 3) -> tuple[np.ndarray, np.ndarray]:
+    """The fleet-wide daily factor and the data-gap mask from a sample of accounts' counts (A, D).
+
+    Each account votes with its day's count over its own median of the same weekday in the
+    previous weeks; the factor is the shorth of the votes, so even a large minority of accounts
+    changing moves it little, and an ordinary day's value is scaled to 1.  The references are then recomputed on counts with the factor divided out, a few
+    times, so that the weeks after a holiday are not read as a lift over holiday-depressed
+    references.  Returns ``(factor (D,), masked (D,) bool)``; a day under ``gap_ratio`` is masked.
+    """
+    counts = np.where(np.isnan(counts), 0.0, counts)
+    n_days = counts.shape[1]
+    factor = np.ones(n_days)
+    masked = np.zeros(n_days, dtype=bool)
+    for _ in range(iterations):
+        adjusted = counts / factor[None, :]
+        adjusted[:, masked] = np.nan
+        reference = _same_weekday_reference(adjusted)
+        voters = reference >= FLEET_MIN_REFERENCE
+        with np.errstate(all="ignore"):
+            ratio = np.where(voters, counts / reference, np.nan)
+        enough = voters.sum(axis=0) >= FLEET_MIN_ACCOUNTS
+        new = np.ones(n_days)
+        new[enough] = shorth_location(ratio[:, enough])
+        # The central vote of over-dispersed (right-skewed) counts sits below 1 on an ordinary
+        # day; divide by its typical value so an ordinary day's factor is 1.
+        ordinary = enough & (new >= gap_ratio)
+        if ordinary.any():
+            new[enough] /= np.median(new[ordinary])
+        masked = new < gap_ratio
+        factor = np.where(masked, 1.0, new)
+    log_factor = np.log(np.clip(factor, 1e-9, None))
+    shrunk = np.sign(log_factor) * np.maximum(np.abs(log_factor) - FLEET_DEADBAND, 0.0)
+    return np.where(masked, 1.0, np.exp(shrunk)), masked
+
+
+def adjust_for_fleet(panel: Panel) -> np.ndarray:
+    """The index divided by the fleet factor (masked days stay NaN), (A, D)."""
+    return panel.values / panel.fleet_factor[None, :]
+
+
+def fleet_gap_days(days, totals: np.ndarray) -> list:
+    """Days whose fleet-wide total is under ``FLEET_GAP_RATIO`` of the same weekday's recent median
+    (for ``ebbwatch status``).  ``days``: a sequence of dates, consecutive or not."""
+    import pandas as pd
+
+    if len(totals) == 0:
+        return []
+    index = pd.to_datetime(pd.Series(list(days)))
+    full = pd.date_range(index.min(), index.max(), freq="D")
+    series = pd.Series(np.asarray(totals, float), index=index).reindex(full, fill_value=0.0)
+    matrix = series.to_numpy()[None, :]
+    reference = _same_weekday_reference(matrix)[0]
+    with np.errstate(all="ignore"):
+        gap = (reference > 0) & (matrix[0] < FLEET_GAP_RATIO * reference)
+    return [d.date() for d in full[gap]]

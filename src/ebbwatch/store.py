@@ -1,0 +1,545 @@
+"""The activity store: one DuckDB file.  The only module that speaks SQL.
+
+Tables (schema version ``SCHEMA_VERSION``; ``MIGRATIONS`` brings older stores forward):
+
+- ``daily``: account × local day × event → events, distinct users.
+- ``user_daily``: account × local day × event × user → events (drivers, active users, and exact
+  distinct-user counts when late events arrive for a day already stored).
+- ``accounts``, ``identities`` (user → account over ``[valid_from, valid_to)``).
+- ``seen_ids``: event ids within the dedupe window; ``ingest_log``: one row per file ingested.
+- ``alert_state``: room for the alert lifecycle.
+
+Every file is ingested inside one transaction: if the process dies part-way, DuckDB's write-ahead
+log rolls the file back on the next open, and the store is as it was before that file.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from contextlib import contextmanager
+from pathlib import Path
+
+import duckdb
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+
+from .errors import StoreError
+
+SCHEMA_VERSION = 1
+DEFAULT_PATH = "ebbwatch.duckdb"
+
+# Schema as a list of migrations: MIGRATIONS[v] takes a store at version v to v + 1.
+MIGRATIONS: dict[int, list[str]] = {
+    0: [
+        "CREATE TABLE meta (key VARCHAR PRIMARY KEY, value VARCHAR)",
+        """CREATE TABLE accounts (account VARCHAR PRIMARY KEY, name VARCHAR, seats DOUBLE,
+               segment VARCHAR, timezone VARCHAR, mrr DOUBLE)""",
+        """CREATE TABLE identities ("user" VARCHAR NOT NULL, account VARCHAR NOT NULL,
+               valid_from TIMESTAMPTZ, valid_to TIMESTAMPTZ)""",
+        """CREATE TABLE daily (account VARCHAR NOT NULL, day DATE NOT NULL, event VARCHAR NOT NULL,
+               events BIGINT NOT NULL, users BIGINT)""",
+        """CREATE TABLE user_daily (account VARCHAR NOT NULL, day DATE NOT NULL,
+               event VARCHAR NOT NULL, "user" VARCHAR NOT NULL, events BIGINT NOT NULL)""",
+        "CREATE TABLE seen_ids (id VARCHAR NOT NULL, ts TIMESTAMPTZ NOT NULL)",
+        """CREATE TABLE ingest_log (file VARCHAR, sha256 VARCHAR, ingested_at TIMESTAMPTZ,
+               lines BIGINT, ingested BIGINT, duplicates BIGINT, rejected BIGINT,
+               unattributed BIGINT, path_taken VARCHAR, first_day DATE, last_day DATE)""",
+        """CREATE TABLE alert_state (account VARCHAR, kind VARCHAR, direction VARCHAR,
+               state VARCHAR, opened DATE, last_seen DATE, severity DOUBLE, snoozed_until DATE,
+               reason VARCHAR)""",
+    ],
+}
+
+# The fast path's RFC 3339 check: the same pattern as ingest.timestamps.RFC3339_PATTERN but
+# without leap seconds (second 60), which only the precise path handles.
+FAST_TS_PATTERN = (
+    r"\d{4}-\d{2}-\d{2}[Tt ]([01]\d|2[0-3]):[0-5]\d:[0-5]\d(\.\d{1,9})?([Zz]|[+-]([01]\d|2[0-3]):[0-5]\d)"
+)
+
+
+def quote_ident(name: str) -> str:
+    """A SQL identifier, double-quoted with embedded quotes doubled."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def quote_literal(text: str) -> str:
+    return "'" + text.replace("'", "''") + "'"
+
+
+class Store:
+    """An open activity store.  Use :func:`open_store` (or ``with open_store(...) as store``)."""
+
+    def __init__(self, con: duckdb.DuckDBPyConnection, path: str):
+        self.con = con
+        self.path = path
+
+    # -- lifecycle -------------------------------------------------------------------------
+    def close(self):
+        self.con.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    @contextmanager
+    def transaction(self):
+        self.con.execute("BEGIN TRANSACTION")
+        try:
+            yield
+        except BaseException:
+            self.con.execute("ROLLBACK")
+            raise
+        else:
+            self.con.execute("COMMIT")
+
+    def schema_version(self) -> int:
+        return int(self.con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0])
+
+    # -- reference tables ------------------------------------------------------------------
+    def upsert_accounts(self, frame: pd.DataFrame) -> int:
+        """Insert or replace accounts (columns of ``frames.ACCOUNT_COLUMNS``)."""
+        self.con.register("incoming_accounts", frame)
+        try:
+            self.con.execute("DELETE FROM accounts WHERE account IN (SELECT account FROM incoming_accounts)")
+            self.con.execute(
+                "INSERT INTO accounts SELECT account, name, seats, segment, timezone, mrr FROM incoming_accounts"
+            )
+        finally:
+            self.con.unregister("incoming_accounts")
+        return len(frame)
+
+    def replace_identities(self, frame: pd.DataFrame) -> int:
+        """Replace the identity intervals of every user in ``frame``."""
+        self.con.register("incoming_identities", frame)
+        try:
+            self.con.execute('DELETE FROM identities WHERE "user" IN (SELECT "user" FROM incoming_identities)')
+            self.con.execute(
+                'INSERT INTO identities SELECT "user", account, valid_from, valid_to FROM incoming_identities'
+            )
+        finally:
+            self.con.unregister("incoming_identities")
+        return len(frame)
+
+    def accounts(self) -> pd.DataFrame:
+        return self.con.execute("SELECT * FROM accounts ORDER BY account").df()
+
+    # -- ingest log ------------------------------------------------------------------------
+    def already_ingested(self, sha256: str) -> str | None:
+        row = self.con.execute(
+            "SELECT file FROM ingest_log WHERE sha256 = ? LIMIT 1", [sha256]
+        ).fetchone()
+        return None if row is None else row[0]
+
+    def log_ingest(self, file: str, sha256: str, result, first_day, last_day):
+        self.con.execute(
+            "INSERT INTO ingest_log VALUES (?, ?, now(), ?, ?, ?, ?, ?, ?, ?, ?)",
+            [
+                file,
+                sha256,
+                result.lines,
+                result.ingested,
+                result.duplicates,
+                sum(result.rejected.values()),
+                sum(result.unattributed.values()),
+                result.path_taken,
+                first_day,
+                last_day,
+            ],
+        )
+
+    # -- events: fast path -----------------------------------------------------------------
+    def stage_jsonl_fast(self, path: str, fields, ts_format: str, max_line_bytes: int,
+                         earliest_us: int, latest_us: int) -> int | None:
+        """Parse a JSON-lines file with DuckDB's native reader into the temp table ``staged``.
+
+        Returns the number of events staged, or ``None`` when any line is one the fast path is
+        not sure of (bad JSON, a wrong type, an unusual timestamp, an out-of-range time, a line over
+        the size limit): the caller then sends the whole file through the precise path.
+        """
+        names = [fields.ts, fields.event, fields.user, fields.account, fields.id]
+        spec = ", ".join(f"{quote_literal(n)}: 'JSON'" for n in dict.fromkeys(names))
+        ts, ev, us, ac, idc = (quote_ident(n) for n in names)
+        try:
+            self.con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE raw_lines AS
+                SELECT {ts} AS ts, {ev} AS event, {us} AS u, {ac} AS account, {idc} AS id
+                FROM read_json(?, format='newline_delimited', columns={{{spec}}},
+                               maximum_object_size=?)""",
+                [path, max(int(max_line_bytes), 1)],
+            )
+        except duckdb.Error:
+            return None
+        numeric_ok = "json_type(ts) IN ('UBIGINT', 'BIGINT', 'DOUBLE')"
+        string_ok = f"json_type(ts) = 'VARCHAR' AND regexp_full_match(ts ->> '$', {quote_literal(FAST_TS_PATTERN)})"
+        if ts_format == "rfc3339":
+            ts_ok = string_ok
+        elif ts_format in ("epoch_s", "epoch_ms"):
+            ts_ok = numeric_ok
+        else:
+            ts_ok = f"(({string_ok}) OR ({numeric_ok}))"
+        id_types = "('VARCHAR', 'UBIGINT', 'BIGINT')"
+        bad = self.con.execute(
+            f"""SELECT count(*) FROM raw_lines WHERE NOT (
+                ts IS NOT NULL AND {ts_ok}
+                AND json_type(event) = 'VARCHAR' AND (event ->> '$') <> ''
+                AND u IS NOT NULL AND json_type(u) IN {id_types} AND (u ->> '$') <> ''
+                AND (account IS NULL OR json_type(account) IN {id_types})
+                AND (id IS NULL OR json_type(id) IN {id_types}))"""
+        ).fetchone()[0]
+        if bad:
+            return None
+        if ts_format == "epoch_s":
+            numeric_us = "CAST(round(CAST(ts AS DOUBLE) * 1e6) AS BIGINT)"
+        elif ts_format == "epoch_ms":
+            numeric_us = "CAST(round(CAST(ts AS DOUBLE) * 1e3) AS BIGINT)"
+        else:
+            numeric_us = (
+                "CASE WHEN abs(CAST(ts AS DOUBLE)) < 1e11 THEN CAST(round(CAST(ts AS DOUBLE) * 1e6) AS BIGINT) "
+                "WHEN abs(CAST(ts AS DOUBLE)) < 1e14 THEN CAST(round(CAST(ts AS DOUBLE) * 1e3) AS BIGINT) END"
+            )
+        self.con.execute(
+            f"""CREATE OR REPLACE TEMP TABLE staged AS
+            SELECT CASE WHEN json_type(ts) = 'VARCHAR' THEN epoch_us(CAST(ts ->> '$' AS TIMESTAMPTZ))
+                        ELSE {numeric_us} END AS ts_us,
+                   event ->> '$' AS event, u ->> '$' AS "user",
+                   nullif(account ->> '$', '') AS account, nullif(id ->> '$', '') AS id,
+                   row_number() OVER () AS line_order
+            FROM raw_lines"""
+        )
+        self.con.execute("DROP TABLE raw_lines")
+        out_of_range = self.con.execute(
+            "SELECT count(*) FROM staged WHERE ts_us IS NULL OR ts_us < ? OR ts_us > ?",
+            [int(earliest_us), int(latest_us)],
+        ).fetchone()[0]
+        if out_of_range:
+            return None
+        return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
+
+    # -- events: precise path ----------------------------------------------------------------
+    def stage_records(self, table: pa.Table) -> int:
+        """Stage events parsed by the precise path (columns ts_us, event, user, account, id)."""
+        self.con.register("incoming_records", table)
+        try:
+            self.con.execute(
+                """CREATE OR REPLACE TEMP TABLE staged AS
+                SELECT ts_us, event, "user", account, id, row_number() OVER () AS line_order
+                FROM incoming_records"""
+            )
+        finally:
+            self.con.unregister("incoming_records")
+        return table.num_rows
+
+    # -- events: merge (both paths) ----------------------------------------------------------
+    def merge_staged(self, dedupe_window_days: int) -> dict:
+        """Attribute, dedupe and aggregate the staged events into the daily tables.
+
+        Returns counts: ``ingested``, ``duplicates``, ``unattributed`` (by reason), and the first
+        and last local day touched.
+        """
+        con = self.con
+        con.execute(
+            """CREATE OR REPLACE TEMP TABLE attributed AS
+            SELECT s.ts_us, s.event, s."user", s.id, s.line_order,
+                   COALESCE(s.account, i.account) AS account,
+                   CASE WHEN s.account IS NULL AND i.account IS NULL THEN
+                        CASE WHEN k."user" IS NULL THEN 'unknown_user' ELSE 'no_identity_at_time' END
+                   END AS unattributed
+            FROM staged s
+            LEFT JOIN identities i
+              ON s.account IS NULL AND i."user" = s."user"
+             AND (i.valid_from IS NULL OR s.ts_us >= epoch_us(i.valid_from))
+             AND (i.valid_to IS NULL OR s.ts_us < epoch_us(i.valid_to))
+            LEFT JOIN (SELECT DISTINCT "user" FROM identities) k
+              ON s.account IS NULL AND i.account IS NULL AND k."user" = s."user"
+            QUALIFY row_number() OVER (PARTITION BY s.line_order ORDER BY i.valid_from DESC NULLS LAST) = 1"""
+        )
+        unattributed = dict(
+            con.execute(
+                "SELECT unattributed, count(*) FROM attributed WHERE unattributed IS NOT NULL GROUP BY 1"
+            ).fetchall()
+        )
+        # Dedupe: the first delivery of an id wins, within this file and against ids already seen.
+        con.execute(
+            """CREATE OR REPLACE TEMP TABLE fresh AS
+            SELECT a.* FROM attributed a
+            WHERE a.unattributed IS NULL
+              AND (a.id IS NULL OR NOT EXISTS (SELECT 1 FROM seen_ids s WHERE s.id = a.id))
+            QUALIFY a.id IS NULL OR row_number() OVER (PARTITION BY a.id ORDER BY a.line_order) = 1"""
+        )
+        attributed_count = con.execute(
+            "SELECT count(*) FROM attributed WHERE unattributed IS NULL"
+        ).fetchone()[0]
+        fresh_count = con.execute("SELECT count(*) FROM fresh").fetchone()[0]
+        con.execute(
+            """INSERT INTO seen_ids SELECT id, make_timestamptz(ts_us) FROM fresh WHERE id IS NOT NULL"""
+        )
+        con.execute(
+            """CREATE OR REPLACE TEMP TABLE new_user_daily AS
+            SELECT f.account,
+                   CAST(timezone(COALESCE(a.timezone, 'UTC'), make_timestamptz(f.ts_us)) AS DATE) AS day,
+                   f.event, f."user", count(*) AS events
+            FROM fresh f LEFT JOIN accounts a ON a.account = f.account
+            GROUP BY ALL"""
+        )
+        con.execute(
+            "CREATE OR REPLACE TEMP TABLE touched AS SELECT DISTINCT account, day FROM new_user_daily"
+        )
+        touched_any = con.execute("SELECT count(*) FROM touched").fetchone()[0] > 0
+        store_empty = con.execute("SELECT count(*) FROM (SELECT 1 FROM user_daily LIMIT 1)").fetchone()[0] == 0
+        if touched_any and store_empty:
+            con.execute("INSERT INTO user_daily SELECT * FROM new_user_daily")
+            con.execute(
+                """INSERT INTO daily SELECT account, day, event, sum(events), count(*)
+                FROM new_user_daily GROUP BY ALL"""
+            )
+        elif touched_any:
+            con.execute(
+                """CREATE OR REPLACE TEMP TABLE merged_user_daily AS
+                SELECT account, day, event, "user", sum(events) AS events FROM (
+                    SELECT u.* FROM user_daily u SEMI JOIN touched t ON u.account = t.account AND u.day = t.day
+                    UNION ALL SELECT * FROM new_user_daily) GROUP BY ALL"""
+            )
+            con.execute(
+                "DELETE FROM user_daily USING touched t WHERE user_daily.account = t.account AND user_daily.day = t.day"
+            )
+            con.execute("INSERT INTO user_daily SELECT * FROM merged_user_daily")
+            con.execute(
+                """DELETE FROM daily USING (SELECT DISTINCT account, day, event FROM merged_user_daily) t
+                WHERE daily.account = t.account AND daily.day = t.day AND daily.event = t.event"""
+            )
+            con.execute(
+                """INSERT INTO daily SELECT account, day, event, sum(events), count(*)
+                FROM merged_user_daily GROUP BY ALL"""
+            )
+            con.execute("DROP TABLE merged_user_daily")
+        first_day, last_day = con.execute("SELECT min(day), max(day) FROM touched").fetchone()
+        # Forget ids older than the dedupe window, measured back from the newest event time seen.
+        con.execute(
+            """DELETE FROM seen_ids WHERE ts < (SELECT max(ts) FROM seen_ids) - to_days(CAST(? AS INTEGER))""",
+            [int(dedupe_window_days)],
+        )
+        for table in ("staged", "attributed", "fresh", "new_user_daily", "touched"):
+            con.execute(f"DROP TABLE IF EXISTS {table}")
+        return {
+            "ingested": fresh_count,
+            "duplicates": attributed_count - fresh_count,
+            "unattributed": unattributed,
+            "first_day": first_day,
+            "last_day": last_day,
+        }
+
+    # -- daily input -----------------------------------------------------------------------
+    def load_daily(self, frame) -> int:
+        """Insert or replace pre-aggregated daily rows (account, day, event, count[, users])."""
+        self.con.register("incoming_daily", frame)
+        try:
+            self.con.execute(
+                """CREATE OR REPLACE TEMP TABLE daily_in AS
+                SELECT CAST(account AS VARCHAR) AS account, CAST(day AS DATE) AS day,
+                       CAST(event AS VARCHAR) AS event, sum(CAST("count" AS BIGINT)) AS events,
+                       max(CAST(users AS BIGINT)) AS users
+                FROM incoming_daily GROUP BY ALL"""
+            )
+        finally:
+            self.con.unregister("incoming_daily")
+        self.con.execute(
+            """DELETE FROM daily USING daily_in t
+            WHERE daily.account = t.account AND daily.day = t.day AND daily.event = t.event"""
+        )
+        self.con.execute("INSERT INTO daily SELECT * FROM daily_in")
+        n = self.con.execute("SELECT count(*) FROM daily_in").fetchone()[0]
+        self.con.execute("DROP TABLE daily_in")
+        return n
+
+    # -- reading -----------------------------------------------------------------------------
+    def status(self) -> dict:
+        con = self.con
+        accounts, events, first_day, last_day = con.execute(
+            "SELECT count(DISTINCT account), COALESCE(sum(events), 0), min(day), max(day) FROM daily"
+        ).fetchone()
+        last = con.execute(
+            "SELECT file, ingested_at, ingested FROM ingest_log ORDER BY ingested_at DESC LIMIT 1"
+        ).fetchone()
+        return {
+            "store": self.path,
+            "schema_version": self.schema_version(),
+            "accounts": int(accounts),
+            "events": int(events),
+            "first_day": first_day,
+            "last_day": last_day,
+            "files_ingested": con.execute("SELECT count(*) FROM ingest_log").fetchone()[0],
+            "last_ingest": None
+            if last is None
+            else {"file": last[0], "at": last[1].isoformat(), "events": int(last[2])},
+        }
+
+    def fleet_daily_totals(self) -> pd.DataFrame:
+        return self.con.execute(
+            "SELECT day, sum(events) AS events, count(DISTINCT account) AS accounts FROM daily GROUP BY day ORDER BY day"
+        ).df()
+
+    def export_daily(self, path: str, fmt: str) -> int:
+        query = "SELECT account, day, event, events, users FROM daily ORDER BY account, day, event"
+        options = "FORMAT parquet" if fmt == "parquet" else "FORMAT csv, HEADER true"
+        self.con.execute(f"COPY ({query}) TO {quote_literal(path)} ({options})").fetchall()
+        return self.con.execute("SELECT count(*) FROM daily").fetchone()[0]
+
+    def export_daily_rows(self) -> pd.DataFrame:
+        return self.con.execute(
+            "SELECT account, day, event, events, users FROM daily ORDER BY account, day, event"
+        ).df()
+
+    def event_names(self) -> list[str]:
+        return [r[0] for r in self.con.execute("SELECT DISTINCT event FROM daily ORDER BY 1").fetchall()]
+
+    def account_ids(self) -> list[str]:
+        return [r[0] for r in self.con.execute("SELECT DISTINCT account FROM daily ORDER BY 1").fetchall()]
+
+    def last_day(self):
+        return self.con.execute("SELECT max(day) FROM daily").fetchone()[0]
+
+    def weighted_daily(self, event_weights: dict[str, float], accounts: list[str], start_day, end_day):
+        """Weighted event totals per account and day, for ``accounts`` and days in [start, end].
+
+        Returns numpy arrays ``(account_index, day, value, events, users)`` where ``account_index``
+        indexes into ``accounts``, ``day`` is days since 1970-01-01, ``value`` the weighted sum,
+        ``events`` the unweighted count of weighted (non-excluded) events and ``users`` the
+        account-day's distinct users (the largest per-event count where only daily input exists).
+        """
+        weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
+        wanted = pd.DataFrame({"account": accounts, "account_index": np.arange(len(accounts), dtype=np.int64)})
+        self.con.register("event_weights", weights)
+        self.con.register("wanted_accounts", wanted)
+        try:
+            table = self.con.execute(
+                """SELECT w.account_index, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
+                          sum(d.events * e.weight) AS value, sum(d.events) AS events,
+                          max(d.users) AS users
+                FROM daily d JOIN wanted_accounts w ON w.account = d.account
+                JOIN event_weights e ON e.event = d.event
+                WHERE d.day BETWEEN ? AND ? AND e.weight > 0
+                GROUP BY ALL""",
+                [start_day, end_day],
+            ).to_arrow_table()
+            distinct_users = self.con.execute(
+                """SELECT w.account_index, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day,
+                          count(DISTINCT u."user") AS users
+                FROM user_daily u JOIN wanted_accounts w ON w.account = u.account
+                JOIN event_weights e ON e.event = u.event
+                WHERE u.day BETWEEN ? AND ? AND e.weight > 0 GROUP BY ALL""",
+                [start_day, end_day],
+            ).to_arrow_table()
+        finally:
+            self.con.unregister("event_weights")
+            self.con.unregister("wanted_accounts")
+        cols = {name: table.column(name).to_numpy() for name in table.column_names}
+        users = np.nan_to_num(cols["users"].astype(np.float64))
+        if distinct_users.num_rows:
+            key = cols["account_index"].astype(np.int64) * 1_000_000 + cols["day"]
+            ukey = distinct_users.column("account_index").to_numpy().astype(np.int64) * 1_000_000 + distinct_users.column("day").to_numpy()
+            order = np.argsort(key)
+            pos = np.searchsorted(key[order], ukey)
+            ok = pos < len(key)
+            pos = pos[ok]
+            match = key[order][pos] == ukey[ok]
+            users[order[pos[match]]] = distinct_users.column("users").to_numpy()[ok][match]
+        return (
+            cols["account_index"].astype(np.int64),
+            cols["day"].astype(np.int64),
+            cols["value"].astype(np.float64),
+            cols["events"].astype(np.float64),
+            users,
+        )
+
+
+def _migrate(con, path: str):
+    has_meta = con.execute(
+        "SELECT count(*) FROM information_schema.tables WHERE table_name = 'meta' AND table_schema = 'main'"
+    ).fetchone()[0]
+    if has_meta:
+        version = int(con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0])
+    else:
+        other = con.execute(
+            "SELECT count(*) FROM information_schema.tables WHERE table_schema = 'main'"
+        ).fetchone()[0]
+        if other:
+            raise StoreError(
+                f"{path} is a DuckDB database but not an ebbwatch store (it has tables and no "
+                "'meta' table); refusing to change it. Point --db at a new or ebbwatch file."
+            )
+        version = 0
+    if version > SCHEMA_VERSION:
+        raise StoreError(
+            f"{path} has schema version {version}, newer than this ebbwatch understands "
+            f"({SCHEMA_VERSION}); upgrade ebbwatch to open it. The store was not changed."
+        )
+    while version < SCHEMA_VERSION:
+        con.execute("BEGIN TRANSACTION")
+        for statement in MIGRATIONS[version]:
+            con.execute(statement)
+        version += 1
+        con.execute(
+            "INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", [str(version)]
+        )
+        con.execute("COMMIT")
+
+
+def resolve_path(path: str | None) -> str:
+    """The store path: the argument, else ``$EBBWATCH_DB``, else ``./ebbwatch.duckdb``."""
+    return str(path or os.environ.get("EBBWATCH_DB") or DEFAULT_PATH)
+
+
+def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds: float = 0.0) -> Store:
+    """Open (creating and migrating if needed) the store at ``path``.
+
+    ``wait_seconds``: how long to keep retrying while another process holds the store's lock.
+    """
+    path = resolve_path(path)
+    p = Path(path)
+    if read_only and not p.exists():
+        raise StoreError(f"no store at {path}; ingest something first (ebbwatch ingest ...)")
+    if p.exists() and p.is_file() and p.stat().st_size > 0:
+        with open(p, "rb") as handle:
+            head = handle.read(16)
+        if len(head) < 12 or head[8:12] != b"DUCK":
+            raise StoreError(f"{path} is not a DuckDB database; refusing to open or overwrite it")
+    deadline = time.monotonic() + wait_seconds
+    while True:
+        try:
+            con = duckdb.connect(path, read_only=read_only)
+            break
+        except duckdb.IOException as exc:
+            if "lock" in str(exc).lower():
+                if time.monotonic() < deadline:
+                    time.sleep(0.2)
+                    continue
+                raise StoreError(
+                    f"the store {path} is in use by another ebbwatch process (an ingest is probably "
+                    "running); try again when it finishes"
+                ) from exc
+            raise StoreError(f"cannot open the store {path}: {exc}") from exc
+        except duckdb.Error as exc:
+            raise StoreError(f"cannot open the store {path}: {exc}") from exc
+    try:
+        # Instants are compared and printed in UTC whatever the machine's zone.
+        con.execute("SET TimeZone = 'UTC'")
+        if not read_only:
+            _migrate(con, path)
+        else:
+            try:
+                version = int(con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0])
+            except duckdb.Error as exc:
+                raise StoreError(f"{path} is not an ebbwatch store") from exc
+            if version != SCHEMA_VERSION:
+                raise StoreError(
+                    f"{path} has schema version {version}; this ebbwatch uses {SCHEMA_VERSION}. "
+                    "Open it once for writing (e.g. ebbwatch ingest) to migrate, or upgrade ebbwatch."
+                )
+    except BaseException:
+        con.close()
+        raise
+    return Store(con, path)

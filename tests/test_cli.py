@@ -1,0 +1,88 @@
+import json
+import subprocess
+import sys
+
+from click.testing import CliRunner
+
+from ebbwatch.cli import main
+
+from .conftest import write_jsonl
+
+
+def run(*args, input=None):
+    return CliRunner().invoke(main, list(args), input=input, catch_exceptions=False)
+
+
+def test_python_dash_m_help_smoke():
+    out = subprocess.run([sys.executable, "-m", "ebbwatch", "--help"], capture_output=True, text=True, check=True)
+    assert "ingest" in out.stdout and "scan" in out.stdout
+
+
+def test_every_command_has_help_and_is_in_the_readme():
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    for name, command in main.commands.items():
+        assert command.help, name
+        assert f"ebbwatch {name}" in readme, f"README does not show `ebbwatch {name}`"
+
+
+def test_ingest_json_summary_on_stdout_and_human_summary_on_stderr(tmp_path):
+    f = write_jsonl(tmp_path / "e.jsonl", [{"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "a"}],
+                    raw_lines=[b"oops"])
+    db = str(tmp_path / "s.duckdb")
+    result = run("ingest", str(f), "--db", db, "--format", "json")
+    assert result.exit_code == 0
+    summary = json.loads(result.stdout)
+    for key in ("files", "lines", "ingested", "duplicates", "rejected", "unattributed", "skipped_files", "seconds"):
+        assert key in summary
+    assert summary["rejected"] == {"not_json": 1} and summary["ingested"] == 1
+    human = run("ingest", str(f), "--db", db)
+    assert human.stdout == ""
+    assert "Skipped" in human.stderr and "already ingested" in human.stderr
+
+
+def test_stdin_with_dash(tmp_path):
+    db = str(tmp_path / "s.duckdb")
+    line = json.dumps({"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "a"}) + "\n"
+    result = run("ingest", "-", "--db", db, "--format", "json", input=line)
+    assert result.exit_code == 0 and json.loads(result.stdout)["ingested"] == 1
+
+
+def test_exit_code_2_for_usage_and_config_errors(tmp_path):
+    assert run("ingest", "--db", str(tmp_path / "s.duckdb")).exit_code == 2  # nothing to ingest
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[scan]\nwindow_dayz = 7\n")
+    f = write_jsonl(tmp_path / "e.jsonl", [])
+    result = run("ingest", str(f), "--db", str(tmp_path / "s.duckdb"), "--config", str(bad))
+    assert result.exit_code == 2
+    assert "unknown key [scan] window_dayz" in result.stderr and str(bad) in result.stderr
+
+
+def test_exit_code_3_for_unusable_input(tmp_path):
+    result = run("ingest", str(tmp_path / "missing.jsonl"), "--db", str(tmp_path / "s.duckdb"))
+    assert result.exit_code == 3 and "no such file" in result.stderr
+    notdb = tmp_path / "text.duckdb"
+    notdb.write_text("hello")
+    assert run("status", "--db", str(notdb)).exit_code == 3
+
+
+def test_status_and_export(tmp_path):
+    f = write_jsonl(tmp_path / "e.jsonl", [{"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "a"}])
+    db = str(tmp_path / "s.duckdb")
+    run("ingest", str(f), "--db", db)
+    status = json.loads(run("status", "--db", db, "--format", "json").stdout)
+    assert (status["accounts"], status["events"], status["first_day"], status["last_day"]) == (1, 1, "2026-03-02", "2026-03-02")
+    out = tmp_path / "d.parquet"
+    result = run("export", "daily", "--db", db, "--format", "parquet", "-o", str(out))
+    assert result.exit_code == 0
+    import pandas as pd
+
+    assert pd.read_parquet(out).to_dict("records")[0]["events"] == 1
+
+
+def test_db_from_environment(tmp_path, monkeypatch):
+    f = write_jsonl(tmp_path / "e.jsonl", [{"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "a"}])
+    monkeypatch.setenv("EBBWATCH_DB", str(tmp_path / "env.duckdb"))
+    assert run("ingest", str(f)).exit_code == 0
+    assert (tmp_path / "env.duckdb").exists()

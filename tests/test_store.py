@@ -1,0 +1,91 @@
+import duckdb
+import pytest
+
+from ebbwatch import store as store_mod
+from ebbwatch.errors import StoreError
+
+
+def test_new_store_is_at_current_schema(db):
+    with store_mod.open_store(db) as st:
+        assert st.schema_version() == store_mod.SCHEMA_VERSION
+        tables = {r[0] for r in st.con.execute("SELECT table_name FROM information_schema.tables").fetchall()}
+    assert {"daily", "user_daily", "accounts", "identities", "ingest_log", "seen_ids", "alert_state"} <= tables
+
+
+def test_reopen_keeps_data_and_version(db):
+    with store_mod.open_store(db) as st:
+        st.con.execute("INSERT INTO accounts (account) VALUES ('a-1')")
+    with store_mod.open_store(db) as st:
+        assert st.con.execute("SELECT count(*) FROM accounts").fetchone()[0] == 1
+
+
+def test_newer_schema_is_refused_and_left_alone(db):
+    with store_mod.open_store(db) as st:
+        st.con.execute("UPDATE meta SET value = '99' WHERE key = 'schema_version'")
+    with pytest.raises(StoreError, match="schema version 99, newer"):
+        store_mod.open_store(db)
+    con = duckdb.connect(db, read_only=True)
+    assert con.execute("SELECT value FROM meta").fetchone()[0] == "99"
+    con.close()
+
+
+def test_older_schema_is_migrated(db, monkeypatch):
+    # A store at version 1 opened by a build whose schema is version 2 runs migration 1 -> 2.
+    with store_mod.open_store(db):
+        pass
+    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", 2)
+    monkeypatch.setitem(store_mod.MIGRATIONS, 1, ["ALTER TABLE accounts ADD COLUMN region VARCHAR"])
+    with store_mod.open_store(db) as st:
+        assert st.schema_version() == 2
+        cols = [r[0] for r in st.con.execute("DESCRIBE accounts").fetchall()]
+    assert "region" in cols
+
+
+def test_file_that_is_not_duckdb_is_refused_not_overwritten(tmp_path):
+    path = tmp_path / "notes.duckdb"
+    path.write_text("my precious notes\n" * 10)
+    with pytest.raises(StoreError, match="not a DuckDB database"):
+        store_mod.open_store(str(path))
+    assert path.read_text() == "my precious notes\n" * 10
+
+
+def test_foreign_duckdb_database_is_refused(tmp_path):
+    path = str(tmp_path / "other.duckdb")
+    con = duckdb.connect(path)
+    con.execute("CREATE TABLE sales (x INT)")
+    con.close()
+    with pytest.raises(StoreError, match="not an ebbwatch store"):
+        store_mod.open_store(path)
+
+
+def test_path_from_environment(monkeypatch, tmp_path):
+    monkeypatch.setenv("EBBWATCH_DB", str(tmp_path / "env.duckdb"))
+    assert store_mod.resolve_path(None) == str(tmp_path / "env.duckdb")
+    assert store_mod.resolve_path("given.duckdb") == "given.duckdb"
+    monkeypatch.delenv("EBBWATCH_DB")
+    assert store_mod.resolve_path(None) == "ebbwatch.duckdb"
+
+
+def test_read_only_open_of_missing_store(tmp_path):
+    with pytest.raises(StoreError, match="no store"):
+        store_mod.open_store(str(tmp_path / "none.duckdb"), read_only=True)
+
+
+def test_hostile_field_names_stay_quoted(tmp_path, db):
+    """Field names from the config reach SQL only as quoted identifiers and literals."""
+    import json
+
+    import ebbwatch
+    from ebbwatch.config import Config, FieldsConfig
+
+    hostile = {"ts": 'ts"; DROP TABLE daily; --', "event": "ev'ent", "user": "u)", "account": "a-b c", "id": "i\"d"}
+    cfg = Config(fields=FieldsConfig(**hostile))
+    path = tmp_path / "e.jsonl"
+    path.write_text(json.dumps({hostile["ts"]: "2026-03-02T10:00:00Z", hostile["event"]: "x", hostile["user"]: "u1",
+                                hostile["account"]: "acc", hostile["id"]: "1"}) + "\n")
+    from datetime import datetime, timezone
+
+    s = ebbwatch.ingest_files([str(path)], db=db, config=cfg, now=datetime(2026, 6, 1, tzinfo=timezone.utc))
+    assert s["ingested"] == 1 and s["paths"]["fast"] == 1
+    with store_mod.open_store(db) as st:
+        assert st.con.execute("SELECT account, event, events FROM daily").fetchall() == [("acc", "x", 1)]
