@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import time
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict
 from datetime import date, datetime, timedelta, timezone
 from pathlib import Path
@@ -144,19 +145,25 @@ def ingest_files(
 
 def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_rejects: list) -> FileResult:
     result = FileResult(file=display)
-    digest, longest_line = scan_file(path)
+    file_rejects: list[Reject] = []
+    # Hashing (and measuring the longest line) runs in a thread beside the fast-path parse:
+    # both release the GIL.  Staging writes only temporary tables, so it runs before the
+    # file's transaction: a fast-path parse error must not abort it.
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        scanning = pool.submit(scan_file, path)
+        try:
+            staged = st.stage_jsonl_fast(path, cfg.fields, rules.ts_format, rules.max_line_bytes,
+                                         rules.earliest_us, rules.latest_us)
+        finally:
+            digest, longest_line = scanning.result()
     earlier = st.already_ingested(digest)
     if earlier is not None:
+        st.drop_staged()
         result.skipped = f"already ingested (same content as {earlier})"
         return result
-    file_rejects: list[Reject] = []
-    # Staging writes only temporary tables, so it runs before the transaction: a fast-path parse
-    # error must not abort the file's transaction.
-    staged = None
-    if longest_line <= rules.max_line_bytes:
-        staged = st.stage_jsonl_fast(
-            path, cfg.fields, rules.ts_format, rules.max_line_bytes, rules.earliest_us, rules.latest_us
-        )
+    if staged is not None and longest_line > rules.max_line_bytes:
+        st.drop_staged()
+        staged = None
     if staged is None:
         result.path_taken = "precise"
         table = _precise_records(path, display, rules, result, file_rejects)

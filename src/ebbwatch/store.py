@@ -42,7 +42,9 @@ MIGRATIONS: dict[int, list[str]] = {
                events BIGINT NOT NULL, users BIGINT)""",
         """CREATE TABLE user_daily (account VARCHAR NOT NULL, day DATE NOT NULL,
                event VARCHAR NOT NULL, "user" VARCHAR NOT NULL, events BIGINT NOT NULL)""",
-        "CREATE TABLE seen_ids (id VARCHAR NOT NULL, ts TIMESTAMPTZ NOT NULL)",
+        # Event ids within the dedupe window, by 64-bit hash: for 60 million ids in a window the
+        # expected number of colliding pairs is about 1e-4 (n^2 / 2^65).
+        "CREATE TABLE seen_ids (id_hash UBIGINT NOT NULL, ts TIMESTAMPTZ NOT NULL)",
         """CREATE TABLE ingest_log (file VARCHAR, sha256 VARCHAR, ingested_at TIMESTAMPTZ,
                lines BIGINT, ingested BIGINT, duplicates BIGINT, rejected BIGINT,
                unattributed BIGINT, path_taken VARCHAR, first_day DATE, last_day DATE)""",
@@ -156,68 +158,82 @@ class Store:
                          earliest_us: int, latest_us: int) -> int | None:
         """Parse a JSON-lines file with DuckDB's native reader into the temp table ``staged``.
 
-        Returns the number of events staged, or ``None`` when any line is one the fast path is
-        not sure of (bad JSON, a wrong type, an unusual timestamp, an out-of-range time, a line over
-        the size limit): the caller then sends the whole file through the precise path.
+        One pass converts every row and flags the ones the fast path is not sure of (a wrong
+        type, an unusual timestamp, an out-of-range time); a parse error or any flagged row
+        returns ``None``, and the caller sends the whole file through the precise path.  Lines
+        over the size limit are caught by the caller (DuckDB's reader does not enforce it).
+        Returns the number of events staged.
         """
         names = [fields.ts, fields.event, fields.user, fields.account, fields.id]
         spec = ", ".join(f"{quote_literal(n)}: 'JSON'" for n in dict.fromkeys(names))
         ts, ev, us, ac, idc = (quote_ident(n) for n in names)
-        try:
-            self.con.execute(
-                f"""CREATE OR REPLACE TEMP TABLE raw_lines AS
-                SELECT {ts} AS ts, {ev} AS event, {us} AS u, {ac} AS account, {idc} AS id
-                FROM read_json(?, format='newline_delimited', columns={{{spec}}},
-                               maximum_object_size=?)""",
-                [path, max(int(max_line_bytes), 1)],
-            )
-        except duckdb.Error:
-            return None
-        numeric_ok = "json_type(ts) IN ('UBIGINT', 'BIGINT', 'DOUBLE')"
-        string_ok = f"json_type(ts) = 'VARCHAR' AND regexp_full_match(ts ->> '$', {quote_literal(FAST_TS_PATTERN)})"
+        # JSON values are typed by their first character (cheaper than json_type) and strings
+        # without escapes are unquoted by slicing (cheaper than ->>); other strings use ->>.
+        def text(col):
+            return f"CAST({col} AS VARCHAR)"
+
+        def unquote(col):
+            return (f"CASE WHEN NOT contains({text(col)}, '\\') THEN {text(col)}[2:-2] "
+                    f"ELSE {col} ->> '$' END")
+
+        def is_string(col):
+            return f"{text(col)}[1] = '\"'"
+
+        def is_integer(col):
+            return f"regexp_full_match({text(col)}, '-?[0-9]{{1,19}}')"
+
+        def id_ok(col):
+            return f"(CASE WHEN {is_string(col)} THEN true ELSE {is_integer(col)} END)"
+
+        def is_number(col):
+            return f"regexp_full_match({text(col)}, '-?[0-9]+(\\.[0-9]+)?([eE][-+]?[0-9]+)?')"
+
+        def identifier(col):
+            return f"CASE WHEN {is_string(col)} THEN {unquote(col)} ELSE {text(col)} END"
+
+        string_ok = f"{is_string(ts)} AND regexp_full_match({unquote(ts)}, {quote_literal(FAST_TS_PATTERN)})"
         if ts_format == "rfc3339":
             ts_ok = string_ok
         elif ts_format in ("epoch_s", "epoch_ms"):
-            ts_ok = numeric_ok
+            ts_ok = is_number(ts)
         else:
-            ts_ok = f"(({string_ok}) OR ({numeric_ok}))"
-        id_types = "('VARCHAR', 'UBIGINT', 'BIGINT')"
-        bad = self.con.execute(
-            f"""SELECT count(*) FROM raw_lines WHERE NOT (
-                ts IS NOT NULL AND {ts_ok}
-                AND json_type(event) = 'VARCHAR' AND (event ->> '$') <> ''
-                AND u IS NOT NULL AND json_type(u) IN {id_types} AND (u ->> '$') <> ''
-                AND (account IS NULL OR json_type(account) IN {id_types})
-                AND (id IS NULL OR json_type(id) IN {id_types}))"""
-        ).fetchone()[0]
-        if bad:
-            return None
+            ts_ok = f"(CASE WHEN {is_string(ts)} THEN regexp_full_match({unquote(ts)}, {quote_literal(FAST_TS_PATTERN)}) ELSE {is_number(ts)} END)"
+        as_double = f"TRY_CAST({text(ts)} AS DOUBLE)"
         if ts_format == "epoch_s":
-            numeric_us = "CAST(round(CAST(ts AS DOUBLE) * 1e6) AS BIGINT)"
+            numeric_us = f"CAST(round({as_double} * 1e6) AS BIGINT)"
         elif ts_format == "epoch_ms":
-            numeric_us = "CAST(round(CAST(ts AS DOUBLE) * 1e3) AS BIGINT)"
+            numeric_us = f"CAST(round({as_double} * 1e3) AS BIGINT)"
         else:
-            numeric_us = (
-                "CASE WHEN abs(CAST(ts AS DOUBLE)) < 1e11 THEN CAST(round(CAST(ts AS DOUBLE) * 1e6) AS BIGINT) "
-                "WHEN abs(CAST(ts AS DOUBLE)) < 1e14 THEN CAST(round(CAST(ts AS DOUBLE) * 1e3) AS BIGINT) END"
+            numeric_us = (f"CASE WHEN abs({as_double}) < 1e11 THEN CAST(round({as_double} * 1e6) AS BIGINT) "
+                          f"WHEN abs({as_double}) < 1e14 THEN CAST(round({as_double} * 1e3) AS BIGINT) END")
+        ok = (f"{ts} IS NOT NULL AND {ts_ok} "
+              f"AND {is_string(ev)} AND {text(ev)} <> '\"\"' "
+              f"AND {us} IS NOT NULL AND {id_ok(us)} AND {text(us)} <> '\"\"' "
+              f"AND ({ac} IS NULL OR {id_ok(ac)}) AND ({idc} IS NULL OR {id_ok(idc)})")
+        try:
+            self.con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE staged AS
+                SELECT CASE WHEN NOT COALESCE({ok}, false) THEN NULL
+                            WHEN {is_string(ts)} THEN epoch_us(TRY_CAST({unquote(ts)} AS TIMESTAMPTZ))
+                            ELSE {numeric_us} END AS ts_us,
+                       {unquote(ev)} AS event, {identifier(us)} AS "user",
+                       nullif({identifier(ac)}, '') AS account, nullif({identifier(idc)}, '') AS id
+                FROM read_json(?, format='newline_delimited', columns={{{spec}}})""",
+                [path],
             )
-        self.con.execute(
-            f"""CREATE OR REPLACE TEMP TABLE staged AS
-            SELECT CASE WHEN json_type(ts) = 'VARCHAR' THEN epoch_us(CAST(ts ->> '$' AS TIMESTAMPTZ))
-                        ELSE {numeric_us} END AS ts_us,
-                   event ->> '$' AS event, u ->> '$' AS "user",
-                   nullif(account ->> '$', '') AS account, nullif(id ->> '$', '') AS id,
-                   row_number() OVER () AS line_order
-            FROM raw_lines"""
-        )
-        self.con.execute("DROP TABLE raw_lines")
-        out_of_range = self.con.execute(
-            "SELECT count(*) FROM staged WHERE ts_us IS NULL OR ts_us < ? OR ts_us > ?",
-            [int(earliest_us), int(latest_us)],
-        ).fetchone()[0]
-        if out_of_range:
+        except duckdb.Error:
             return None
-        return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
+        rows, doubtful = self.con.execute(
+            "SELECT count(*), count_if(ts_us IS NULL OR ts_us < ? OR ts_us > ?) FROM staged",
+            [int(earliest_us), int(latest_us)],
+        ).fetchone()
+        if doubtful:
+            self.con.execute("DROP TABLE staged")
+            return None
+        return rows
+
+    def drop_staged(self):
+        self.con.execute("DROP TABLE IF EXISTS staged")
 
     # -- events: precise path ----------------------------------------------------------------
     def stage_records(self, table: pa.Table) -> int:
@@ -226,8 +242,7 @@ class Store:
         try:
             self.con.execute(
                 """CREATE OR REPLACE TEMP TABLE staged AS
-                SELECT ts_us, event, "user", account, id, row_number() OVER () AS line_order
-                FROM incoming_records"""
+                SELECT ts_us, event, "user", account, id FROM incoming_records"""
             )
         finally:
             self.con.unregister("incoming_records")
@@ -237,59 +252,88 @@ class Store:
     def merge_staged(self, dedupe_window_days: int) -> dict:
         """Attribute, dedupe and aggregate the staged events into the daily tables.
 
-        Returns counts: ``ingested``, ``duplicates``, ``unattributed`` (by reason), and the first
-        and last local day touched.
+        The staged table's row order is the file's line order (DuckDB preserves insertion
+        order), so "first delivery wins" means the lowest row number.  Steps with nothing to do
+        (no event without an account, no repeated id, no id seen before, no account time zone)
+        are skipped: they are the common case and the costly part.  Returns counts:
+        ``ingested``, ``duplicates``, ``unattributed`` (by reason), first and last day touched.
         """
         con = self.con
-        con.execute(
-            """CREATE OR REPLACE TEMP TABLE attributed AS
-            SELECT s.ts_us, s.event, s."user", s.id, s.line_order,
-                   COALESCE(s.account, i.account) AS account,
-                   CASE WHEN s.account IS NULL AND i.account IS NULL THEN
-                        CASE WHEN k."user" IS NULL THEN 'unknown_user' ELSE 'no_identity_at_time' END
-                   END AS unattributed
-            FROM staged s
-            LEFT JOIN identities i
-              ON s.account IS NULL AND i."user" = s."user"
-             AND (i.valid_from IS NULL OR s.ts_us >= epoch_us(i.valid_from))
-             AND (i.valid_to IS NULL OR s.ts_us < epoch_us(i.valid_to))
-            LEFT JOIN (SELECT DISTINCT "user" FROM identities) k
-              ON s.account IS NULL AND i.account IS NULL AND k."user" = s."user"
-            QUALIFY row_number() OVER (PARTITION BY s.line_order ORDER BY i.valid_from DESC NULLS LAST) = 1"""
-        )
-        unattributed = dict(
+        without_account, repeated = con.execute(
+            "SELECT count_if(account IS NULL), count(id) - count(DISTINCT hash(id)) FILTER (WHERE id IS NOT NULL) FROM staged"
+        ).fetchone()
+        if repeated:
+            # Only now is the line order needed ("first delivery wins").
+            con.execute("CREATE OR REPLACE TEMP TABLE staged_n AS SELECT *, row_number() OVER () AS line_order FROM staged")
+            con.execute("DROP TABLE staged")
+            base = "staged_n"
+        else:
+            base = "staged"
+        if without_account:
             con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE attributed AS
+                SELECT s.ts_us, s.event, s."user", s.id,{" s.line_order," if repeated else ""}
+                       COALESCE(s.account, i.account) AS account,
+                       CASE WHEN s.account IS NULL AND i.account IS NULL THEN
+                            CASE WHEN k."user" IS NULL THEN 'unknown_user' ELSE 'no_identity_at_time' END
+                       END AS unattributed
+                FROM {base} s
+                LEFT JOIN identities i
+                  ON s.account IS NULL AND i."user" = s."user"
+                 AND (i.valid_from IS NULL OR s.ts_us >= epoch_us(i.valid_from))
+                 AND (i.valid_to IS NULL OR s.ts_us < epoch_us(i.valid_to))
+                LEFT JOIN (SELECT DISTINCT "user" FROM identities) k
+                  ON s.account IS NULL AND i.account IS NULL AND k."user" = s."user"
+                """
+            )
+            con.execute(f"DROP TABLE {base}")
+            unattributed = dict(con.execute(
                 "SELECT unattributed, count(*) FROM attributed WHERE unattributed IS NOT NULL GROUP BY 1"
-            ).fetchall()
-        )
+            ).fetchall())
+            source = "attributed"
+        else:
+            unattributed = {}
+            source = base
         # Dedupe: the first delivery of an id wins, within this file and against ids already seen.
-        con.execute(
-            """CREATE OR REPLACE TEMP TABLE fresh AS
-            SELECT a.* FROM attributed a
-            WHERE a.unattributed IS NULL
-              AND (a.id IS NULL OR NOT EXISTS (SELECT 1 FROM seen_ids s WHERE s.id = a.id))
-            QUALIFY a.id IS NULL OR row_number() OVER (PARTITION BY a.id ORDER BY a.line_order) = 1"""
-        )
-        attributed_count = con.execute(
-            "SELECT count(*) FROM attributed WHERE unattributed IS NULL"
+        # (Repeats were counted by hash: a collision only sends us down this exact path.)
+        conditions = ["unattributed IS NULL"] if without_account else []
+        if repeated:
+            con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE repeat_losers AS
+                SELECT line_order FROM {source} WHERE id IS NOT NULL
+                QUALIFY row_number() OVER (PARTITION BY id ORDER BY line_order) > 1"""
+            )
+            conditions.append("line_order NOT IN (SELECT line_order FROM repeat_losers)")
+        if con.execute("SELECT count(*) FROM (SELECT 1 FROM seen_ids LIMIT 1)").fetchone()[0]:
+            conditions.append("(id IS NULL OR hash(id) NOT IN (SELECT id_hash FROM seen_ids))")
+        where = " AND ".join(conditions) or "true"
+        if conditions:
+            con.execute(f"CREATE OR REPLACE TEMP TABLE fresh AS SELECT * FROM {source} WHERE {where}")
+            fresh = "fresh"
+        else:
+            fresh = source
+        candidates = con.execute(
+            f"SELECT count(*) FROM {source}" + (" WHERE unattributed IS NULL" if without_account else "")
         ).fetchone()[0]
-        fresh_count = con.execute("SELECT count(*) FROM fresh").fetchone()[0]
+        fresh_count = candidates if fresh == source else con.execute(f"SELECT count(*) FROM {fresh}").fetchone()[0]
+        con.execute(f"INSERT INTO seen_ids SELECT hash(id), make_timestamptz(ts_us) FROM {fresh} WHERE id IS NOT NULL")
+        zoned = con.execute("SELECT count(*) FROM accounts WHERE timezone IS NOT NULL").fetchone()[0]
+        if zoned:
+            day = "CAST(timezone(COALESCE(a.timezone, 'UTC'), make_timestamptz(f.ts_us)) AS DATE)"
+            join = "LEFT JOIN accounts a ON a.account = f.account"
+        else:
+            day = "CAST(make_timestamp(f.ts_us) AS DATE)"
+            join = ""
         con.execute(
-            """INSERT INTO seen_ids SELECT id, make_timestamptz(ts_us) FROM fresh WHERE id IS NOT NULL"""
+            f"""CREATE OR REPLACE TEMP TABLE new_user_daily AS
+            SELECT f.account, {day} AS day, f.event, f."user", count(*) AS events
+            FROM {fresh} f {join} GROUP BY ALL"""
         )
-        con.execute(
-            """CREATE OR REPLACE TEMP TABLE new_user_daily AS
-            SELECT f.account,
-                   CAST(timezone(COALESCE(a.timezone, 'UTC'), make_timestamptz(f.ts_us)) AS DATE) AS day,
-                   f.event, f."user", count(*) AS events
-            FROM fresh f LEFT JOIN accounts a ON a.account = f.account
-            GROUP BY ALL"""
-        )
-        con.execute(
-            "CREATE OR REPLACE TEMP TABLE touched AS SELECT DISTINCT account, day FROM new_user_daily"
-        )
-        touched_any = con.execute("SELECT count(*) FROM touched").fetchone()[0] > 0
+        for table in ("staged", "staged_n", "attributed", "repeat_losers", "fresh"):
+            con.execute(f"DROP TABLE IF EXISTS {table}")
+        touched_any = con.execute("SELECT count(*) FROM (SELECT 1 FROM new_user_daily LIMIT 1)").fetchone()[0] > 0
         store_empty = con.execute("SELECT count(*) FROM (SELECT 1 FROM user_daily LIMIT 1)").fetchone()[0] == 0
+        first_day, last_day = con.execute("SELECT min(day), max(day) FROM new_user_daily").fetchone()
         if touched_any and store_empty:
             con.execute("INSERT INTO user_daily SELECT * FROM new_user_daily")
             con.execute(
@@ -297,6 +341,9 @@ class Store:
                 FROM new_user_daily GROUP BY ALL"""
             )
         elif touched_any:
+            con.execute(
+                "CREATE OR REPLACE TEMP TABLE touched AS SELECT DISTINCT account, day FROM new_user_daily"
+            )
             con.execute(
                 """CREATE OR REPLACE TEMP TABLE merged_user_daily AS
                 SELECT account, day, event, "user", sum(events) AS events FROM (
@@ -316,17 +363,16 @@ class Store:
                 FROM merged_user_daily GROUP BY ALL"""
             )
             con.execute("DROP TABLE merged_user_daily")
-        first_day, last_day = con.execute("SELECT min(day), max(day) FROM touched").fetchone()
         # Forget ids older than the dedupe window, measured back from the newest event time seen.
         con.execute(
             """DELETE FROM seen_ids WHERE ts < (SELECT max(ts) FROM seen_ids) - to_days(CAST(? AS INTEGER))""",
             [int(dedupe_window_days)],
         )
-        for table in ("staged", "attributed", "fresh", "new_user_daily", "touched"):
-            con.execute(f"DROP TABLE IF EXISTS {table}")
+        con.execute("DROP TABLE IF EXISTS new_user_daily")
+        con.execute("DROP TABLE IF EXISTS touched")
         return {
             "ingested": fresh_count,
-            "duplicates": attributed_count - fresh_count,
+            "duplicates": candidates - fresh_count,
             "unattributed": unattributed,
             "first_day": first_day,
             "last_day": last_day,
