@@ -461,7 +461,7 @@ class Store:
         self.con.register("event_weights", weights)
         self.con.register("wanted_accounts", wanted)
         try:
-            table = self.con.execute(
+            table = self.con.sql(
                 """SELECT w.account_index, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
                           sum(d.events * e.weight) AS value, sum(d.events) AS events,
                           max(d.users) AS users
@@ -469,15 +469,15 @@ class Store:
                 JOIN event_weights e ON e.event = d.event
                 WHERE d.day BETWEEN ? AND ? AND e.weight > 0
                 GROUP BY ALL""",
-                [start_day, end_day],
+                params=[start_day, end_day],
             ).to_arrow_table()
-            distinct_users = self.con.execute(
+            distinct_users = self.con.sql(
                 """SELECT w.account_index, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day,
                           count(DISTINCT u."user") AS users
                 FROM user_daily u JOIN wanted_accounts w ON w.account = u.account
                 JOIN event_weights e ON e.event = u.event
                 WHERE u.day BETWEEN ? AND ? AND e.weight > 0 GROUP BY ALL""",
-                [start_day, end_day],
+                params=[start_day, end_day],
             ).to_arrow_table()
         finally:
             self.con.unregister("event_weights")

@@ -53,11 +53,15 @@ def read_accounts(path: str) -> pd.DataFrame:
     if dup.any():
         raise InputError(f"{_where(path, dup.idxmax())}: account {out['account'][dup.idxmax()]!r} appears twice")
     for column in ("name", "segment", "timezone"):
-        out[column] = frame[column].str.strip().replace("", None) if column in frame else None
+        if column in frame:
+            values = frame[column].str.strip()
+            out[column] = pd.Series([v if v else None for v in values], index=frame.index, dtype=object)
+        else:
+            out[column] = None
     for column in ("seats", "mrr"):
         out[column] = _numbers(frame, column, path) if column in frame else np.nan
     for i, zone in out["timezone"].items():
-        if zone is None:
+        if not isinstance(zone, str):
             continue
         try:
             ZoneInfo(zone)

@@ -1,0 +1,131 @@
+"""From per-account scores to ranked alerts: multiple-testing control, effect size, budget,
+kinds, severity and the one-line message."""
+
+from __future__ import annotations
+
+from datetime import date, timedelta
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from .frames import ALERT_COLUMNS, ALERT_KINDS
+from .textsafe import plain_text
+
+SCHEMA_VERSION = 1
+EPOCH = date(1970, 1, 1)
+MAX_SEVERITY = 99.0
+
+
+def day_to_date(day: int) -> date:
+    return EPOCH + timedelta(days=int(day))
+
+
+def benjamini_hochberg(p_values) -> np.ndarray:
+    """BH-adjusted p-values (q-values), Benjamini & Hochberg (1995), via scipy."""
+    p = np.asarray(p_values, float)
+    if p.size == 0:
+        return p
+    return stats.false_discovery_control(np.clip(p, 0.0, 1.0), method="bh")
+
+
+def select_alerts(
+    scores: pd.DataFrame,
+    *,
+    as_of: date,
+    names: dict | None = None,
+    window_days: int = 7,
+    fdr: float = 0.01,
+    max_alerts: int | None = 50,
+    min_change_pct: float = 30.0,
+    kinds=None,
+) -> pd.DataFrame:
+    """Alerts for the accounts in ``scores`` (``detect.SCORE_COLUMNS``, the whole fleet).
+
+    Each judged account contributes two p-values (down, up) to one Benjamini–Hochberg family, so
+    the expected share of false alerts among those raised stays at ``fdr`` however large the fleet.
+    An alert also needs a change of at least ``min_change_pct`` (a stop always qualifies), and at
+    most ``max_alerts`` are kept, most severe first.  Returns a frame with ``frames.ALERT_COLUMNS``.
+    """
+    if kinds:
+        unknown = set(kinds) - set(ALERT_KINDS)
+        if unknown:
+            raise ValueError(f"unknown alert kind(s) {', '.join(sorted(unknown))}; expected {', '.join(ALERT_KINDS)}")
+    names = names or {}
+    judged = scores[scores["status"] == "judged"].reset_index(drop=True)
+    n = len(judged)
+    q = benjamini_hochberg(np.concatenate([judged["p_down"].to_numpy(float), judged["p_up"].to_numpy(float)]))
+    q_down, q_up = q[:n], q[n:]
+    change = judged["change_pct"].to_numpy(float)
+    trend = judged["trend_change_pct"].to_numpy(float)
+    kind_down = judged["down_kind"].to_numpy(object)
+    big_drop = (change <= -min_change_pct) | ((kind_down == "slide") & (np.nan_to_num(trend) <= -min_change_pct))
+    effect_down = np.where(kind_down == "stop", True, big_drop)
+    effect_up = change >= min_change_pct
+    down = (q_down <= fdr) & effect_down
+    up = (q_up <= fdr) & effect_up
+    both = down & up
+    down &= ~both | (q_down <= q_up)
+    up &= ~down
+    rows = []
+    for direction, mask, qv, pv in (("down", down, q_down, judged["p_down"].to_numpy(float)),
+                                    ("up", up, q_up, judged["p_up"].to_numpy(float))):
+        for i in np.flatnonzero(mask):
+            r = judged.iloc[i]
+            kind = r["down_kind"] if direction == "down" else "surge"
+            if kinds and kind not in kinds:
+                continue
+            onset = None if r["onset_day"] < 0 else day_to_date(r["onset_day"]).isoformat()
+            severity = float(min(MAX_SEVERITY, -np.log10(max(qv[i], 1e-300))))
+            alert = {
+                "account": r["account"],
+                "name": names.get(r["account"]) or r["account"],
+                "kind": kind,
+                "direction": direction,
+                "as_of": as_of.isoformat(),
+                "severity": round(severity, 2),
+                "p_value": float(pv[i]),
+                "q_value": float(qv[i]),
+                "percentile": round(float(r["percentile"]), 2),
+                "change_pct": round(float(r["change_pct"]), 1) if np.isfinite(r["change_pct"]) else None,
+                "level": round(float(r["level"]), 3),
+                "baseline_level": round(float(r["baseline_level"]), 3) if np.isfinite(r["baseline_level"]) else None,
+                "onset": onset,
+                "baseline": r["model"],
+                "silent_days": int(r["silent_days"]),
+                "trend_change_pct": None if not np.isfinite(r["trend_change_pct"]) else round(float(r["trend_change_pct"]), 1),
+            }
+            alert["message"] = alert_message(alert, window_days)
+            rows.append(alert)
+    columns = list(ALERT_COLUMNS) + ["silent_days", "trend_change_pct"]
+    alerts = pd.DataFrame(rows, columns=columns)
+    if len(alerts):
+        alerts["_abs"] = alerts["change_pct"].abs().fillna(0)
+        alerts = alerts.sort_values(["severity", "_abs", "account"], ascending=[False, False, True]).drop(columns="_abs")
+        if max_alerts is not None:
+            alerts = alerts.head(max_alerts)
+    return alerts.reset_index(drop=True)
+
+
+def alert_message(alert: dict, window_days: int) -> str:
+    """One plain sentence for a chat channel; data values are made safe for plain text."""
+    who = plain_text(alert["name"])
+    if alert["name"] != alert["account"]:
+        who = f"{who} ({plain_text(alert['account'])})"
+    change = alert["change_pct"]
+    since = f" since {alert['onset']}" if alert["onset"] else ""
+    if alert["kind"] == "stop":
+        text = f"{who}: no activity for {alert['silent_days']} days{since}, unusual for this account"
+    elif alert["kind"] == "slide":
+        slid = alert.get("trend_change_pct")
+        amount = f"{abs(change):.0f}%" if change is not None else "steadily"
+        text = f"{who}: activity has slid {amount} below its usual level{since}"
+        if slid is not None:
+            text += f" (trend {slid:+.0f}% over recent weeks)"
+    elif alert["kind"] == "drop":
+        text = f"{who}: activity down {abs(change):.0f}% over the last {window_days} days vs its usual level{since}"
+    else:
+        text = f"{who}: activity up {change:.0f}% over the last {window_days} days vs its usual level{since}"
+    side = "below" if alert["direction"] == "down" else "above"
+    share = alert["percentile"] if side == "below" else 100 - alert["percentile"]
+    return f"{text}; {side} {100 - share:.1f}% of its history (severity {alert['severity']:.1f})."

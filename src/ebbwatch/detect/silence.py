@@ -1,0 +1,42 @@
+"""Silence: days since the last activity, against how often the account is quiet on those days."""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def last_active_column(values) -> np.ndarray:
+    """Column of each account's last day with activity, -1 if none; (A,)."""
+    active = np.isfinite(values) & (np.asarray(values) > 0)
+    n_days = active.shape[1]
+    return np.where(active.any(axis=1), n_days - 1 - active[:, ::-1].argmax(axis=1), -1)
+
+
+def silence(values, reference_end, weekdays, first_seen):
+    """Days of silence and their probability under the account's own quiet days.
+
+    ``values`` (A, D), NaN = masked/missing (masked days neither break nor extend a silence).
+    For each weekday, q = (quiet days + ½) / (days + 1) over the reference history
+    (columns before ``reference_end``); the chance of the current silence is the product of q over
+    its days, as if days were independent.  Returns ``(silent_days (A,), p_silence (A,),
+    last_active (A,) column or -1)``.
+    """
+    values = np.asarray(values, float)
+    n_accounts, n_days = values.shape
+    valid = np.isfinite(values)
+    idx = np.arange(n_days)
+    last_active = last_active_column(values)
+    in_reference = (idx[None, :] < np.asarray(reference_end)[:, None]) & (idx[None, :] >= np.asarray(first_seen)[:, None]) & valid
+    quiet = in_reference & (values == 0)
+    log_q = np.zeros((n_accounts, 7))
+    weekdays = np.asarray(weekdays)
+    for d in range(7):
+        on_day = weekdays == d
+        n = in_reference[:, on_day].sum(axis=1)
+        z = quiet[:, on_day].sum(axis=1)
+        log_q[:, d] = np.log((z + 0.5) / (n + 1.0))
+    after_last = idx[None, :] > last_active[:, None]
+    silent_cols = after_last & valid
+    silent_days = silent_cols.sum(axis=1)
+    log_p = (silent_cols * log_q[:, weekdays]).sum(axis=1)
+    return silent_days, np.exp(log_p), last_active

@@ -1,0 +1,43 @@
+"""Rolling window means and totals, and the reference sets the tail tests compare against."""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def _rolling_sum(matrix, window):
+    csum = np.concatenate([np.zeros((matrix.shape[0], 1)), np.cumsum(matrix, axis=1)], axis=1)
+    return csum[:, window:] - csum[:, :-window]
+
+
+def rolling_window(values, window: int, expected=None, min_valid: int | None = None):
+    """Levels and totals of every ``window``-day window, (A, D − window + 1).
+
+    Column ``j`` covers days ``j … j + window − 1``.  The level is the ratio estimator
+    ``Σ values / Σ expected`` over the window's valid days, where ``expected`` (A, D) is each
+    day's weekday factor (default 1): a quiet weekend day weighs as little as it usually counts,
+    and a masked day drops out of both sums.  The total is the level times the window's usual
+    volume (``Σ expected`` over all its days).  A window with fewer than ``min_valid`` valid days
+    (default half the window, rounded up) is NaN.  Returns ``(levels, totals)``.
+    """
+    values = np.asarray(values, float)
+    expected = np.ones_like(values) if expected is None else np.broadcast_to(expected, values.shape)
+    min_valid = (window + 1) // 2 if min_valid is None else min_valid
+    valid = np.isfinite(values)
+    sums = _rolling_sum(np.where(valid, values, 0.0), window)
+    weights = _rolling_sum(np.where(valid, expected, 0.0), window)
+    full_weights = _rolling_sum(np.asarray(expected, float), window)
+    counts = _rolling_sum(valid.astype(float), window)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        levels = np.where((counts >= min_valid) & (weights > 0), sums / weights, np.nan)
+    return levels, levels * full_weights
+
+
+def reference_mask(n_windows: int, window: int, first_seen, reference_end):
+    """Which windows belong to each account's reference history, (A, n_windows) bool.
+
+    A window is in the reference when it starts on or after the account's first activity and
+    ends before ``reference_end`` (a column index, exclusive).
+    """
+    start = np.arange(n_windows)[None, :]
+    return (start >= np.asarray(first_seen)[:, None]) & (start + window <= np.asarray(reference_end)[:, None])

@@ -1,0 +1,103 @@
+"""Trend over recent weeks: Theil–Sen slope (Sen 1968) and the Mann–Kendall test (Mann 1945;
+Kendall 1975), vectorised over accounts.  Applied to weekly means, not days, because daily
+autocorrelation inflates the test's significance (Hamed & Rao 1998)."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+
+def _pairs(n: int):
+    i, j = np.triu_indices(n, k=1)
+    return i, j
+
+
+def mann_kendall(y):
+    """Mann–Kendall S, Var(S) (with the tie correction) and z per row of ``y`` (A, n).
+
+    Rows must be complete (no NaN).  z uses the continuity correction ``(S ∓ 1) / sqrt(Var S)``.
+    """
+    y = np.asarray(y, float)
+    n = y.shape[1]
+    i, j = _pairs(n)
+    s = np.sign(y[:, j] - y[:, i]).sum(axis=1)
+    var = np.full(y.shape[0], n * (n - 1) * (2 * n + 5) / 18.0)
+    # Tie correction: subtract sum over tie groups t·(t−1)·(2t+5)/18.
+    ordered = np.sort(y, axis=1)
+    run_start = np.concatenate([np.ones((y.shape[0], 1), bool), ordered[:, 1:] != ordered[:, :-1]], axis=1)
+    group = np.cumsum(run_start, axis=1)
+    for row in np.flatnonzero(~run_start.all(axis=1)):
+        t = np.bincount(group[row])
+        t = t[t > 1]
+        var[row] -= (t * (t - 1) * (2 * t + 5)).sum() / 18.0
+    sd = np.sqrt(np.maximum(var, 1e-12))
+    z = np.where(s > 0, (s - 1) / sd, np.where(s < 0, (s + 1) / sd, 0.0))
+    return s, var, z
+
+
+def theil_sen(y):
+    """Theil–Sen slope and intercept per row of ``y`` (A, n) against x = 0 … n−1."""
+    y = np.asarray(y, float)
+    n = y.shape[1]
+    i, j = _pairs(n)
+    slopes = (y[:, j] - y[:, i]) / (j - i)
+    slope = np.median(slopes, axis=1)
+    intercept = np.median(y - slope[:, None] * np.arange(n)[None, :], axis=1)
+    return slope, intercept
+
+
+def trend_test(weekly):
+    """One-sided Mann–Kendall p-values and the Theil–Sen relative change over the span.
+
+    ``weekly`` (A, n) weekly means, complete rows.  Returns ``(p_down, p_up, relative_change)``
+    where relative_change = (fitted last − fitted first) / fitted first (NaN if first <= 0).
+    """
+    _, _, z = mann_kendall(weekly)
+    slope, intercept = theil_sen(weekly)
+    n = weekly.shape[1]
+    first = intercept
+    last = intercept + slope * (n - 1)
+    with np.errstate(all="ignore"):
+        relative = np.where(first > 0, (last - first) / first, np.nan)
+    return stats.norm.cdf(z), stats.norm.sf(z), relative
+
+
+def _single_regressor_sse(y, x):
+    """Residual sum of squares of y ~ a + b·x for each row of y (A, L) and each row of x (K, L)."""
+    yc = y - y.mean(axis=1, keepdims=True)
+    xc = x - x.mean(axis=1, keepdims=True)
+    sxx = (xc**2).sum(axis=1)  # (K,)
+    sxy = yc @ xc.T  # (A, K)
+    syy = (yc**2).sum(axis=1, keepdims=True)
+    with np.errstate(all="ignore"):
+        return syy - np.where(sxx > 0, sxy**2 / np.where(sxx > 0, sxx, 1.0), 0.0)
+
+
+def step_or_ramp(y, earliest: int, *, min_ramp: int = 21, grid: int = 7):
+    """Is the recent change in each row of ``y`` (A, L; no NaN) a step or a ramp?
+
+    Fits two one-change families by least squares: a step at ``k`` and a ramp that runs from
+    ``k1`` to ``k2`` (at least ``min_ramp`` days) and is flat on either side, with ``k``, ``k1``,
+    ``k2`` on a ``grid``-day lattice from ``earliest``.  Returns ``(sse_step, sse_ramp,
+    ramp_start)``, each (A,).
+    """
+    y = np.asarray(y, float)
+    n = y.shape[1]
+    t = np.arange(n)
+    steps = np.arange(max(earliest, 1), n - 1, max(1, grid // 2))
+    step_x = (t[None, :] >= steps[:, None]).astype(float)
+    sse_step = _single_regressor_sse(y, step_x).min(axis=1)
+    starts, ends = [], []
+    for k1 in range(max(earliest, 0), n - min_ramp + 1, grid):
+        for k2 in range(k1 + min_ramp, n + grid, grid):
+            starts.append(k1)
+            ends.append(min(k2, n))
+    if not starts:
+        return sse_step, np.full(y.shape[0], np.inf), np.full(y.shape[0], -1)
+    k1 = np.array(starts)[:, None]
+    k2 = np.array(ends)[:, None]
+    ramp_x = np.clip(t[None, :] - k1, 0, k2 - k1).astype(float)
+    sse = _single_regressor_sse(y, ramp_x)
+    best = sse.argmin(axis=1)
+    return sse_step, sse[np.arange(y.shape[0]), best], np.array(starts)[best]

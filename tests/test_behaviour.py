@@ -1,0 +1,139 @@
+"""Behaviour of the whole judgement (series → baseline → detect → alerts) on constructed fleets."""
+
+from datetime import date, timedelta
+
+import numpy as np
+import pytest
+
+from ebbwatch.alerts import select_alerts
+from ebbwatch.datasets import make_fleet
+from ebbwatch.detect import ScanParams, score_panel
+from ebbwatch.series import build_panel, fleet_factor
+
+AS_OF = date(2026, 3, 31)
+
+
+def judge(totals: np.ndarray, as_of: date = AS_OF, **kw):
+    """Scores and alerts for an (A, D) matrix of daily counts ending at ``as_of``."""
+    n_accounts, n_days = totals.shape
+    end = (as_of - date(1970, 1, 1)).days
+    start = end - n_days + 1
+    a, d = np.nonzero(totals)
+    factor, masked = fleet_factor(totals.astype(float))
+    ids = [f"a{i}" for i in range(n_accounts)]
+    panel = build_panel(a, start + d, totals[a, d], totals[a, d], totals[a, d], accounts=ids,
+                        start_day=start, end_day=end, fleet_factor=factor, masked=masked)
+    scores = score_panel(panel, ScanParams())
+    return scores.set_index("account"), select_alerts(scores, as_of=as_of, max_alerts=None, **kw)
+
+
+def quiet_fleet(n=80, seed=0, **kw):
+    fleet = make_fleet(n, 365, as_of=AS_OF, seed=seed, share_changed=0.0, **kw)
+    return fleet, fleet.counts.sum(axis=2)
+
+
+def steady_account(rng, n_days=365, level=80.0, shape=(1.1, 1.2, 1.2, 1.15, 1.0, 0.2, 0.15)):
+    start_weekday = (AS_OF - timedelta(days=n_days - 1)).weekday()
+    w = np.array(shape) / np.mean(shape)
+    expected = level * w[(start_weekday + np.arange(n_days)) % 7]
+    return rng.poisson(expected).astype(float), expected
+
+
+def test_sudden_drop_four_days_ago_is_a_drop_with_its_onset():
+    rng = np.random.default_rng(1)
+    fleet, totals = quiet_fleet()
+    series, expected = steady_account(rng)
+    series[-4:] = rng.poisson(expected[-4:] * 0.3)
+    totals = np.vstack([totals, series[None, :]])
+    scores, alerts = judge(totals)
+    row = alerts.set_index("account").loc[f"a{len(totals) - 1}"]
+    assert row["kind"] == "drop" and row["direction"] == "down"
+    assert row["onset"] in {(AS_OF - timedelta(days=k)).isoformat() for k in (3, 4, 5)}
+
+
+def test_two_peaked_account_between_its_peaks_is_quiet_and_below_both_is_a_drop():
+    rng = np.random.default_rng(2)
+    fleet, totals = quiet_fleet()
+    n_days = totals.shape[1]
+    # Alternating plateaus of 7 weeks at 40 and 120 events a day.
+    plateau = np.where((np.arange(n_days) // 49) % 2 == 0, 40.0, 120.0)
+    between = rng.poisson(plateau).astype(float)
+    between[-7:] = rng.poisson(70.0, 7)          # between the peaks this week
+    below = rng.poisson(plateau).astype(float)
+    below[-10:] = rng.poisson(8.0, 10)            # below both peaks
+    totals = np.vstack([totals, between[None, :], below[None, :]])
+    scores, alerts = judge(totals)
+    flagged = set(alerts["account"])
+    between_id, below_id = f"a{len(totals) - 2}", f"a{len(totals) - 1}"
+    assert between_id not in flagged
+    assert below_id in flagged
+    assert alerts.set_index("account").loc[below_id, "kind"] == "drop"
+
+
+def test_fleet_wide_holiday_raises_nothing():
+    """The same fleet with and without a two-week fleet-wide dip to 60%: the same alerts."""
+    _, plain = quiet_fleet(n=120, seed=3, holiday=False, gap=False)
+    _, dipped = quiet_fleet(n=120, seed=3, holiday=True, gap=False)
+    _, alerts_plain = judge(plain)
+    _, alerts_dipped = judge(dipped)
+    assert set(alerts_dipped["account"]) <= set(alerts_plain["account"])
+
+
+def test_one_day_data_gap_raises_nothing_and_is_masked():
+    _, plain = quiet_fleet(n=120, seed=4, holiday=False, gap=False)
+    gapped = plain.copy()
+    gapped[:, -2] = np.floor(gapped[:, -2] * 0.02)
+    scores, alerts = judge(gapped)
+    _, alerts_plain = judge(plain)
+    assert set(alerts["account"]) <= set(alerts_plain["account"])
+    factor, masked = fleet_factor(gapped.astype(float))
+    assert np.flatnonzero(masked).tolist() == [gapped.shape[1] - 2]
+
+
+def test_small_account_empty_week_raises_nothing():
+    rng = np.random.default_rng(5)
+    _, totals = quiet_fleet()
+    small = rng.poisson(1.2, 365).astype(float)  # a few events a day, many empty days
+    small[-7:] = 0
+    totals = np.vstack([totals, small[None, :]])
+    scores, alerts = judge(totals)
+    small_id = f"a{len(totals) - 1}"
+    assert small_id not in set(alerts["account"])
+    assert scores.loc[small_id, "model"] == "negbin"
+
+
+def test_stop_slide_and_surge_are_named_as_such():
+    rng = np.random.default_rng(6)
+    _, totals = quiet_fleet()
+    stop, e = steady_account(rng)
+    stop[-9:] = 0
+    slide, e = steady_account(rng)
+    ramp = np.clip((np.arange(365) - (365 - 56)) / 56, 0, 1)
+    slide = rng.poisson(e * (1 - 0.65 * ramp)).astype(float)
+    surge, e = steady_account(rng)
+    surge[-12:] = rng.poisson(e[-12:] * 3)
+    totals = np.vstack([totals, stop, slide, surge])
+    _, alerts = judge(totals)
+    kinds = alerts.set_index("account")["kind"]
+    n = len(totals)
+    assert (kinds.get(f"a{n - 3}"), kinds.get(f"a{n - 2}"), kinds.get(f"a{n - 1}")) == ("stop", "slide", "surge")
+
+
+def test_short_history_is_listed_never_alerted():
+    rng = np.random.default_rng(7)
+    _, totals = quiet_fleet()
+    newcomer = np.zeros(365)
+    newcomer[-30:] = rng.poisson(50, 30)
+    newcomer[-3:] = 0
+    totals = np.vstack([totals, newcomer])
+    scores, alerts = judge(totals)
+    newcomer_id = f"a{len(totals) - 1}"
+    assert scores.loc[newcomer_id, "status"] == "not_enough_history"
+    assert newcomer_id not in set(alerts["account"])
+
+
+def test_false_alerts_do_not_grow_with_the_fleet():
+    """Benjamini–Hochberg: a quiet fleet four times larger does not raise four times more alerts."""
+    _, small = quiet_fleet(n=100, seed=8)
+    _, large = quiet_fleet(n=400, seed=8)
+    assert len(judge(large)[1]) <= max(2, len(judge(small)[1]) * 2)

@@ -1,0 +1,139 @@
+"""The maths checked against outside references; each check names its source."""
+
+import numpy as np
+import pytest
+import ruptures as rpt
+from ruptures.metrics import hausdorff, precision_recall
+from scipy import stats
+
+from ebbwatch.alerts import benjamini_hochberg
+from ebbwatch.baseline import LevelDistribution, nbinom_mid_p
+from ebbwatch.baseline.mixture import fit_two_gaussians
+from ebbwatch.detect.changepoint import ChangepointSearch, cusum_split
+from ebbwatch.detect.trend import mann_kendall, theil_sen
+
+
+def test_lognormal_tails_match_scipy_lognorm():
+    """Reference: scipy.stats.lognorm with the same shape and scale."""
+    rng = np.random.default_rng(1)
+    sample = rng.lognormal(3.0, 0.4, size=(3, 300))
+    model = LevelDistribution(model="lognormal", window=1).fit(sample)
+    level = np.array([5.0, 20.0, 60.0])
+    low, high = model.parametric_tails(level)
+    ref = stats.lognorm(s=model.sigma_, scale=np.exp(model.mu_))
+    np.testing.assert_allclose(low, ref.cdf(level + model.offset_), rtol=1e-10)
+    np.testing.assert_allclose(high, ref.sf(level + model.offset_), rtol=1e-10)
+
+
+def test_mixture_tails_match_a_scipy_norm_mixture():
+    """Reference: the weighted sum of scipy.stats.norm CDFs at the fitted parameters."""
+    rng = np.random.default_rng(2)
+    sample = np.exp(np.concatenate([rng.normal(2, 0.1, 200), rng.normal(3.5, 0.1, 200)]))[None, :]
+    model = LevelDistribution(model="mixture", window=1).fit(sample)
+    level = np.array([np.exp(2.7)])
+    low, _ = model.parametric_tails(level)
+    x = np.log(level + model.offset_)[0]
+    ref = sum(w * stats.norm(m, np.sqrt(v)).cdf(x) for w, m, v in
+              zip(model.weights_[0], model.means_[0], model.variances_[0]))
+    assert low[0] == pytest.approx(ref, rel=1e-10)
+    # Between the two peaks the level sits near the lower component's weight: not a tail.
+    assert 0.4 < low[0] < 0.6
+
+
+def test_negative_binomial_mid_p_against_scipy_nbinom():
+    """Reference: scipy.stats.nbinom(n=2, p=2/12) has mean 10, variance 60 and P(0) = 1/36
+    (../shared/METHODS.md, verified there); our parametrisation is mean 10, dispersion 1/2."""
+    ref = stats.nbinom(2, 2 / 12)
+    assert ref.mean() == pytest.approx(10) and ref.var() == pytest.approx(60)
+    low, high = nbinom_mid_p(np.array([0.0, 10.0]), np.array([10.0, 10.0]), np.array([0.5, 0.5]))
+    assert low[0] == pytest.approx(0.5 / 36)
+    assert low[1] == pytest.approx(ref.cdf(9) + 0.5 * ref.pmf(10))
+    assert high[1] == pytest.approx(ref.sf(10) + 0.5 * ref.pmf(10))
+    # Dispersion 0 is Poisson (scipy.stats.poisson).
+    low, _ = nbinom_mid_p(np.array([3.0]), np.array([7.0]), np.array([0.0]))
+    assert low[0] == pytest.approx(stats.poisson(7).cdf(2) + 0.5 * stats.poisson(7).pmf(3))
+
+
+def test_batched_em_matches_scikit_learn_gaussian_mixture():
+    """Reference: sklearn.mixture.GaussianMixture (full EM, tight tolerance), account by account."""
+    from sklearn.mixture import GaussianMixture
+
+    rng = np.random.default_rng(3)
+    samples = []
+    for a in range(5):
+        n1, n2 = 150 + 20 * a, 250 - 20 * a
+        samples.append(np.concatenate([rng.normal(-1 - a * 0.3, 0.5, n1), rng.normal(2 + a * 0.2, 0.8, n2)]))
+    x = np.stack(samples)
+    w, m, v, _, _ = fit_two_gaussians(x, max_iter=500, tol=1e-10, var_floor=1e-6, min_weight=0.01)
+    for a in range(5):
+        gm = GaussianMixture(2, tol=1e-10, max_iter=1000, random_state=0, reg_covar=1e-6).fit(x[a][:, None])
+        order = np.argsort(gm.means_[:, 0])
+        np.testing.assert_allclose(w[a], gm.weights_[order], atol=5e-3)
+        np.testing.assert_allclose(m[a], gm.means_[order, 0], atol=5e-3)
+        np.testing.assert_allclose(v[a], gm.covariances_[order, 0, 0], rtol=1e-2)
+
+
+def test_bic_prefers_two_components_for_two_separated_groups():
+    """Reference: ../shared/METHODS.md (checked with scikit-learn): on 300 N(0,1) + 300 N(8,1)
+    BIC is lowest at k = 2.  One group alone prefers one component."""
+    rng = np.random.default_rng(4)
+    two = np.exp(np.concatenate([rng.normal(0, 1, 300), rng.normal(8, 1, 300)]))
+    one = np.exp(rng.normal(0, 1, 600))
+    model = LevelDistribution(model="auto", window=1, offset_share=1e-9, var_floor=1e-6).fit(np.stack([two, one]))
+    assert list(model.model_) == ["mixture", "lognormal"]
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_changepoints_on_ruptures_pw_constant(seed):
+    """Reference: ruptures.pw_constant signals and ruptures.metrics (margin 5)."""
+    signal, truth = rpt.pw_constant(300, 1, 3, noise_std=1.0, seed=seed)
+    found = ChangepointSearch().fit(signal.T).breakpoints_[0]
+    precision, recall = precision_recall(truth, found, margin=5)
+    assert (precision, recall) == (1.0, 1.0)
+    assert hausdorff(truth, found) <= 5
+
+
+def test_nile_change_after_1898():
+    """Reference: statsmodels.datasets.nile; Cobb (1978) places the change near 1898, the new
+    level starting in 1899 (index 28)."""
+    from statsmodels.datasets import nile
+
+    data = nile.load_pandas().data
+    found = ChangepointSearch().fit(data["volume"].to_numpy()[None, :]).breakpoints_[0]
+    assert len(found) == 2  # one change, then the end
+    assert int(data["year"].iloc[found[0]]) == 1899
+
+
+def test_cusum_split_finds_a_step():
+    rng = np.random.default_rng(5)
+    y = np.concatenate([rng.normal(0, 1, 80), rng.normal(-3, 1, 20)])[None, :]
+    k, stat = cusum_split(y, 1, 98, np.array([1.0]))
+    assert abs(k[0] - 80) <= 2 and stat[0] < -8
+
+
+def test_mann_kendall_reference_values():
+    """Reference: for 20 strictly increasing values S = 190, Var(S) = 20·19·45/18 = 950 and
+    z = (S − 1)/√Var = 6.132 (Mann 1945 / Kendall 1975 formulas; ../shared/METHODS.md)."""
+    s, var, z = mann_kendall(np.arange(20.0)[None, :])
+    assert (s[0], var[0]) == (190, 950)
+    assert z[0] == pytest.approx(6.132, abs=1e-3)
+
+
+def test_theil_sen_matches_scipy_theilslopes():
+    """Reference: scipy.stats.theilslopes (Sen 1968)."""
+    rng = np.random.default_rng(6)
+    y = rng.normal(size=(4, 12)).cumsum(axis=1)
+    slope, intercept = theil_sen(y)
+    for row in range(4):
+        ref = stats.theilslopes(y[row], np.arange(12), method="joint")  # intercept = median(y − b·x)
+        assert slope[row] == pytest.approx(ref.slope)
+        assert intercept[row] == pytest.approx(ref.intercept)
+
+
+def test_benjamini_hochberg_published_example():
+    """Reference: Benjamini & Hochberg (1995)'s 15 p-values, as in the docstring of
+    scipy.stats.false_discovery_control: BH rejects 4 at q = 0.05, Bonferroni 3."""
+    p = np.array([0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459,
+                  0.3240, 0.4262, 0.5719, 0.6528, 0.7590, 1.000])
+    assert (benjamini_hochberg(p) <= 0.05).sum() == 4
+    assert (p * p.size <= 0.05).sum() == 3

@@ -1,0 +1,100 @@
+"""The scan end to end: daily input → store → scan, through the API and the CLI."""
+
+import json
+
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+import ebbwatch
+from ebbwatch.cli import main
+from ebbwatch.datasets import make_fleet
+from ebbwatch.frames import ALERT_COLUMNS
+
+REQUIRED = ("account", "name", "kind", "direction", "as_of", "severity", "p_value", "percentile",
+            "change_pct", "onset", "baseline", "message")
+
+
+@pytest.fixture(scope="module")
+def fleet_store(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("scan")
+    fleet = make_fleet(120, 240, seed=21, share_changed=0.25)
+    daily = tmp / "daily.parquet"
+    fleet.daily_frame().to_parquet(daily)
+    accounts = tmp / "accounts.csv"
+    fleet.accounts.to_csv(accounts, index=False)
+    db = str(tmp / "s.duckdb")
+    ebbwatch.ingest_files([], db=db, daily=str(daily), accounts=str(accounts))
+    return fleet, db
+
+
+def test_api_scan_returns_ranked_dataframe(fleet_store):
+    fleet, db = fleet_store
+    alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
+    assert isinstance(alerts, pd.DataFrame)
+    assert list(alerts.columns[: len(ALERT_COLUMNS)]) == list(ALERT_COLUMNS)
+    assert alerts["severity"].is_monotonic_decreasing
+    truth = fleet.truth.set_index("account")
+    changed = set(truth.index[truth["kind"] != "quiet"])
+    found = set(alerts["account"])
+    assert len(found & changed) >= 0.8 * len(changed)
+    assert len(found - changed) <= 3
+    summary = alerts.attrs["summary"]
+    assert summary["as_of"] == fleet.as_of.isoformat() and summary["accounts"] == 120
+    assert summary["masked_days"] == [fleet.gap_day.isoformat()]
+
+
+def test_default_as_of_is_the_last_complete_day(fleet_store):
+    fleet, db = fleet_store
+    alerts = ebbwatch.scan(db=db, max_alerts=5)
+    assert alerts.attrs["summary"]["as_of"] == fleet.as_of.isoformat()
+
+
+def test_cli_jsonl_has_the_documented_keys_and_one_line_messages(fleet_store):
+    fleet, db = fleet_store
+    result = CliRunner().invoke(main, ["scan", "--db", db, "--format", "jsonl", "--max-alerts", "7"])
+    assert result.exit_code == 0, result.stderr
+    lines = result.stdout.splitlines()
+    assert len(lines) == 7
+    for line in lines:
+        record = json.loads(line)
+        assert all(k in record for k in REQUIRED) and record["schema"] == 1
+        assert "\n" not in record["message"] and record["message"].endswith(".")
+    assert result.stderr == ""  # no terminal: no progress, and the summary line is for tables only
+
+
+def test_cli_table_kind_filter_and_fail_on_alert(fleet_store):
+    fleet, db = fleet_store
+    runner = CliRunner()
+    table = runner.invoke(main, ["scan", "--db", db, "--kind", "surge"])
+    assert table.exit_code == 0
+    body = table.stdout.splitlines()
+    assert body[0].split()[:3] == ["account", "name", "kind"]
+    assert all(" surge " in line for line in body[2:])
+    assert "accounts judged" in table.stderr
+    assert runner.invoke(main, ["scan", "--db", db, "--fail-on-alert"]).exit_code == 1
+    assert runner.invoke(main, ["scan", "--db", db, "--fail-on-alert", "--max-alerts", "0"]).exit_code == 0
+
+
+@pytest.mark.parametrize("fmt", ["csv", "markdown", "json"])
+def test_cli_other_formats(fleet_store, fmt):
+    fleet, db = fleet_store
+    result = CliRunner().invoke(main, ["scan", "--db", db, "--format", fmt, "--max-alerts", "3"])
+    assert result.exit_code == 0
+    if fmt == "csv":
+        assert result.stdout.splitlines()[0].startswith("schema,account,name,kind")
+        assert len(result.stdout.splitlines()) == 4
+    elif fmt == "json":
+        doc = json.loads(result.stdout)
+        assert len(doc["alerts"]) == 3 and doc["summary"]["judged"] > 0
+    else:
+        assert result.stdout.startswith("| account | name | kind")
+
+
+def test_cli_errors_map_to_exit_codes(tmp_path, fleet_store):
+    fleet, db = fleet_store
+    runner = CliRunner()
+    assert runner.invoke(main, ["scan", "--db", db, "--as-of", "last tuesday"]).exit_code == 2
+    assert runner.invoke(main, ["scan", "--db", db, "--kind", "wobble"]).exit_code == 2
+    missing = runner.invoke(main, ["scan", "--db", str(tmp_path / "none.duckdb")])
+    assert missing.exit_code == 3 and "no store" in missing.stderr
