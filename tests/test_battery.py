@@ -16,7 +16,7 @@ WINDOWS = RNG.lognormal(3, 0.3, size=(6, 120))
 
 CASES = [
     (WeekdayProfile(), lambda m, x: m.fit(x, 0), DAILY, ["factors_", "weeks_"]),
-    (LevelDistribution(), lambda m, x: m.fit(x), WINDOWS, ["mu_", "sigma_", "weights_", "means_", "variances_", "bic_", "model_"]),
+    (LevelDistribution(), lambda m, x: m.fit(x), WINDOWS, ["mu_", "sigma_", "weights_", "means_", "variances_", "bic_", "model_", "median_"]),
     (WindowCountModel(), lambda m, x: m.fit(x), DAILY[:, :100] * 7, ["mean_", "dispersion_"]),
     (ChangepointSearch(), lambda m, x: m.fit(x), np.log(DAILY + 1), ["sigma_"]),
 ]

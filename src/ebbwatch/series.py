@@ -31,6 +31,25 @@ def quiet_nanmedian(array, axis):
         return np.nanmedian(array, axis=axis)
 
 
+def fast_nanmedian_rows(array) -> np.ndarray:
+    """Row medians of a 2-d array ignoring NaN, by partition instead of ``np.nanmedian``.
+
+    NaNs are replaced by alternately +inf and -inf, which leaves the median of the rest in
+    place when a row's NaN count is even and moves it by half a rank when odd: good enough for
+    noise scales and typical levels, about 10x faster.  All-NaN rows give NaN.
+    """
+    array = np.asarray(array, float)
+    missing = np.isnan(array)
+    if not missing.any():
+        return np.median(array, axis=1)
+    rank = np.cumsum(missing, axis=1)
+    filled = np.where(missing, np.where(rank % 2 == 0, np.inf, -np.inf), array)
+    with np.errstate(invalid="ignore"):
+        out = np.median(filled, axis=1)
+    out[missing.all(axis=1) | ~np.isfinite(out)] = np.nan
+    return out
+
+
 def quiet_nanmean(array, axis):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
@@ -128,12 +147,20 @@ def build_panel(
 
 
 def _same_weekday_reference(matrix: np.ndarray, weeks: int = FLEET_LOOKBACK_WEEKS) -> np.ndarray:
-    """Median of the same weekday over the previous ``weeks`` weeks, (A, D); NaN where unknown."""
+    """Median of the same weekday over the previous ``weeks`` weeks, (A, D); NaN where unknown.
+
+    A median of a handful of values by sorting along the short axis (NaN sort last), much
+    faster than ``np.nanmedian`` on (weeks, A, D).
+    """
     n_days = matrix.shape[1]
     lagged = np.full((weeks,) + matrix.shape, np.nan)
     for k in range(1, weeks + 1):
         lagged[k - 1, :, 7 * k:] = matrix[:, : n_days - 7 * k]
-    return quiet_nanmedian(lagged, axis=0)
+    lagged.sort(axis=0)
+    count = np.isfinite(lagged).sum(axis=0)
+    lo = np.take_along_axis(lagged, np.maximum((count - 1) // 2, 0)[None], axis=0)[0]
+    hi = np.take_along_axis(lagged, np.maximum(count // 2, 0)[None], axis=0)[0]
+    return np.where(count > 0, 0.5 * (lo + hi), np.nan)
 
 
 def shorth_location(votes: np.ndarray, coverage: float = 0.6) -> np.ndarray:

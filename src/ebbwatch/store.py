@@ -457,42 +457,44 @@ class Store:
         account-day's distinct users (the largest per-event count where only daily input exists).
         """
         weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
+        # The account range lets DuckDB skip row groups when a chunk is a sorted slice of accounts.
+        lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
         wanted = pd.DataFrame({"account": accounts, "account_index": np.arange(len(accounts), dtype=np.int64)})
         self.con.register("event_weights", weights)
         self.con.register("wanted_accounts", wanted)
         try:
             table = self.con.sql(
                 """SELECT w.account_index, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
-                          sum(d.events * e.weight) AS value, sum(d.events) AS events,
-                          max(d.users) AS users
+                          sum(d.events * e.weight) AS value, CAST(sum(d.events) AS DOUBLE) AS events,
+                          CAST(COALESCE(max(d.users), 0) AS DOUBLE) AS users
                 FROM daily d JOIN wanted_accounts w ON w.account = d.account
                 JOIN event_weights e ON e.event = d.event
-                WHERE d.day BETWEEN ? AND ? AND e.weight > 0
+                WHERE d.day BETWEEN ? AND ? AND e.weight > 0 AND d.account BETWEEN ? AND ?
                 GROUP BY ALL""",
-                params=[start_day, end_day],
-            ).to_arrow_table()
+                params=[start_day, end_day, lo, hi],
+            ).fetchnumpy()
             distinct_users = self.con.sql(
                 """SELECT w.account_index, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day,
                           count(DISTINCT u."user") AS users
                 FROM user_daily u JOIN wanted_accounts w ON w.account = u.account
                 JOIN event_weights e ON e.event = u.event
-                WHERE u.day BETWEEN ? AND ? AND e.weight > 0 GROUP BY ALL""",
-                params=[start_day, end_day],
-            ).to_arrow_table()
+                WHERE u.day BETWEEN ? AND ? AND e.weight > 0 AND u.account BETWEEN ? AND ? GROUP BY ALL""",
+                params=[start_day, end_day, lo, hi],
+            ).fetchnumpy()
         finally:
             self.con.unregister("event_weights")
             self.con.unregister("wanted_accounts")
-        cols = {name: table.column(name).to_numpy() for name in table.column_names}
-        users = np.nan_to_num(cols["users"].astype(np.float64))
-        if distinct_users.num_rows:
+        cols = {name: np.asarray(values) for name, values in table.items()}
+        users = cols["users"].astype(np.float64)
+        if len(distinct_users["users"]):
             key = cols["account_index"].astype(np.int64) * 1_000_000 + cols["day"]
-            ukey = distinct_users.column("account_index").to_numpy().astype(np.int64) * 1_000_000 + distinct_users.column("day").to_numpy()
+            ukey = np.asarray(distinct_users["account_index"]).astype(np.int64) * 1_000_000 + np.asarray(distinct_users["day"])
             order = np.argsort(key)
             pos = np.searchsorted(key[order], ukey)
             ok = pos < len(key)
             pos = pos[ok]
             match = key[order][pos] == ukey[ok]
-            users[order[pos[match]]] = distinct_users.column("users").to_numpy()[ok][match]
+            users[order[pos[match]]] = np.asarray(distinct_users["users"])[ok][match]
         return (
             cols["account_index"].astype(np.int64),
             cols["day"].astype(np.int64),

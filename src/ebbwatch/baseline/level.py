@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from ..series import quiet_nanmean, quiet_nanmedian
+from ..series import fast_nanmedian_rows, quiet_nanmean
 from ._base import Estimator, check_matrix
 from .mixture import bic, fit_normal, fit_two_gaussians
 
@@ -36,28 +36,31 @@ class LevelDistribution(Estimator):
         Smallest mixture weight.
     """
 
-    _parameters = ("model", "window", "offset_share", "screen_p", "var_floor", "min_weight")
+    _parameters = ("model", "window", "offset_share", "screen_p", "var_floor", "min_weight", "max_iter")
 
     def __init__(self, model: str = "auto", window: int = 7, offset_share: float = 0.05,
-                 screen_p: float = 0.05, var_floor: float = 0.003, min_weight: float = 0.1):
+                 screen_p: float = 0.01, var_floor: float = 0.003, min_weight: float = 0.1,
+                 max_iter: int = 25):
         self.model = model
         self.window = window
         self.offset_share = offset_share
         self.screen_p = screen_p
         self.var_floor = var_floor
         self.min_weight = min_weight
+        self.max_iter = max_iter
 
     def fit(self, sample, current=None):
         """Fit to ``sample`` (A, N).  ``current`` (A,), the level to be judged, lets ``auto``
         restrict the mixture to accounts where it matters; without it every account is fitted."""
         if self.model not in LEVEL_MODELS:
             raise ValueError(f"unknown level model {self.model!r}; expected one of {', '.join(LEVEL_MODELS)}")
-        if self.window < 1 or self.offset_share <= 0:
-            raise ValueError("window must be >= 1 and offset_share > 0")
+        if self.window < 1 or self.offset_share <= 0 or self.max_iter < 1:
+            raise ValueError("window and max_iter must be >= 1 and offset_share > 0")
         sample = check_matrix(sample, "sample")
         n_accounts = sample.shape[0]
         if sample.shape[1]:
-            median = np.nan_to_num(quiet_nanmedian(sample, axis=1))
+            # Overlapping windows: every ceil(window/2)-th one gives the median as well.
+            median = np.nan_to_num(fast_nanmedian_rows(sample[:, :: max(1, (self.window + 1) // 2)]))
             positive_mean = np.nan_to_num(quiet_nanmean(np.where(sample > 0, sample, np.nan), axis=1))
         else:
             median = positive_mean = np.zeros(n_accounts)
@@ -65,7 +68,8 @@ class LevelDistribution(Estimator):
         self.offset_ = np.maximum(self.offset_share * scale, 1e-9)
         logs = np.log(sample + self.offset_[:, None])
         self.n_ = np.isfinite(sample).sum(axis=1)
-        self.sorted_sample_ = np.sort(np.where(np.isfinite(sample), sample, np.inf), axis=1)
+        self.sample_ = sample  # kept (not copied) for the empirical tail; NaN = not in it
+        self.median_ = np.where(self.n_ > 0, median, np.nan)
         mean, var, loglik1 = fit_normal(logs, self.var_floor)
         self.mu_, self.sigma_ = mean, np.sqrt(var)
         n_eff = self.n_ / self.window
@@ -84,8 +88,15 @@ class LevelDistribution(Estimator):
                 lo, hi = self._lognormal_tails(np.asarray(current, float))
                 fit_mix = (np.minimum(lo, hi) < self.screen_p) & (self.n_ >= 4 * self.window)
         if fit_mix.any():
-            w, m, v, ll2, _ = fit_two_gaussians(logs[fit_mix], var_floor=self.var_floor, min_weight=self.min_weight)
+            # Neighbouring windows overlap, so every ceil(window/2)-th one carries nearly all the
+            # information; EM runs on those and the log-likelihood is scaled back up.
+            stride = max(1, (self.window + 1) // 2)
+            thinned = logs[fit_mix][:, ::stride]
+            w, m, v, ll2, _ = fit_two_gaussians(thinned, var_floor=self.var_floor, min_weight=self.min_weight,
+                                                max_iter=self.max_iter, tol=1e-5)
             self.weights_[fit_mix], self.means_[fit_mix], self.variances_[fit_mix] = w, m, v
+            n_thin = np.maximum(np.isfinite(thinned).sum(axis=1), 1)
+            ll2 = ll2 * self.n_[fit_mix] / n_thin
             self.bic_[fit_mix, 1] = bic(ll2 / self.window, 5, n_eff[fit_mix])
         if self.model == "mixture":
             use_mix = fit_mix
@@ -116,10 +127,11 @@ class LevelDistribution(Estimator):
     def empirical(self, level) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Mid-rank percentile (0–100) and the counts of reference windows at or below / at or
         above ``level``: ``(percentile, n_at_or_below, n_at_or_above)``."""
-        self._check_fitted("sorted_sample_")
-        level = np.asarray(level, float)
-        below = (self.sorted_sample_ < level[:, None]).sum(axis=1)
-        at_or_below = (self.sorted_sample_ <= level[:, None]).sum(axis=1)
+        self._check_fitted("sample_")
+        level = np.asarray(level, float)[:, None]
+        with np.errstate(invalid="ignore"):
+            below = (self.sample_ < level).sum(axis=1)
+            at_or_below = (self.sample_ <= level).sum(axis=1)
         ties = at_or_below - below
         n = np.maximum(self.n_, 1)
         percentile = 100.0 * (below + 0.5 * ties) / n
@@ -142,11 +154,6 @@ class LevelDistribution(Estimator):
         return low, high
 
     def median(self) -> np.ndarray:
-        """The median reference level per account (A,)."""
-        self._check_fitted("sorted_sample_")
-        n = self.n_
-        mid = np.clip((n - 1) // 2, 0, self.sorted_sample_.shape[1] - 1) if self.sorted_sample_.shape[1] else n * 0
-        lo = np.take_along_axis(self.sorted_sample_, mid[:, None], axis=1)[:, 0]
-        hi = np.take_along_axis(self.sorted_sample_, np.clip(n // 2, 0, max(self.sorted_sample_.shape[1] - 1, 0))[:, None], axis=1)[:, 0]
-        out = 0.5 * (lo + hi)
-        return np.where(n > 0, out, np.nan)
+        """The median reference level per account (A,); NaN without a reference."""
+        self._check_fitted("median_")
+        return self.median_

@@ -7,9 +7,14 @@ array operations (no Python loop over accounts).
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import logsumexp
 
 LOG_2PI = np.log(2 * np.pi)
+
+
+def _logaddexp_pair(a, b):
+    """log(exp(a) + exp(b)) elementwise; faster than a general logsumexp for two terms."""
+    high = np.maximum(a, b)
+    return high + np.log1p(np.exp(-np.abs(a - b)))
 
 
 def _masked(x):
@@ -58,7 +63,7 @@ def fit_two_gaussians(x, *, max_iter: int = 100, tol: float = 1e-6, var_floor: f
         log_dens = -0.5 * (LOG_2PI + np.log(variances)[:, None, :]
                            + (values[:, :, None] - means[:, None, :]) ** 2 / variances[:, None, :])
         log_joint = log_dens + np.log(weights)[:, None, :]
-        log_norm = logsumexp(log_joint, axis=2)
+        log_norm = _logaddexp_pair(log_joint[:, :, 0], log_joint[:, :, 1])
         loglik = np.where(valid, log_norm, 0.0).sum(axis=1)
         resp = np.exp(log_joint - log_norm[:, :, None]) * valid[:, :, None]
         # M-step.
@@ -75,7 +80,8 @@ def fit_two_gaussians(x, *, max_iter: int = 100, tol: float = 1e-6, var_floor: f
     # Final log-likelihood at the returned parameters.
     log_dens = -0.5 * (LOG_2PI + np.log(variances)[:, None, :]
                        + (values[:, :, None] - means[:, None, :]) ** 2 / variances[:, None, :])
-    loglik = np.where(valid, logsumexp(log_dens + np.log(weights)[:, None, :], axis=2), 0.0).sum(axis=1)
+    log_joint = log_dens + np.log(weights)[:, None, :]
+    loglik = np.where(valid, _logaddexp_pair(log_joint[:, :, 0], log_joint[:, :, 1]), 0.0).sum(axis=1)
     order = np.argsort(means, axis=1)
     take = lambda a: np.take_along_axis(a, order, axis=1)  # noqa: E731 - sort components by mean
     return take(weights), take(means), take(variances), loglik, iteration

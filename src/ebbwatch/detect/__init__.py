@@ -57,7 +57,7 @@ class ScanParams:
     horizon_days: int = 91
     level_model: str = "auto"
     low_volume_events: float = 60.0
-    cusum_threshold: float = 4.0
+    cusum_threshold: float = 5.0
     penalty_factor: float = 3.0
     trend_weeks: int = 12
     dormant_days: int = 91
@@ -141,7 +141,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     span = min(n_days, params.horizon_days + 91)
     segment = u[:, -span:]
     filled = fill_gaps(segment)
-    sigma = np.maximum(robust_sigma(u[:, :hist_end]), 0.05)
+    sigma = np.maximum(robust_sigma(u[:, max(0, hist_end - 182):hist_end]), 0.05)
     split, statistic = cusum_split(filled, span - params.horizon_days, span - 2, sigma)
     candidates = np.flatnonzero(enough & ~dormant & (np.abs(statistic) > params.cusum_threshold))
     onset_col = np.full(n_accounts, -1)
