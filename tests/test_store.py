@@ -9,7 +9,7 @@ def test_new_store_is_at_current_schema(db):
     with store_mod.open_store(db) as st:
         assert st.schema_version() == store_mod.SCHEMA_VERSION
         tables = {r[0] for r in st.con.execute("SELECT table_name FROM information_schema.tables").fetchall()}
-    assert {"daily", "user_daily", "accounts", "identities", "ingest_log", "seen_ids", "alert_state"} <= tables
+    assert {"daily", "user_daily", "accounts", "identities", "ingest_log", "seen_ids", "alert_log", "snoozes"} <= tables
 
 
 def test_reopen_keeps_data_and_version(db):
@@ -30,13 +30,14 @@ def test_newer_schema_is_refused_and_left_alone(db):
 
 
 def test_older_schema_is_migrated(db, monkeypatch):
-    # A store at version 1 opened by a build whose schema is version 2 runs migration 1 -> 2.
+    # A store at the current version opened by a build one version newer runs the next migration.
     with store_mod.open_store(db):
         pass
-    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", 2)
-    monkeypatch.setitem(store_mod.MIGRATIONS, 1, ["ALTER TABLE accounts ADD COLUMN region VARCHAR"])
+    current = store_mod.SCHEMA_VERSION
+    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", current + 1)
+    monkeypatch.setitem(store_mod.MIGRATIONS, current, ["ALTER TABLE accounts ADD COLUMN region VARCHAR"])
     with store_mod.open_store(db) as st:
-        assert st.schema_version() == 2
+        assert st.schema_version() == current + 1
         cols = [r[0] for r in st.con.execute("DESCRIBE accounts").fetchall()]
     assert "region" in cols
 
@@ -89,3 +90,16 @@ def test_hostile_field_names_stay_quoted(tmp_path, db):
     assert s["ingested"] == 1 and s["paths"]["fast"] == 1
     with store_mod.open_store(db) as st:
         assert st.con.execute("SELECT account, event, events FROM daily").fetchall() == [("acc", "x", 1)]
+
+
+def test_version_1_store_migrates_to_2_keeping_its_data(db, monkeypatch):
+    """A store written by the first release (schema 1) opens with today's code and keeps its rows."""
+    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", 1)
+    with store_mod.open_store(db) as st:
+        st.con.execute("INSERT INTO accounts (account) VALUES ('a-1')")
+        assert st.schema_version() == 1
+    monkeypatch.undo()
+    with store_mod.open_store(db) as st:
+        assert st.schema_version() == store_mod.SCHEMA_VERSION >= 2
+        assert st.con.execute("SELECT account FROM accounts").fetchall() == [("a-1",)]
+        assert st.con.execute("SELECT count(*) FROM alert_log").fetchone()[0] == 0

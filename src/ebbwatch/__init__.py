@@ -6,6 +6,17 @@ pandas objects.
 
 __version__ = "0.1.0"
 
-from .api import daily_frame, export_daily, ingest_files, scan, status  # noqa: E402
+from .api import (  # noqa: E402
+    alert_history,
+    daily_frame,
+    explain,
+    export_daily,
+    ingest_files,
+    run_demo,
+    scan,
+    snooze,
+    status,
+)
 
-__all__ = ["__version__", "daily_frame", "export_daily", "ingest_files", "scan", "status"]
+__all__ = ["__version__", "alert_history", "daily_frame", "explain", "export_daily", "ingest_files", "run_demo",
+           "scan", "snooze", "status"]

@@ -95,6 +95,8 @@ def select_alerts(
                 "silent_days": int(r["silent_days"]),
                 "trend_change_pct": None if not np.isfinite(r["trend_change_pct"]) else round(float(r["trend_change_pct"]), 1),
             }
+            alert["state"] = "new"
+            alert["drivers"] = []
             alert["message"] = alert_message(alert, window_days)
             rows.append(alert)
     columns = list(ALERT_COLUMNS) + ["silent_days", "trend_change_pct"]
@@ -107,8 +109,9 @@ def select_alerts(
     return alerts.reset_index(drop=True)
 
 
-def alert_message(alert: dict, window_days: int) -> str:
-    """One plain sentence for a chat channel; data values are made safe for plain text."""
+def alert_message(alert: dict, window_days: int, drivers: str = "") -> str:
+    """One plain sentence for a chat channel; data values are made safe for plain text.
+    ``drivers``: a short clause naming what moved (already made plain)."""
     who = plain_text(alert["name"])
     if alert["name"] != alert["account"]:
         who = f"{who} ({plain_text(alert['account'])})"
@@ -128,4 +131,49 @@ def alert_message(alert: dict, window_days: int) -> str:
         text = f"{who}: activity up {change:.0f}% over the last {window_days} days vs its usual level{since}"
     side = "below" if alert["direction"] == "down" else "above"
     share = alert["percentile"] if side == "below" else 100 - alert["percentile"]
-    return f"{text}; {side} {100 - share:.1f}% of its history (severity {alert['severity']:.1f})."
+    tail = f"; {drivers}" if drivers else ""
+    return f"{text}; {side} {100 - share:.1f}% of its history (severity {alert['severity']:.1f}){tail}."
+
+
+# -- lifecycle -------------------------------------------------------------------------------
+LIFECYCLE_STATES = ("new", "ongoing", "escalated", "clearing", "resolved")
+OPEN_STATES = ("new", "ongoing", "escalated", "clearing")
+
+
+def advance_lifecycle(previous: pd.DataFrame, alerts: pd.DataFrame, as_of: date, *,
+                      escalate_step: float = 3.0, resolve_days: int = 3) -> pd.DataFrame:
+    """Each open alert's state on ``as_of`` from its state on the last recorded day before it.
+
+    ``previous``: latest rows per account and direction (columns of the alert log); ``alerts``:
+    today's alerts.  An alert is ``new`` the first day, ``ongoing`` while it holds, ``escalated``
+    on a day its severity exceeds its previous peak by ``escalate_step``; an open alert not raised
+    today is ``clearing`` until it has been absent ``resolve_days`` recorded days, then
+    ``resolved`` (and a later alert is new again).  Returns the rows to log for ``as_of``.
+    """
+    rows = []
+    prev = {(r.account, r.direction): r for r in previous.itertuples()} if len(previous) else {}
+    seen = set()
+    for alert in alerts.itertuples():
+        key = (alert.account, alert.direction)
+        seen.add(key)
+        before = prev.get(key)
+        if before is None or before.state == "resolved":
+            state, opened, peak = "new", as_of, alert.severity
+        else:
+            peak_before = before.peak_severity if before.peak_severity == before.peak_severity else 0.0
+            state = "escalated" if alert.severity >= peak_before + escalate_step else "ongoing"
+            opened, peak = before.opened, max(peak_before, alert.severity)
+        rows.append({"as_of": as_of, "account": alert.account, "direction": alert.direction, "kind": alert.kind,
+                     "state": state, "severity": alert.severity, "peak_severity": peak, "opened": opened,
+                     "quiet_days": 0, "message": alert.message})
+    for key, before in prev.items():
+        if key in seen or before.state == "resolved":
+            continue
+        quiet = int(before.quiet_days or 0) + 1
+        rows.append({"as_of": as_of, "account": before.account, "direction": before.direction, "kind": before.kind,
+                     "state": "resolved" if quiet >= resolve_days else "clearing", "severity": None,
+                     "peak_severity": before.peak_severity, "opened": before.opened, "quiet_days": quiet,
+                     "message": before.message})
+    columns = ["as_of", "account", "direction", "kind", "state", "severity", "peak_severity", "opened",
+               "quiet_days", "message"]
+    return pd.DataFrame(rows, columns=columns)

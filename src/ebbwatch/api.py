@@ -295,21 +295,28 @@ def scan(
     chunk_size: int = 10_000,
     progress=None,
     today: date | None = None,
+    record: bool = False,
+    show: str = "all",
+    drivers: bool = True,
 ):
     """Judge every account at ``as_of`` (default: the last complete day) and return the alerts.
 
     Returns a DataFrame with ``frames.ALERT_COLUMNS`` ranked by severity; ``.attrs["summary"]``
     holds the counts (accounts judged, not enough history, dormant, masked days) and
-    ``.attrs["scores"]`` the per-account scores.
+    ``.attrs["scores"]`` the per-account scores.  ``record`` writes the day's alert states to
+    the store (the daily job does; a look at a past day does not).  ``show``: ``all`` open
+    alerts, or only ``new`` and escalated ones; snoozed accounts are never shown.
     """
-    from .alerts import select_alerts
+    from .alerts import advance_lifecycle, alert_message, select_alerts
     from .detect import score_panel
     from .engine import run_local
 
+    if show not in ("all", "new"):
+        raise UsageError(f"show must be all or new, got {show!r}")
     cfg = _config(config)
     started = time.perf_counter()
     as_of = parse_day(as_of)
-    with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
+    with store_mod.open_store(db or cfg.store_path, read_only=not record, must_exist=True) as st:
         if as_of is None:
             as_of = default_as_of(st.last_day(), today)
         accounts = st.account_ids()
@@ -319,28 +326,184 @@ def scan(
         params = _scan_params(cfg)
         scores = run_local(accounts, loader, lambda panel: score_panel(panel, params),
                            chunk_size=chunk_size, progress=progress)
-    alerts = select_alerts(
-        scores, as_of=as_of, names=loader.names, window_days=cfg.scan.window_days, fdr=cfg.scan.fdr,
-        max_alerts=cfg.scan.max_alerts if max_alerts is None else max_alerts,
-        min_change_pct=cfg.scan.min_change_pct, kinds=kinds,
-    )
+        alerts = select_alerts(
+            scores, as_of=as_of, names=loader.names, window_days=cfg.scan.window_days, fdr=cfg.scan.fdr,
+            max_alerts=cfg.scan.max_alerts if max_alerts is None else max_alerts,
+            min_change_pct=cfg.scan.min_change_pct, kinds=kinds,
+        )
+        if drivers and len(alerts):
+            _add_drivers(st, loader, scores, alerts, as_of, cfg.scan.window_days)
+        lifecycle = advance_lifecycle(st.alert_states_before(as_of), alerts, as_of)
+        snoozed = st.snoozed_accounts(as_of)
+        if record:
+            with st.transaction():
+                st.record_alert_day(as_of, lifecycle)
+    state_of = {(r.account, r.direction): r.state for r in lifecycle.itertuples()}
+    alerts["state"] = [state_of.get((a, d), "new") for a, d in zip(alerts["account"], alerts["direction"])]
+    hidden = alerts["account"].isin(list(snoozed))
+    wanted = ~hidden if show == "all" else ~hidden & alerts["state"].isin(["new", "escalated"])
+    shown = alerts[wanted].reset_index(drop=True)
     masked_days = [
         (date(1970, 1, 1) + timedelta(days=loader.start_day + int(i))).isoformat()
         for i in np.flatnonzero(loader.masked)
     ]
     counts = scores["status"].value_counts().to_dict() if len(scores) else {}
-    alerts.attrs["summary"] = {
+    shown.attrs["summary"] = {
         "as_of": as_of.isoformat(),
         "accounts": len(scores),
         "judged": int(counts.get("judged", 0)),
         "not_enough_history": sorted(scores.loc[scores["status"] == "not_enough_history", "account"].tolist()),
         "dormant": int(counts.get("dormant", 0)),
-        "alerts": len(alerts),
+        "alerts": len(shown),
+        "open_alerts": len(alerts),
+        "snoozed": int(hidden.sum()),
+        "resolved_today": int((lifecycle["state"] == "resolved").sum()) if len(lifecycle) else 0,
+        "recorded": bool(record),
         "masked_days": masked_days,
         "seconds": round(time.perf_counter() - started, 3),
     }
-    alerts.attrs["scores"] = scores
-    return alerts
+    shown.attrs["scores"] = scores
+    shown.attrs["fleet_factor"] = loader.fleet_factor
+    shown.attrs["masked"] = loader.masked
+    shown.attrs["start_day"] = loader.start_day
+    return shown
+
+
+def _period_days(start_day: int, end_day: int, masked, panel_start: int) -> list:
+    """Dates from ``start_day`` to ``end_day`` (day numbers, inclusive) that are not masked."""
+    out = []
+    for day in range(start_day, end_day + 1):
+        column = day - panel_start
+        if 0 <= column < len(masked) and masked[column]:
+            continue
+        out.append(date(1970, 1, 1) + timedelta(days=day))
+    return out
+
+
+BASELINE_DRIVER_DAYS = 56
+
+
+def _add_drivers(st, loader, scores, alerts, as_of, window_days):
+    """Fill the ``drivers`` column and extend each ``message`` with a short clause."""
+    from .alerts import alert_message
+    from .explain import drivers_phrase, event_drivers, user_drivers
+    from .textsafe import plain_text
+
+    by_account = scores.set_index("account")
+    end = (as_of - date(1970, 1, 1)).days
+    driver_lists, messages = [], []
+    for alert in alerts.to_dict(orient="records"):
+        row = by_account.loc[alert["account"]]
+        reference_end = int(row["reference_end_day"])
+        window_start = end - window_days + 1
+        baseline = _period_days(max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day), reference_end - 1,
+                                loader.masked, loader.start_day)
+        window = _period_days(window_start, end, loader.masked, loader.start_day)
+        first = baseline[0] if baseline else as_of
+        events = st.account_event_days(alert["account"], first, as_of)
+        users = st.account_user_days(alert["account"], first, as_of)
+        found = event_drivers(events, loader.weights, baseline, window)[:5]
+        found += user_drivers(users, loader.weights, baseline, window, alert["direction"])
+        driver_lists.append(found)
+        messages.append(alert_message(alert, window_days, drivers_phrase(found, plain_text)))
+    alerts["drivers"] = driver_lists
+    alerts["message"] = messages
+
+
+# -- explain, snooze, alert history -----------------------------------------------------------
+
+def explain(account: str, *, as_of=None, db: str | None = None, config=None, today: date | None = None) -> dict:
+    """Everything the scan knows about one account on ``as_of``, as a JSON-ready dict.
+
+    The account is judged exactly as in the scan (the fleet factor comes from the whole fleet),
+    and the result says which baseline model was chosen and why, the weekday factors, the recent
+    level with its percentile and tail probabilities, the changepoint, trend, silence, drivers,
+    and the daily series behind them (for plotting).
+    """
+    from .alerts import day_to_date
+    from .detect import score_panel
+    from .explain import event_drivers, user_drivers
+
+    cfg = _config(config)
+    as_of = parse_day(as_of)
+    with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
+        if as_of is None:
+            as_of = default_as_of(st.last_day(), today)
+        if not st.has_account(account):
+            raise InputError(f"no account {account!r} in the store; `ebbwatch status` lists what is there")
+        accounts = st.account_ids()
+        loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days).fit_fleet(accounts)
+        panel = loader([account])
+        row = score_panel(panel, _scan_params(cfg)).iloc[0]
+        end = (as_of - date(1970, 1, 1)).days
+        window = _period_days(end - cfg.scan.window_days + 1, end, loader.masked, loader.start_day)
+        reference_end = int(row["reference_end_day"])
+        baseline = _period_days(max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day), reference_end - 1,
+                                loader.masked, loader.start_day)
+        first = baseline[0] if baseline else as_of
+        events = st.account_event_days(account, first, as_of)
+        users = st.account_user_days(account, first, as_of)
+        direction = "down" if row["p_down"] <= row["p_up"] else "up"
+        drivers = event_drivers(events, loader.weights, baseline, window) + \
+            user_drivers(users, loader.weights, baseline, window, direction)
+    weekday_names = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
+    f = lambda v: None if v is None or (isinstance(v, float) and not np.isfinite(v)) else float(v)  # noqa: E731
+    bic_one, bic_two = f(row["bic_lognormal"]), f(row["bic_mixture"])
+    if row["model"] == "negbin":
+        why = "low volume: a negative binomial on window totals, dispersion pooled across accounts"
+    elif bic_two is None:
+        why = "log-normal: the two-peak mixture was not needed (the level is not in either tail)"
+    else:
+        why = (f"BIC one peak {bic_one:.1f} vs two peaks {bic_two:.1f}: "
+               + ("two peaks preferred" if row["model"] == "mixture" else "one peak preferred"))
+    days = panel.days
+    return {
+        "account": account,
+        "name": loader.names.get(account) or account,
+        "as_of": as_of.isoformat(),
+        "status": row["status"],
+        "masked_days_in_window": [day_to_date(x).isoformat() for x in days[-cfg.scan.window_days:]
+                                  if loader.masked[int(x) - loader.start_day]],
+        "baseline": {"model": row["model"], "why": why, "bic_one_peak": bic_one, "bic_two_peaks": bic_two,
+                     "reference_windows": int(row["n_reference"]), "low_volume": bool(row["low_volume"]),
+                     "reference_ends": day_to_date(reference_end).isoformat()},
+        "weekday_factors": dict(zip(weekday_names, (round(float(v), 3) for v in row["weekday_factors"]))),
+        "recent": {"window_days": cfg.scan.window_days, "level": f(row["level"]), "usual_level": f(row["baseline_level"]),
+                   "change_pct": f(row["change_pct"]), "percentile": f(row["percentile"]),
+                   "p_low": f(row["p_level_low"]), "p_high": f(row["p_level_high"])},
+        "changepoint": {"onset": None if row["onset_day"] < 0 else day_to_date(row["onset_day"]).isoformat(),
+                        "level_before": f(row["level_before"]), "level_after": f(row["level_after"]),
+                        "kind_if_down": row["down_kind"]},
+        "trend": {"weeks": 12, "theil_sen_change_pct": f(row["trend_change_pct"]), "mann_kendall_p_down": f(row["p_trend_down"])},
+        "silence": {"silent_days": int(row["silent_days"]), "p_silence": f(row["p_stop"])},
+        "p_down": f(row["p_down"]), "p_up": f(row["p_up"]),
+        "drivers": drivers,
+        "series": {"days": [day_to_date(d).isoformat() for d in days],
+                   "index": [None if not np.isfinite(v) else round(float(v), 3) for v in panel.values[0] / panel.fleet_factor]},
+    }
+
+
+def snooze(account: str, until, *, reason: str | None = None, db: str | None = None, config=None) -> dict:
+    """Hide ``account``'s alerts until ``until`` (inclusive)."""
+    cfg = _config(config)
+    until = parse_day(until, "--until")
+    with store_mod.open_store(db or cfg.store_path, must_exist=True) as st:
+        if not st.has_account(account):
+            raise InputError(f"no account {account!r} in the store")
+        st.add_snooze(account, until, reason)
+    return {"account": account, "until": until.isoformat(), "reason": reason}
+
+
+def alert_history(*, states=None, db: str | None = None, config=None):
+    """The recorded alert log (one row per recorded scan day and open alert), newest first."""
+    from .alerts import LIFECYCLE_STATES
+
+    unknown = set(states or ()) - set(LIFECYCLE_STATES)
+    if unknown:
+        raise UsageError(f"unknown state(s) {', '.join(sorted(unknown))}; expected {', '.join(LIFECYCLE_STATES)}")
+    cfg = _config(config)
+    with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
+        return st.alert_log(states)
 
 
 # -- demo ------------------------------------------------------------------------------------

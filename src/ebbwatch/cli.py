@@ -191,27 +191,37 @@ def export_daily(db, config_path, fmt, output):
 @click.option("--fail-on-alert", is_flag=True, help="Exit with 1 when there is at least one alert.")
 @click.option("--chunk-size", type=click.IntRange(min=1), default=10_000, show_default=True,
               help="Accounts scored at once (bounds memory).")
+@click.option("--all", "show_all", is_flag=True, help="Print every open alert, not only new and escalated ones.")
+@click.option("--record/--no-record", default=None,
+              help="Record the day's alert states. Default: record when --as-of is not given.")
 @handle_errors
-def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size):
+def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, record):
     """Judge every account's recent days against its own history and print ranked alerts.
 
     Kinds: drop (a sudden fall), stop (no activity, unusual for the account), slide (a gradual
     fall over weeks), surge (a sudden rise). Each account is compared with its own weekday rhythm
     and level history; Benjamini-Hochberg control keeps false alerts from growing with the fleet.
 
+    Alerts have a state across days: new, ongoing, escalated (severity rose), clearing, resolved.
+    By default only new and escalated alerts are printed, so a daily run does not repeat itself;
+    --all prints every open one. Snoozed accounts (ebbwatch snooze) are not printed.
+
     \b
     Exit codes: 0 ran; 1 alerts found with --fail-on-alert; 2 usage or config error;
     3 unusable input or store.
     """
+    record = (as_of is None) if record is None else record
     alerts = api.scan(as_of=as_of, db=db, config=config_path, kinds=list(kinds) or None,
-                      max_alerts=max_alerts, chunk_size=chunk_size, progress=_progress_printer("scan"))
+                      max_alerts=max_alerts, chunk_size=chunk_size, progress=_progress_printer("scan"),
+                      record=record, show="all" if show_all else "new")
     from .report import render_alerts
 
     summary = alerts.attrs["summary"]
     click.echo(render_alerts(alerts, fmt, summary), nl=False)
     if fmt == "table":
         click.echo(
-            f"{summary['alerts']} alert(s) as of {summary['as_of']}; {summary['judged']:,} accounts judged, "
+            f"{summary['alerts']} alert(s) shown of {summary['open_alerts']} open as of {summary['as_of']}"
+            f"{' (recorded)' if summary['recorded'] else ''}; {summary['judged']:,} accounts judged, "
             f"{len(summary['not_enough_history']):,} with not enough history, {summary['dormant']:,} dormant"
             + (f"; masked data-gap days: {', '.join(summary['masked_days'])}" if summary["masked_days"] else "")
             + ".",
@@ -219,6 +229,58 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
         )
     if fail_on_alert and len(alerts):
         sys.exit(EXIT_ALERTS)
+
+
+@main.command("explain")
+@click.argument("account")
+@store_options
+@click.option("--as-of", help="Day to judge, YYYY-MM-DD. Default: the last complete day in the store.")
+@click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True)
+@click.option("--plot", "plot_path", type=click.Path(dir_okay=False),
+              help="Write a chart (.svg or .png): daily index, usual band, window, onset.")
+@handle_errors
+def explain_command(account, db, config_path, as_of, fmt, plot_path):
+    """Why an account was (or was not) flagged: baseline, levels, changepoint, trend, drivers."""
+    info = api.explain(account, as_of=as_of, db=db, config=config_path)
+    if plot_path:
+        from .report.plot import plot_account
+
+        plot_account(info, plot_path)
+        click.echo(f"Wrote {plot_path}.", err=True)
+    if fmt == "json":
+        click.echo(json.dumps(info))
+        return
+    from .report.explain_text import render_explanation
+
+    click.echo(render_explanation(info), nl=False)
+
+
+@main.command()
+@click.argument("account")
+@store_options
+@click.option("--until", required=True, help="Last day (YYYY-MM-DD) the account's alerts stay hidden.")
+@click.option("--reason", help="Why (kept with the snooze, shown in `ebbwatch alerts`).")
+@handle_errors
+def snooze(account, db, config_path, until, reason):
+    """Hide an account's alerts until a date (a known migration, a customer on holiday, ...)."""
+    result = api.snooze(account, until, reason=reason, db=db, config=config_path)
+    click.echo(f"Snoozed {result['account']} until {result['until']}.", err=True)
+
+
+@main.command("alerts")
+@store_options
+@click.option("--state", "states", multiple=True,
+              type=click.Choice(["new", "ongoing", "escalated", "clearing", "resolved"]),
+              help="Only rows in these states (repeatable).")
+@click.option("--format", "fmt", type=click.Choice(["table", "jsonl", "csv"]), default="table", show_default=True)
+@click.option("--limit", type=click.IntRange(min=1), default=200, show_default=True)
+@handle_errors
+def alerts_command(db, config_path, states, fmt, limit):
+    """The recorded alert history: one row per recorded scan day and open alert, newest first."""
+    log = api.alert_history(states=list(states) or None, db=db, config=config_path).head(limit)
+    from .report.tables import render_log
+
+    click.echo(render_log(log, fmt), nl=False)
 
 
 @main.command()

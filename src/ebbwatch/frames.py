@@ -32,6 +32,8 @@ ALERT_COLUMNS = (
     "baseline_level",
     "onset",
     "baseline",
+    "state",
+    "drivers",
     "message",
 )
 ALERT_KINDS = ("drop", "stop", "slide", "surge")

@@ -7,7 +7,7 @@ Tables (schema version ``SCHEMA_VERSION``; ``MIGRATIONS`` brings older stores fo
   distinct-user counts when late events arrive for a day already stored).
 - ``accounts``, ``identities`` (user → account over ``[valid_from, valid_to)``).
 - ``seen_ids``: event ids within the dedupe window; ``ingest_log``: one row per file ingested.
-- ``alert_state``: room for the alert lifecycle.
+- ``alert_log``: one row per recorded scan day and open alert (the lifecycle); ``snoozes``.
 
 Every file is ingested inside one transaction: if the process dies part-way, DuckDB's write-ahead
 log rolls the file back on the next open, and the store is as it was before that file.
@@ -27,7 +27,7 @@ import pyarrow as pa
 
 from .errors import StoreError
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 DEFAULT_PATH = "ebbwatch.duckdb"
 
 # Schema as a list of migrations: MIGRATIONS[v] takes a store at version v to v + 1.
@@ -51,6 +51,16 @@ MIGRATIONS: dict[int, list[str]] = {
         """CREATE TABLE alert_state (account VARCHAR, kind VARCHAR, direction VARCHAR,
                state VARCHAR, opened DATE, last_seen DATE, severity DOUBLE, snoozed_until DATE,
                reason VARCHAR)""",
+    ],
+    # v2: the alert lifecycle as a log of recorded scan days, and snoozes.
+    1: [
+        "DROP TABLE alert_state",
+        """CREATE TABLE alert_log (as_of DATE NOT NULL, account VARCHAR NOT NULL,
+               direction VARCHAR NOT NULL, kind VARCHAR, state VARCHAR NOT NULL, severity DOUBLE,
+               peak_severity DOUBLE, opened DATE, quiet_days INTEGER, message VARCHAR,
+               recorded_at TIMESTAMPTZ)""",
+        """CREATE TABLE snoozes (account VARCHAR NOT NULL, until DATE NOT NULL, reason VARCHAR,
+               created_at TIMESTAMPTZ)""",
     ],
 }
 
@@ -504,6 +514,78 @@ class Store:
         )
 
 
+    # -- alert lifecycle ---------------------------------------------------------------------
+    def alert_states_before(self, as_of) -> pd.DataFrame:
+        """Each account-direction's latest logged row from a scan day before ``as_of``."""
+        rows = self.con.execute(
+            """SELECT as_of, account, direction, kind, state, severity, peak_severity, opened, quiet_days, message
+            FROM alert_log WHERE as_of < ?
+            QUALIFY row_number() OVER (PARTITION BY account, direction ORDER BY as_of DESC) = 1""",
+            [as_of],
+        ).fetchall()
+        columns = ["as_of", "account", "direction", "kind", "state", "severity", "peak_severity", "opened",
+                   "quiet_days", "message"]
+        return pd.DataFrame(rows, columns=columns)
+
+    def record_alert_day(self, as_of, rows: pd.DataFrame):
+        """Replace the log rows of ``as_of`` (so recording the same day twice changes nothing)."""
+        self.con.execute("DELETE FROM alert_log WHERE as_of = ?", [as_of])
+        if len(rows):
+            self.con.register("incoming_alert_rows", rows)
+            try:
+                self.con.execute(
+                    """INSERT INTO alert_log SELECT CAST(as_of AS DATE), account, direction, kind, state,
+                           severity, peak_severity, CAST(opened AS DATE), quiet_days, message, now()
+                    FROM incoming_alert_rows"""
+                )
+            finally:
+                self.con.unregister("incoming_alert_rows")
+
+    def alert_log(self, states=None) -> pd.DataFrame:
+        query = ("SELECT CAST(as_of AS VARCHAR) AS as_of, account, direction, kind, state, severity, "
+                 "peak_severity, CAST(opened AS VARCHAR) AS opened, quiet_days, message FROM alert_log")
+        params = []
+        if states:
+            query += " WHERE state IN (SELECT unnest(?))"
+            params.append(list(states))
+        rows = self.con.execute(query + " ORDER BY as_of DESC, severity DESC NULLS LAST, account", params).fetchall()
+        columns = ["as_of", "account", "direction", "kind", "state", "severity", "peak_severity", "opened",
+                   "quiet_days", "message"]
+        return pd.DataFrame(rows, columns=columns)
+
+    def add_snooze(self, account: str, until, reason: str | None):
+        self.con.execute("INSERT INTO snoozes VALUES (?, ?, ?, now())", [account, until, reason])
+
+    def snoozed_accounts(self, as_of) -> dict:
+        """account -> (until, reason) for snoozes still in force on ``as_of``."""
+        rows = self.con.execute(
+            """SELECT account, until, reason FROM snoozes WHERE until >= ?
+            QUALIFY row_number() OVER (PARTITION BY account ORDER BY until DESC) = 1""", [as_of]
+        ).fetchall()
+        return {a: (u, r) for a, u, r in rows}
+
+    # -- drivers ---------------------------------------------------------------------------
+    def account_event_days(self, account: str, start_day, end_day) -> pd.DataFrame:
+        """Rows ``day`` (datetime.date), ``event``, ``events`` of one account."""
+        rows = self.con.execute(
+            "SELECT day, event, events FROM daily WHERE account = ? AND day BETWEEN ? AND ? ORDER BY day, event",
+            [account, start_day, end_day],
+        ).fetchall()
+        return pd.DataFrame(rows, columns=["day", "event", "events"])
+
+    def account_user_days(self, account: str, start_day, end_day) -> pd.DataFrame:
+        """Rows ``day`` (datetime.date), ``user``, ``event``, ``events`` of one account."""
+        rows = self.con.execute(
+            """SELECT day, "user", event, events FROM user_daily
+            WHERE account = ? AND day BETWEEN ? AND ? ORDER BY day""",
+            [account, start_day, end_day],
+        ).fetchall()
+        return pd.DataFrame(rows, columns=["day", "user", "event", "events"])
+
+    def has_account(self, account: str) -> bool:
+        return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily WHERE account = ? LIMIT 1)", [account]).fetchone()[0] > 0
+
+
 def _migrate(con, path: str):
     has_meta = con.execute(
         "SELECT count(*) FROM information_schema.tables WHERE table_name = 'meta' AND table_schema = 'main'"
@@ -541,14 +623,15 @@ def resolve_path(path: str | None) -> str:
     return str(path or os.environ.get("EBBWATCH_DB") or DEFAULT_PATH)
 
 
-def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds: float = 0.0) -> Store:
+def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds: float = 0.0,
+               must_exist: bool = False) -> Store:
     """Open (creating and migrating if needed) the store at ``path``.
 
     ``wait_seconds``: how long to keep retrying while another process holds the store's lock.
     """
     path = resolve_path(path)
     p = Path(path)
-    if read_only and not p.exists():
+    if (read_only or must_exist) and not p.exists():
         raise StoreError(f"no store at {path}; ingest something first (ebbwatch ingest ...)")
     if p.exists() and p.is_file() and p.stat().st_size > 0:
         with open(p, "rb") as handle:

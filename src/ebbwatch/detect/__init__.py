@@ -71,6 +71,7 @@ SCORE_COLUMNS = (
     "account", "status", "p_down", "p_up", "p_level_low", "p_level_high", "p_trend_down", "p_stop",
     "percentile", "level", "baseline_level", "change_pct", "trend_change_pct", "onset_day",
     "level_before", "level_after", "silent_days", "model", "down_kind", "n_reference", "low_volume",
+    "reference_end_day", "bic_lognormal", "bic_mixture", "weekday_factors",
 )
 
 
@@ -80,7 +81,7 @@ def _level_tails(values, counts, factors, first_seen, reference_end, window, par
     negative binomial on totals for low-volume accounts.
 
     Returns ``(p_low, p_high, percentile, baseline_level, model, n_reference, low_volume,
-    current)``, each (A,).
+    current, bic)``, each (A,) but ``bic`` (A, 2): one peak, two peaks (inf where not fitted).
     """
     levels, totals = rolling_window(values, window, factors)
     n_windows = levels.shape[1]
@@ -103,7 +104,7 @@ def _level_tails(values, counts, factors, first_seen, reference_end, window, par
         p_low[low_volume] = np.where(n_low[low_volume] >= window, n_low[low_volume] / n, nb_low)
         p_high[low_volume] = np.where(n_high[low_volume] >= window, n_high[low_volume] / n, nb_high)
         model[low_volume] = "negbin"
-    return p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current
+    return p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current, level.bic_
 
 
 def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame:
@@ -192,14 +193,14 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
 
     # Level distribution of window levels over the reference history (before a recent change).
     tails = _level_tails(values, counts, factors, first_seen, reference_end, W, params)
-    p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current = tails
+    p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current, bic = tails
     # A change inside the window is judged on the days since it, against windows of that length.
     inside = (onset_col > n_days - W) & (onset_col <= n_days - 2) & ~stop
     for k in np.unique(n_days - onset_col[inside]):
         rows = np.flatnonzero(inside & (n_days - onset_col == k))
         part = _level_tails(values[rows], counts[rows], factors[rows], first_seen[rows],
                             reference_end[rows], int(k), params)
-        for target, value in zip((p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current), part):
+        for target, value in zip((p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current, bic), part):
             target[rows] = value
     enough &= n_reference >= max(params.min_history_days - W + 1, 1) // 2
 
@@ -234,4 +235,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         "down_kind": down_kind,
         "n_reference": n_reference,
         "low_volume": low_volume,
+        "reference_end_day": panel.start_day + reference_end,
+        "bic_lognormal": bic[:, 0],
+        "bic_mixture": bic[:, 1],
+        "weekday_factors": list(np.round(profile.factors_, 4)),
     })

@@ -15,6 +15,8 @@ TABLE_COLUMNS = ("account", "name", "kind", "severity", "change_pct", "percentil
 
 
 def _clean(value):
+    if isinstance(value, (list, dict)):
+        return value
     if isinstance(value, float) and not math.isfinite(value):
         return None
     if hasattr(value, "item"):
@@ -65,7 +67,7 @@ def render_alerts(alerts, fmt: str = "table", summary: dict | None = None) -> st
         writer = csv.DictWriter(buffer, fieldnames=columns, lineterminator="\n")
         writer.writeheader()
         for r in records:
-            writer.writerow({k: csv_cell(v) for k, v in r.items()})
+            writer.writerow({k: csv_cell(json.dumps(v) if isinstance(v, (list, dict)) else v) for k, v in r.items()})
         return buffer.getvalue()
     if fmt == "markdown":
         lines = ["| " + " | ".join(TABLE_COLUMNS) + " | message |", "|" + "---|" * (len(TABLE_COLUMNS) + 1)]
@@ -84,3 +86,28 @@ def render_alerts(alerts, fmt: str = "table", summary: dict | None = None) -> st
         out += [line(row) for row in rows]
         return "\n".join(out) + "\n"
     raise ValueError(f"unknown format {fmt!r}; expected one of {', '.join(ALERT_FORMATS)}")
+
+
+LOG_COLUMNS = ("as_of", "account", "direction", "kind", "state", "severity", "opened")
+
+
+def render_log(log, fmt: str = "table") -> str:
+    """The alert log (``store.alert_log``) as a table, JSON lines or CSV."""
+    records = []
+    for row in log.to_dict(orient="records"):
+        records.append({k: (v.isoformat() if hasattr(v, "isoformat") else _clean(v)) for k, v in row.items()})
+    if fmt == "jsonl":
+        return "".join(json.dumps(r, ensure_ascii=False, default=str) + "\n" for r in records)
+    if fmt == "csv":
+        buffer = io.StringIO()
+        writer = csv.DictWriter(buffer, fieldnames=list(log.columns), lineterminator="\n")
+        writer.writeheader()
+        for r in records:
+            writer.writerow({k: csv_cell(v) for k, v in r.items()})
+        return buffer.getvalue()
+    if not records:
+        return "No recorded alerts.\n"
+    rows = [[plain_text("-" if r[c] is None else (f"{r[c]:.1f}" if c == "severity" else r[c])) for c in LOG_COLUMNS] for r in records]
+    widths = [max(len(c), *(len(row[i]) for row in rows)) for i, c in enumerate(LOG_COLUMNS)]
+    line = lambda cells: "  ".join(str(x).ljust(w) for x, w in zip(cells, widths)).rstrip()  # noqa: E731
+    return "\n".join([line(LOG_COLUMNS), line(["-" * w for w in widths])] + [line(r) for r in rows]) + "\n"

@@ -1,0 +1,103 @@
+"""Drivers: which event names and which of the account's regular users account for a change.
+
+Pure functions on small frames of one account's rows; the api reads those rows from the store.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+MAX_EVENT_DRIVERS = 5
+MAX_USER_DRIVERS = 5
+
+
+def event_drivers(event_days: pd.DataFrame, weights: dict, baseline_days, window_days) -> list[dict]:
+    """Per event name: expected (from the baseline days' daily mean) vs observed in the window.
+
+    ``event_days``: rows ``day, event, events`` of one account; ``baseline_days`` and
+    ``window_days``: the days (date objects) of each period, masked days already left out.
+    Values are in activity-index units (event counts times their weights).  ``share`` is each
+    event's part of the whole change in the index, so the shares add up to 1; the list is ranked
+    by the size of each event's change.
+    """
+    if event_days.empty or not len(window_days) or not len(baseline_days):
+        return []
+    frame = event_days.assign(index=event_days["events"] * event_days["event"].map(lambda e: weights.get(e, 1.0)))
+    baseline = frame[frame["day"].isin(set(baseline_days))].groupby("event")["index"].sum() / len(baseline_days)
+    observed = frame[frame["day"].isin(set(window_days))].groupby("event")["index"].sum()
+    names = sorted(set(baseline.index) | set(observed.index))
+    expected = baseline.reindex(names, fill_value=0.0) * len(window_days)
+    observed = observed.reindex(names, fill_value=0.0)
+    change = observed - expected
+    total = change.sum()
+    out = []
+    for name in sorted(names, key=lambda n: -abs(change[n])):
+        if weights.get(name, 1.0) == 0:
+            continue
+        out.append({
+            "type": "event", "event": name, "expected": round(float(expected[name]), 2),
+            "observed": round(float(observed[name]), 2),
+            "change_pct": None if expected[name] == 0 else round(100 * float(change[name] / expected[name]), 1),
+            "share": None if total == 0 else round(float(change[name] / total), 4),
+        })
+    return out
+
+
+def user_drivers(user_days: pd.DataFrame, weights: dict, baseline_days, window_days, direction: str,
+                 regular_share: float = 0.25) -> list[dict]:
+    """Regular users who went quiet (down) or users newly active (up), by share of the baseline.
+
+    ``user_days``: rows ``day, user, event, events``.  A regular user was active on at least
+    ``regular_share`` of the baseline days.  Going quiet: a regular user with no activity in the
+    window; newly active: a user with activity in the window and none in the baseline.  Each
+    user's ``baseline_share`` is their part of the account's baseline activity; ``share`` their
+    part of the whole change.  User ids are given as stored.
+    """
+    if user_days.empty or not len(window_days) or not len(baseline_days):
+        return []
+    frame = user_days.assign(index=user_days["events"] * user_days["event"].map(lambda e: weights.get(e, 1.0)))
+    in_base = frame[frame["day"].isin(set(baseline_days))]
+    in_window = frame[frame["day"].isin(set(window_days))]
+    base_total = in_base["index"].sum()
+    per_user_base = in_base.groupby("user")["index"].sum()
+    active_days = in_base.groupby("user")["day"].nunique()
+    window_per_user = in_window.groupby("user")["index"].sum()
+    expected_total = base_total / len(baseline_days) * len(window_days)
+    total_change = window_per_user.sum() - expected_total
+    rows = []
+    if direction == "down":
+        regular = active_days[active_days >= regular_share * len(baseline_days)].index
+        for user in regular:
+            if window_per_user.get(user, 0.0) > 0:
+                continue
+            expected = per_user_base[user] / len(baseline_days) * len(window_days)
+            rows.append({"type": "user", "user": user, "change": "went quiet",
+                         "baseline_share": round(float(per_user_base[user] / base_total), 4),
+                         "share": None if total_change == 0 else round(float(-expected / total_change), 4)})
+    else:
+        for user, value in window_per_user.items():
+            if user in per_user_base.index:
+                continue
+            rows.append({"type": "user", "user": user, "change": "newly active", "baseline_share": 0.0,
+                         "share": None if total_change == 0 else round(float(value / total_change), 4)})
+    rows.sort(key=lambda r: (-(r["baseline_share"] or 0), -(r["share"] or 0), r["user"]))
+    return rows[:MAX_USER_DRIVERS]
+
+
+def drivers_phrase(drivers: list[dict], plain) -> str:
+    """A short clause for the chat message, e.g. "mostly booking.create (-72%); 2 regular users
+    went quiet".  ``plain`` makes data values inert for the message."""
+    parts = []
+    events = [d for d in drivers if d["type"] == "event" and d.get("share") is not None]
+    if events and events[0]["share"] is not None and events[0]["share"] >= 0.4:
+        top = events[0]
+        change = "" if top["change_pct"] is None else f" ({top['change_pct']:+.0f}%)"
+        parts.append(f"mostly {plain(top['event'])}{change}")
+    quiet = [d for d in drivers if d["type"] == "user" and d["change"] == "went quiet"]
+    new = [d for d in drivers if d["type"] == "user" and d["change"] == "newly active"]
+    if quiet:
+        parts.append(f"{len(quiet)} regular user{'s' if len(quiet) > 1 else ''} went quiet")
+    if new:
+        parts.append(f"{len(new)}{'+' if len(new) >= MAX_USER_DRIVERS else ''} new user{'s' if len(new) > 1 else ''} active")
+    return "; ".join(parts)

@@ -1,0 +1,176 @@
+"""Drivers, the alert lifecycle, snoozes and the JSON-lines schema."""
+
+import json
+from datetime import date, timedelta
+
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+import ebbwatch
+from ebbwatch.alerts import advance_lifecycle
+from ebbwatch.cli import main
+from ebbwatch.datasets import make_fleet
+from ebbwatch.explain import event_drivers, user_drivers
+
+D0 = date(2026, 3, 1)
+BASE = [D0 + timedelta(days=i) for i in range(28)]
+WINDOW = [D0 + timedelta(days=28 + i) for i in range(7)]
+
+
+def frame(rows, columns):
+    return pd.DataFrame(rows, columns=columns)
+
+
+def test_one_event_carries_the_drop_and_is_named_first_shares_add_up():
+    rows = []
+    for d in BASE:
+        rows += [(d, "booking.create", 40), (d, "booking.view", 20), (d, "invite.send", 5)]
+    for d in WINDOW:
+        rows += [(d, "booking.create", 4), (d, "booking.view", 20), (d, "invite.send", 5)]
+    drivers = event_drivers(frame(rows, ["day", "event", "events"]), {}, BASE, WINDOW)
+    assert drivers[0]["event"] == "booking.create"
+    assert drivers[0]["expected"] == 280 and drivers[0]["observed"] == 28 and drivers[0]["change_pct"] == -90.0
+    assert sum(d["share"] for d in drivers) == pytest.approx(1.0)
+    assert drivers[0]["share"] == pytest.approx(1.0)
+
+
+def test_weights_apply_to_drivers():
+    rows = [(d, "a", 10) for d in BASE] + [(d, "b", 10) for d in BASE] + [(d, "a", 5) for d in WINDOW] + [(d, "b", 10) for d in WINDOW]
+    drivers = event_drivers(frame(rows, ["day", "event", "events"]), {"a": 2.0}, BASE, WINDOW)
+    assert drivers[0] == {"type": "event", "event": "a", "expected": 140.0, "observed": 70.0, "change_pct": -50.0, "share": 1.0}
+
+
+def test_two_regular_users_who_stop_are_named():
+    rows = []
+    for d in BASE:
+        rows += [(d, "u-ann", "x", 10), (d, "u-bo", "x", 6), (d, "u-cy", "x", 4)]
+    for d in WINDOW:
+        rows += [(d, "u-cy", "x", 4)]
+    drivers = user_drivers(frame(rows, ["day", "user", "event", "events"]), {}, BASE, WINDOW, "down")
+    assert [d["user"] for d in drivers] == ["u-ann", "u-bo"]
+    assert all(d["change"] == "went quiet" for d in drivers)
+    assert drivers[0]["baseline_share"] == pytest.approx(0.5)
+    assert sum(d["share"] for d in drivers) == pytest.approx(1.0)  # they are the whole change
+
+
+def test_newly_active_users_on_a_surge():
+    rows = [(d, "u-ann", "x", 5) for d in BASE] + [(d, "u-ann", "x", 5) for d in WINDOW] + [(d, "u-new", "x", 10) for d in WINDOW]
+    drivers = user_drivers(frame(rows, ["day", "user", "event", "events"]), {}, BASE, WINDOW, "up")
+    assert drivers == [{"type": "user", "user": "u-new", "change": "newly active", "baseline_share": 0.0, "share": 1.0}]
+
+
+def alert_rows(*triples):
+    return pd.DataFrame([{"account": a, "direction": d, "kind": "drop", "severity": s, "message": "m"} for a, d, s in triples])
+
+
+def test_lifecycle_new_ongoing_escalated_clearing_resolved():
+    day = date(2026, 3, 1)
+    log = advance_lifecycle(pd.DataFrame(), alert_rows(("a", "down", 5.0)), day)
+    assert log.set_index("account")["state"]["a"] == "new"
+    log = advance_lifecycle(log, alert_rows(("a", "down", 6.0)), day + timedelta(1))
+    assert log["state"].tolist() == ["ongoing"]
+    log = advance_lifecycle(log, alert_rows(("a", "down", 9.5)), day + timedelta(2))
+    assert log["state"].tolist() == ["escalated"] and log["peak_severity"].tolist() == [9.5]
+    states = []
+    for k in range(3, 6):
+        log = advance_lifecycle(log, alert_rows(), day + timedelta(k), resolve_days=3)
+        states.append(log["state"].tolist()[0])
+    assert states == ["clearing", "clearing", "resolved"]
+    log = advance_lifecycle(log, alert_rows(("a", "down", 5.0)), day + timedelta(7))
+    assert log["state"].tolist() == ["new"]
+
+
+@pytest.fixture(scope="module")
+def store(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("life")
+    fleet = make_fleet(100, 240, seed=31, share_changed=0.25)
+    fleet.daily_frame().to_parquet(tmp / "daily.parquet")
+    accounts = fleet.accounts.copy()
+    accounts.loc[0, "name"] = '<b onclick="x()">@here Evil\nCorp</b> =cmd()'
+    accounts.to_csv(tmp / "accounts.csv", index=False)
+    db = str(tmp / "s.duckdb")
+    ebbwatch.ingest_files([], db=db, daily=str(tmp / "daily.parquet"), accounts=str(tmp / "accounts.csv"))
+    return fleet, db
+
+
+def test_scanning_the_same_day_twice_changes_nothing_and_next_day_is_ongoing(store):
+    fleet, db = store
+    day1 = fleet.as_of - timedelta(days=1)
+    first = ebbwatch.scan(db=db, as_of=day1, record=True, max_alerts=1000)
+    log1 = ebbwatch.alert_history(db=db)
+    again = ebbwatch.scan(db=db, as_of=day1, record=True, max_alerts=1000)
+    assert first["account"].tolist() == again["account"].tolist()
+    assert ebbwatch.alert_history(db=db).equals(log1)
+    assert set(first["state"]) == {"new"}
+    second = ebbwatch.scan(db=db, as_of=fleet.as_of, record=True, max_alerts=1000)
+    both = set(first["account"]) & set(second["account"])
+    assert both and all(s in ("ongoing", "escalated") for s in second.set_index("account").loc[sorted(both), "state"])
+    new_only = ebbwatch.scan(db=db, as_of=fleet.as_of, show="new", max_alerts=1000)
+    assert set(new_only["state"]) <= {"new", "escalated"} and len(new_only) < len(second)
+
+
+def test_past_as_of_does_not_change_states_unless_recorded(store):
+    fleet, db = store
+    before = ebbwatch.alert_history(db=db)
+    result = CliRunner().invoke(main, ["scan", "--db", db, "--as-of", (fleet.as_of - timedelta(days=5)).isoformat()])
+    assert result.exit_code == 0
+    assert ebbwatch.alert_history(db=db).equals(before)
+
+
+def test_snooze_hides_an_account_until_the_date(store):
+    fleet, db = store
+    alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
+    target = alerts["account"].iloc[0]
+    runner = CliRunner()
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", fleet.as_of.isoformat(), "--reason", "migration"]).exit_code == 0
+    hidden = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
+    assert target not in set(hidden["account"]) and hidden.attrs["summary"]["snoozed"] == 1
+    later = ebbwatch.scan(db=db, as_of=fleet.as_of + timedelta(days=1), max_alerts=1000)
+    assert later.attrs["summary"]["snoozed"] == 0
+    assert runner.invoke(main, ["snooze", "nobody", "--db", db, "--until", "2027-01-01"]).exit_code == 3
+
+
+def test_jsonl_schema_is_pinned(store):
+    fleet, db = store
+    result = CliRunner().invoke(main, ["scan", "--db", db, "--as-of", fleet.as_of.isoformat(), "--format", "jsonl", "--all"])
+    record = json.loads(result.stdout.splitlines()[0])
+    assert list(record) == ["schema", "account", "name", "kind", "direction", "as_of", "severity", "p_value", "q_value",
+                            "percentile", "change_pct", "level", "baseline_level", "onset", "baseline", "state",
+                            "drivers", "message", "silent_days", "trend_change_pct"]
+    assert record["schema"] == 1
+
+
+def test_hostile_account_name_is_inert_in_message_csv_and_markdown(store):
+    fleet, db = store
+    alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, show="all")
+    hostile = fleet.account_ids[0]
+    from ebbwatch.report import render_alerts
+    from ebbwatch.alerts import alert_message
+
+    sample = alerts.iloc[0].to_dict()
+    sample["name"] = '<b onclick="x()">@here Evil\nCorp</b> =cmd()'
+    message = alert_message(sample, 7)
+    assert "\n" not in message and "<b" not in message and "@here" not in message
+    frame = alerts.head(1).copy()
+    frame["name"] = ["=cmd()|1"]
+    assert "'=cmd()" in render_alerts(frame, "csv")
+    assert "\\|1" in render_alerts(frame, "markdown")
+
+
+def test_explain_command_text_json_and_plot(store, tmp_path):
+    fleet, db = store
+    alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
+    drops = set(fleet.truth.loc[fleet.truth["kind"] == "drop", "account"])
+    target = next(a for a in alerts["account"] if a in drops)
+    runner = CliRunner()
+    text = runner.invoke(main, ["explain", target, "--db", db, "--as-of", fleet.as_of.isoformat()])
+    assert text.exit_code == 0 and "baseline" in text.stdout and "changepoint" in text.stdout
+    doc = json.loads(runner.invoke(main, ["explain", target, "--db", db, "--format", "json"]).stdout)
+    assert doc["baseline"]["model"] in ("lognormal", "mixture", "negbin") and len(doc["weekday_factors"]) == 7
+    assert doc["p_down"] < 1e-4 and doc["changepoint"]["onset"] is not None
+    pytest.importorskip("matplotlib")
+    plot = tmp_path / "chart.svg"
+    assert runner.invoke(main, ["explain", target, "--db", db, "--plot", str(plot)]).exit_code == 0
+    assert plot.read_text().lstrip().startswith("<?xml")
+    assert runner.invoke(main, ["explain", "nobody", "--db", db]).exit_code == 3
