@@ -39,6 +39,7 @@ def select_alerts(
     max_alerts: int | None = 50,
     min_change_pct: float = 30.0,
     kinds=None,
+    min_severity: float = 0.0,
 ) -> pd.DataFrame:
     """Alerts for the accounts in ``scores`` (``detect.SCORE_COLUMNS``, the whole fleet).
 
@@ -77,6 +78,8 @@ def select_alerts(
                 continue
             onset = None if r["onset_day"] < 0 else day_to_date(r["onset_day"]).isoformat()
             severity = float(min(MAX_SEVERITY, -np.log10(max(qv[i], 1e-300))))
+            if severity < min_severity:
+                continue
             alert = {
                 "account": r["account"],
                 "name": names.get(r["account"]) or r["account"],

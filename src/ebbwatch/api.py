@@ -329,7 +329,7 @@ def scan(
         alerts = select_alerts(
             scores, as_of=as_of, names=loader.names, window_days=cfg.scan.window_days, fdr=cfg.scan.fdr,
             max_alerts=cfg.scan.max_alerts if max_alerts is None else max_alerts,
-            min_change_pct=cfg.scan.min_change_pct, kinds=kinds,
+            min_change_pct=cfg.scan.min_change_pct, kinds=kinds, min_severity=cfg.scan.min_severity,
         )
         if drivers and len(alerts):
             _add_drivers(st, loader, scores, alerts, as_of, cfg.scan.window_days)
@@ -504,6 +504,81 @@ def alert_history(*, states=None, db: str | None = None, config=None):
     cfg = _config(config)
     with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
         return st.alert_log(states)
+
+
+# -- backtest --------------------------------------------------------------------------------
+
+def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: int = 30, horizon_days: int = 90,
+             budget: float | None = None, target_precision: float | None = None, db: str | None = None,
+             config=None, progress=None, today: date | None = None) -> dict:
+    """Replay the daily scan from ``start`` to ``end`` every ``step`` days against ``outcomes``
+    (a CSV ``account,date,outcome``) and return the metrics, a severity sweep and a calibration.
+    """
+    from .backtest import calibrate, evaluate, replay, sweep
+    from .ingest.csvs import read_outcomes
+
+    if step < 1 or lead_days < 0 or horizon_days < max(lead_days, 1):
+        raise UsageError("need --step >= 1, --lead-days >= 0 and --horizon-days >= max(--lead-days, 1)")
+    cfg = _config(config)
+    started = time.perf_counter()
+    outcome_frame = read_outcomes(outcomes)
+    start, end = parse_day(start, "--from"), parse_day(end, "--to")
+    with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
+        first_day = st.status()["first_day"]
+        if first_day is None:
+            raise InputError("the store has no activity yet; ingest events or --daily first")
+        end = end or default_as_of(st.last_day(), today)
+        start = start or first_day + timedelta(days=cfg.scan.min_history_days + cfg.scan.window_days)
+        if start > end:
+            raise UsageError(f"--from {start} is after --to {end}")
+        accounts = st.account_ids()
+        history = max((end - first_day).days + 1, cfg.scan.window_days + 14)
+        loader = PanelLoader(st, cfg, end, history)
+        panel = loader(accounts)
+    days = list(range((start - date(1970, 1, 1)).days, (end - date(1970, 1, 1)).days + 1, step))
+    params = _scan_params(cfg)
+    alerts, exposure = replay(panel, days, params=params, history_days=cfg.scan.history_days, fdr=cfg.scan.fdr,
+                                 min_change_pct=cfg.scan.min_change_pct, outcomes=outcome_frame, progress=progress)
+    kw = dict(lead_days=lead_days, horizon_days=horizon_days, step_days=step)
+    result = evaluate(alerts[alerts["severity"] >= cfg.scan.min_severity], outcome_frame, exposure, **kw)
+    thresholds = sorted({0.0, 1.0, 2.0, 3.0, 4.0, 5.0, 7.5, 10.0, 15.0, 20.0, 30.0})
+    swept = sweep(alerts, outcome_frame, exposure, thresholds, **kw)
+    chosen = calibrate(swept, budget=budget, target_precision=target_precision) if (budget or target_precision) else None
+    result.update({
+        "from": start.isoformat(), "to": end.isoformat(), "step_days": step,
+        "sweep": [{"min_severity": m["min_severity"], "alerts_per_day": m["alerts_per_day"],
+                   "false_alerts_per_100_account_months": m["false_alerts_per_100_account_months"],
+                   "outcomes": {k: {"recall_at_lead": v["recall_at_lead"], "precision": v["precision"],
+                                    "median_lead_days": v["median_lead_days"]} for k, v in m["outcomes"].items()}}
+                  for m in swept],
+        "calibration": None if chosen is None else {
+            "min_severity": chosen["min_severity"], "budget": budget, "target_precision": target_precision,
+            "alerts_per_day": chosen["alerts_per_day"],
+            "config": f"[scan]\nmin_severity = {chosen['min_severity']}\n"},
+        "seconds": round(time.perf_counter() - started, 3),
+    })
+    if (budget or target_precision) and chosen is None:
+        result["calibration"] = {"min_severity": None, "budget": budget, "target_precision": target_precision,
+                                 "note": "no severity threshold in the sweep meets it"}
+    result["_lead_times"] = _lead_list(alerts, outcome_frame, horizon_days)
+    return result
+
+
+def _lead_list(alerts, outcomes, horizon_days) -> list:
+    import pandas as pd
+
+    from .backtest import UP_OUTCOMES
+
+    leads = []
+    a = alerts.assign(as_of=pd.to_datetime(alerts["as_of"]))
+    for o in outcomes.itertuples():
+        direction = "up" if o.outcome in UP_OUTCOMES else "down"
+        d = pd.Timestamp(o.date)
+        mine = a[(a["account"] == o.account) & (a["direction"] == direction) & (a["as_of"] <= d)
+                 & (a["as_of"] >= d - pd.Timedelta(days=horizon_days))]
+        if len(mine):
+            leads.append(int((d - mine["as_of"].min()).days))
+    return leads
 
 
 # -- demo ------------------------------------------------------------------------------------

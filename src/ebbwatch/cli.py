@@ -283,6 +283,48 @@ def alerts_command(db, config_path, states, fmt, limit):
     click.echo(render_log(log, fmt), nl=False)
 
 
+@main.command("backtest")
+@store_options
+@click.option("--outcomes", required=True, type=click.Path(exists=True, dir_okay=False),
+              help="CSV account,date,outcome with outcome churned, contracted or expanded.")
+@click.option("--from", "start", help="First day replayed (default: once the minimum history is there).")
+@click.option("--to", "end", help="Last day replayed (default: the last complete day).")
+@click.option("--step", type=click.IntRange(min=1), default=1, show_default=True, help="Replay every N-th day.")
+@click.option("--lead-days", type=click.IntRange(min=0), default=30, show_default=True,
+              help="An outcome counts as caught when an alert came at least this many days before it.")
+@click.option("--horizon-days", type=click.IntRange(min=1), default=90, show_default=True,
+              help="How far back from an outcome an alert may be and still count for it.")
+@click.option("--budget", type=click.FloatRange(min=0, min_open=True), help="Alerts a day you can handle: calibrate to it.")
+@click.option("--target-precision", type=click.FloatRange(0, 1), help="Or calibrate to this precision.")
+@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
+@click.option("--plot", "plot_path", type=click.Path(dir_okay=False), help="Precision-recall over the sweep and lead times (.svg/.png).")
+@handle_errors
+def backtest_command(db, config_path, outcomes, start, end, step, lead_days, horizon_days, budget, target_precision,
+                     fmt, plot_path):
+    """Replay the daily scan over history: how early and how precisely would it have alerted?
+
+    Each replayed day sees only the data up to it (accounts that already churned are left out),
+    through the same code as the daily scan. Downward alerts are matched to churned and
+    contracted outcomes, upward ones to expanded. The severity sweep shows the trade-off, and
+    --budget or --target-precision picks a threshold and prints the config to paste.
+    """
+    result = api.backtest(outcomes, start=start, end=end, step=step, lead_days=lead_days, horizon_days=horizon_days,
+                          budget=budget, target_precision=target_precision, db=db, config=config_path,
+                          progress=_progress_printer("replay"))
+    leads = result.pop("_lead_times")
+    if plot_path:
+        from .report.plot import plot_backtest
+
+        plot_backtest(result, leads, plot_path)
+        click.echo(f"Wrote {plot_path}.", err=True)
+    if fmt == "json":
+        click.echo(json.dumps(result))
+        return
+    from .report.backtest_text import render_backtest
+
+    click.echo(render_backtest(result), nl=False)
+
+
 @main.command()
 @click.option("--dir", "directory", type=click.Path(file_okay=False),
               help="Where to write the scenario and its store. Default: a new temporary directory.")

@@ -52,6 +52,7 @@ class ScanConfig:
     fdr: float = 0.01
     max_alerts: int = 50
     min_change_pct: float = 30.0
+    min_severity: float = 0.0
     dormant_days: int = 91
 
 

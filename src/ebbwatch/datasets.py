@@ -296,14 +296,16 @@ def demo_fleet(n_accounts: int = 300, n_days: int = 425, *, as_of: date = date(2
         ramp = np.clip((t - (end - duration)) / duration, 0, 1)
         factor = np.where(t >= end, 0.0, 1 - 0.75 * ramp)
         counts[a] = _thin(rng, counts[a], factor[:, None])
-        outcomes.append((a, fleet.start + timedelta(days=end), "churned"))
-        stories.append((a, "cancelled earlier", "quiet", f"slid, then cancelled on {fleet.start + timedelta(days=end)}"))
+        cancelled = end + int(rng.integers(20, 46))  # the contract ran out weeks after use stopped
+        outcomes.append((a, fleet.start + timedelta(days=cancelled), "churned"))
+        stories.append((a, "cancelled earlier", "quiet",
+                        f"slid, stopped on {fleet.start + timedelta(days=end)}, cancelled on {fleet.start + timedelta(days=cancelled)}"))
     for a in take(2):  # surged, then upgraded (history for the backtest)
         start = D - int(rng.integers(150, 230))
         extra = rng.poisson(fleet.expected[a, start:, None] * 1.5 * np.array([s for _, s in DEMO_EVENTS]))
         counts[a, start:] += extra
-        outcomes.append((a, fleet.start + timedelta(days=start + 30), "expanded"))
-        stories.append((a, "upgraded earlier", "quiet", f"surged from {fleet.start + timedelta(days=start)}, upgraded 30 days later"))
+        outcomes.append((a, fleet.start + timedelta(days=start + 45), "expanded"))
+        stories.append((a, "upgraded earlier", "quiet", f"surged from {fleet.start + timedelta(days=start)}, upgraded 45 days later"))
     for a in np.flatnonzero(truth["profile"] == "small")[:3]:
         stories.append((int(a), "small, empty weeks are normal", "quiet", "a few events a day, many empty days"))
     for a in np.flatnonzero(truth["profile"] == "seasonal")[:3]:

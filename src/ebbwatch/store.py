@@ -665,6 +665,11 @@ def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds
                 version = int(con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0])
             except duckdb.Error as exc:
                 raise StoreError(f"{path} is not an ebbwatch store") from exc
+            if version < SCHEMA_VERSION and os.access(path, os.W_OK):
+                # An older store: migrate it once with a writable connection, then read.
+                con.close()
+                open_store(path, wait_seconds=wait_seconds).close()
+                return open_store(path, read_only=True, wait_seconds=wait_seconds)
             if version != SCHEMA_VERSION:
                 raise StoreError(
                     f"{path} has schema version {version}; this ebbwatch uses {SCHEMA_VERSION}. "

@@ -35,3 +35,35 @@ def plot_account(info: dict, path: str):
     fig.tight_layout()
     fig.savefig(path)
     plt.close(fig)
+
+
+def plot_backtest(result: dict, lead_times: list, path: str):
+    """Precision against recall over the severity sweep, and the lead-time distribution."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, (left, right) = plt.subplots(1, 2, figsize=(9, 3.4), dpi=110)
+    markers = {"churned": "o", "contracted": "s", "expanded": "^"}
+    for kind in result["outcomes"]:
+        points = [(m["outcomes"][kind]["recall_at_lead"], m["outcomes"][kind]["precision"]) for m in result["sweep"]
+                  if m["outcomes"].get(kind, {}).get("precision") is not None]
+        if points:
+            left.plot([p[0] for p in points], [p[1] for p in points], marker=markers.get(kind, "x"), label=kind)
+    left.set_xlabel("recall at lead", fontsize=8)
+    left.set_ylabel("precision", fontsize=8)
+    left.set_xlim(0, 1.02)
+    left.set_ylim(0, 1.02)
+    left.legend(fontsize=7)
+    left.set_title("severity sweep", fontsize=9)
+    right.hist(lead_times, bins=range(0, result["horizon_days"] + 8, 7), color="#1f4e79")
+    right.axvline(result["lead_days"], color="#d9a441", linestyle="--", label=f"lead {result['lead_days']} d")
+    right.set_xlabel("days from first alert to outcome", fontsize=8)
+    right.set_title("lead times", fontsize=9)
+    right.legend(fontsize=7)
+    for ax in (left, right):
+        ax.tick_params(labelsize=7)
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)

@@ -1,0 +1,180 @@
+"""Backtest: replay the daily scan over history and score its alerts against known outcomes.
+
+Pure functions on arrays and frames (the api reads the store).  Each replayed day sees only the
+columns up to it — the fleet factor included — so nothing from after a day reaches its alerts.
+"""
+
+from __future__ import annotations
+
+from datetime import date, timedelta
+
+import numpy as np
+import pandas as pd
+
+from .alerts import select_alerts
+from .detect import ScanParams, score_panel
+from .series import Panel, fleet_factor
+
+DOWN_OUTCOMES = ("churned", "contracted")
+UP_OUTCOMES = ("expanded",)
+EPOCH = date(1970, 1, 1)
+
+
+def _columns(matrix, start: int, end: int, fill):
+    """Columns ``start .. end`` (inclusive) of ``matrix``, padded with ``fill`` left of column 0."""
+    part = matrix[:, max(start, 0):end + 1]
+    if start < 0:
+        part = np.concatenate([np.full((matrix.shape[0], -start), fill), part], axis=1)
+    return part.copy()
+
+
+def _slice(panel: Panel, start: int, end: int, factor, masked) -> Panel:
+    """Columns ``start .. end`` (inclusive) of ``panel``, exactly as the daily scan would read
+    them (days before the history are missing), with the given fleet factor and mask."""
+    values = _columns(panel.values, start, end, np.nan)
+    counts = _columns(panel.counts, start, end, np.nan)
+    values[:, masked] = np.nan
+    counts[:, masked] = np.nan
+    first = np.minimum(panel.first_seen - start, values.shape[1])
+    return Panel(panel.accounts, panel.start_day + start, values, counts, first, masked, factor)
+
+
+def replay(panel: Panel, as_of_days, *, params: ScanParams = ScanParams(), history_days: int = 365,
+           fdr: float = 0.01, min_change_pct: float = 30.0, outcomes: pd.DataFrame | None = None,
+           fleet_sample: int = 5000, progress=None) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Run the scan's judgement on each day in ``as_of_days`` (day numbers) over ``panel``.
+
+    ``panel`` holds the whole history, without a fleet factor (raw values, NaN before first
+    activity).  Accounts with a ``churned`` outcome on or before a day are left out of that day.
+    Returns ``(alerts, exposure)``: every alert raised (as_of, account, direction, kind,
+    severity), and per day the number of accounts judged.
+    """
+    churn_day = {}
+    if outcomes is not None and len(outcomes):
+        for row in outcomes[outcomes["outcome"] == "churned"].itertuples():
+            day = (row.date - EPOCH).days
+            churn_day[row.account] = min(day, churn_day.get(row.account, day))
+    churn = np.array([churn_day.get(a, np.iinfo(np.int64).max) for a in panel.accounts])
+    step = max(1, len(panel.accounts) // fleet_sample)
+    sample_rows = np.arange(0, len(panel.accounts), step)
+    raw_counts = np.where(np.isnan(panel.counts), 0.0, panel.counts)
+    found, exposure = [], []
+    for i, day in enumerate(as_of_days):
+        end = day - panel.start_day
+        start = end - history_days + 1
+        factor, masked = fleet_factor(_columns(raw_counts[sample_rows], start, end, 0.0))
+        part = _slice(panel, start, end, factor, masked)
+        alive = churn > day
+        keep = np.flatnonzero(alive)
+        part = Panel([panel.accounts[k] for k in keep], part.start_day, part.values[keep], part.counts[keep],
+                     part.first_seen[keep], part.masked, part.fleet_factor)
+        scores = score_panel(part, params)
+        as_of = EPOCH + timedelta(days=int(day))
+        alerts = select_alerts(scores, as_of=as_of, fdr=fdr, max_alerts=None, min_change_pct=min_change_pct,
+                               window_days=params.window_days)
+        exposure.append({"as_of": as_of, "judged": int((scores["status"] == "judged").sum())})
+        if len(alerts):
+            found.append(alerts[["as_of", "account", "direction", "kind", "severity"]])
+        if progress:
+            progress(i + 1, len(as_of_days))
+    columns = ["as_of", "account", "direction", "kind", "severity"]
+    alerts = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=columns)
+    alerts["as_of"] = pd.to_datetime(alerts["as_of"]).dt.date
+    return alerts, pd.DataFrame(exposure)
+
+
+def _episodes(alerts: pd.DataFrame, step_days: int = 1) -> pd.DataFrame:
+    """First days of runs of consecutive replayed alert days, per account and direction."""
+    if alerts.empty:
+        return alerts.assign(start=[])
+    ordered = alerts.sort_values(["account", "direction", "as_of"])
+    days = pd.to_datetime(ordered["as_of"])
+    gap = days.groupby([ordered["account"], ordered["direction"]]).diff().dt.days
+    return ordered[(gap.isna()) | (gap > step_days)]
+
+
+def evaluate(alerts: pd.DataFrame, outcomes: pd.DataFrame, exposure: pd.DataFrame, *, lead_days: int = 30,
+             horizon_days: int = 90, step_days: int = 1) -> dict:
+    """Recall at a lead time, lead-time distribution, precision, false alerts, alerts per day.
+
+    * recall_at_lead: share of outcomes with a matching alert (down for churned/contracted, up for
+      expanded) on a day in [date − horizon, date − lead].
+    * lead times: date minus the first matching alert day in [date − horizon, date].
+    * precision: share of accounts with an alert in that direction that have a matching outcome
+      within ``horizon_days`` after one of their alerts.
+    * false alerts per 100 account-months: alert episodes (runs of consecutive alert days) with
+      no matching outcome within the horizon, over the account-months judged.
+    * alerts_per_day: episodes started per replayed day.
+    """
+    alerts = alerts.copy()
+    alerts["as_of"] = pd.to_datetime(alerts["as_of"])
+    outs = outcomes.copy()
+    outs["date"] = pd.to_datetime(outs["date"])
+    result = {"outcomes": {}}
+    matched_episode = np.zeros(0, bool)
+    episodes = _episodes(alerts, step_days) if len(alerts) else alerts
+    episodes = episodes.assign(as_of=pd.to_datetime(episodes["as_of"])) if len(episodes) else episodes
+    for kind in sorted(set(outs["outcome"])):
+        direction = "up" if kind in UP_OUTCOMES else "down"
+        rows = outs[outs["outcome"] == kind]
+        mine = alerts[alerts["direction"] == direction]
+        hits, leads = 0, []
+        for o in rows.itertuples():
+            a = mine[mine["account"] == o.account]
+            window = a[(a["as_of"] >= o.date - pd.Timedelta(days=horizon_days)) & (a["as_of"] <= o.date)]
+            if len(window):
+                leads.append((o.date - window["as_of"].min()).days)
+            early = window[window["as_of"] <= o.date - pd.Timedelta(days=lead_days)]
+            hits += bool(len(early))
+        alerted = set(mine["account"])
+        with_outcome = 0
+        for account in alerted:
+            a_days = mine.loc[mine["account"] == account, "as_of"]
+            o_days = rows.loc[rows["account"] == account, "date"]
+            if any(((o_days - d).dt.days.between(0, horizon_days)).any() for d in a_days):
+                with_outcome += 1
+        q = np.percentile(leads, [25, 50, 75]) if leads else [None] * 3
+        result["outcomes"][kind] = {
+            "count": int(len(rows)), "recall_at_lead": hits / len(rows) if len(rows) else None,
+            "caught_within_horizon": len(leads), "median_lead_days": None if q[1] is None else float(q[1]),
+            "lead_days_q1": None if q[0] is None else float(q[0]), "lead_days_q3": None if q[2] is None else float(q[2]),
+            "precision": with_outcome / len(alerted) if alerted else None, "alerted_accounts": len(alerted),
+        }
+    false = 0
+    for e in episodes.itertuples() if len(episodes) else []:
+        kinds = UP_OUTCOMES if e.direction == "up" else DOWN_OUTCOMES
+        o = outs[(outs["account"] == e.account) & outs["outcome"].isin(kinds)]
+        if not ((o["date"] - e.as_of).dt.days.between(0, horizon_days)).any():
+            false += 1
+    account_months = exposure["judged"].sum() * step_days / 30.44 if len(exposure) else 0.0
+    result.update({
+        "lead_days": lead_days, "horizon_days": horizon_days, "days_replayed": int(len(exposure)),
+        "alert_episodes": int(len(episodes)), "false_alert_episodes": false,
+        "false_alerts_per_100_account_months": 100 * false / account_months if account_months else None,
+        "alerts_per_day": len(episodes) / len(exposure) if len(exposure) else None,
+    })
+    return result
+
+
+def sweep(alerts, outcomes, exposure, thresholds, **kw) -> list[dict]:
+    """``evaluate`` with only alerts of severity >= each threshold."""
+    out = []
+    for t in thresholds:
+        metrics = evaluate(alerts[alerts["severity"] >= t], outcomes, exposure, **kw)
+        metrics["min_severity"] = float(t)
+        out.append(metrics)
+    return out
+
+
+def calibrate(swept: list[dict], *, budget: float | None = None, target_precision: float | None = None):
+    """The lowest severity threshold meeting an alert budget (episodes a day) or a precision
+    target (over all outcome kinds' alerted accounts); None if none does."""
+    for metrics in sorted(swept, key=lambda m: m["min_severity"]):
+        if budget is not None and metrics["alerts_per_day"] is not None and metrics["alerts_per_day"] > budget:
+            continue
+        if target_precision is not None:
+            values = [v["precision"] for v in metrics["outcomes"].values() if v["precision"] is not None]
+            if not values or min(values) < target_precision:
+                continue
+        return metrics
+    return None

@@ -1,0 +1,136 @@
+"""Backtest: metric definitions, point-in-time honesty, and agreement with the daily scan."""
+
+from datetime import date, timedelta
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import ebbwatch
+from ebbwatch.backtest import evaluate, replay
+from ebbwatch.datasets import make_fleet
+from ebbwatch.series import build_panel
+
+START = date(2026, 1, 1)
+
+
+def alerts(rows):
+    return pd.DataFrame(rows, columns=["as_of", "account", "direction", "kind", "severity"])
+
+
+def outcomes(rows):
+    return pd.DataFrame(rows, columns=["account", "date", "outcome"])
+
+
+EXPOSURE = pd.DataFrame({"as_of": [START + timedelta(days=i) for i in range(100)], "judged": [10] * 100})
+
+
+def test_hand_computed_confusion_table():
+    """Accounts a, b alerted down before churning; c alerted down, never churned; d churned with
+    no alert; e alerted up 50 days before expanding.  By hand: churned recall 2/3, precision
+    2/3 (a, b of a, b, c), expanded recall 1/1 and precision 1/1; one false episode (c) over
+    10 accounts x 100 days = 32.85 account-months."""
+    d = lambda k: START + timedelta(days=k)  # noqa: E731
+    a = alerts([(d(10), "a", "down", "drop", 5), (d(11), "a", "down", "drop", 6), (d(20), "b", "down", "slide", 4),
+                (d(30), "c", "down", "drop", 3), (d(5), "e", "up", "surge", 8)])
+    o = outcomes([("a", d(60), "churned"), ("b", d(70), "churned"), ("d", d(80), "churned"), ("e", d(55), "expanded")])
+    m = evaluate(a, o, EXPOSURE, lead_days=30, horizon_days=90)
+    assert m["outcomes"]["churned"]["recall_at_lead"] == pytest.approx(2 / 3)
+    assert m["outcomes"]["churned"]["precision"] == pytest.approx(2 / 3)
+    assert m["outcomes"]["churned"]["median_lead_days"] == 50  # leads 50 (a) and 50 (b)
+    assert m["outcomes"]["expanded"]["recall_at_lead"] == 1.0 and m["outcomes"]["expanded"]["precision"] == 1.0
+    assert m["alert_episodes"] == 4 and m["false_alert_episodes"] == 1
+    assert m["false_alerts_per_100_account_months"] == pytest.approx(100 / (1000 / 30.44))
+    assert m["alerts_per_day"] == pytest.approx(4 / 100)
+    late = evaluate(a, o, EXPOSURE, lead_days=55, horizon_days=90)
+    assert late["outcomes"]["churned"]["recall_at_lead"] == 0.0  # 50 days of lead is not 55
+
+
+def test_precision_and_recall_match_scikit_learn():
+    """Reference: sklearn.metrics precision_score / recall_score over accounts, with a horizon
+    wide enough that every alert-outcome pair counts and a lead of 0."""
+    from sklearn.metrics import precision_score, recall_score
+
+    rng = np.random.default_rng(3)
+    accounts = [f"a{i}" for i in range(60)]
+    churned = rng.random(60) < 0.3
+    alerted = np.where(churned, rng.random(60) < 0.7, rng.random(60) < 0.2)
+    a = alerts([(START + timedelta(days=5), acc, "down", "drop", 5.0) for acc, x in zip(accounts, alerted) if x])
+    o = outcomes([(acc, START + timedelta(days=50), "churned") for acc, x in zip(accounts, churned) if x])
+    m = evaluate(a, o, EXPOSURE, lead_days=0, horizon_days=365)["outcomes"]["churned"]
+    assert m["precision"] == pytest.approx(precision_score(churned, alerted))
+    assert m["recall_at_lead"] == pytest.approx(recall_score(churned, alerted))
+
+
+def steady_panel(n_accounts=20, n_days=200, stop_account=None, stop_day=None):
+    values = np.full((n_accounts, n_days), 100.0)
+    if stop_account is not None:
+        values[stop_account, stop_day:] = 0.0
+    start = (START - date(1970, 1, 1)).days
+    a, d = np.nonzero(values)
+    return build_panel(a, start + d, values[a, d], values[a, d], values[a, d], accounts=[f"a{i}" for i in range(n_accounts)],
+                       start_day=start, end_day=start + n_days - 1)
+
+
+def test_known_lead_time_is_recovered_exactly_on_noise_free_data():
+    """Constant activity; one account stops on day 150 and cancels on day 190.  Nothing else
+    changes, so the only alerts are that account's, starting within days of the stop (how many
+    days depends on how the fleet-wide BH budget meets the silence's probability), and the lead
+    reported is exactly 190 minus the first alert day."""
+    panel = steady_panel(stop_account=3, stop_day=150)
+    cancel = START + timedelta(days=190)
+    days = list(range(panel.start_day + 100, panel.start_day + 200))
+    found, exposure = replay(panel, days, outcomes=outcomes([("a3", cancel, "churned")]))
+    assert set(found["account"]) == {"a3"}
+    first = min(found["as_of"])
+    assert START + timedelta(days=150) <= first <= START + timedelta(days=153)
+    assert set(found["kind"]) <= {"drop", "stop"} and found.sort_values("as_of")["kind"].iloc[-1] == "stop"
+    assert len(found) == (cancel - first).days  # every day from the first alert until the account leaves
+    m = evaluate(found, outcomes([("a3", cancel, "churned")]), exposure, lead_days=30, horizon_days=90)
+    assert m["outcomes"]["churned"]["median_lead_days"] == (cancel - first).days
+    assert m["outcomes"]["churned"]["recall_at_lead"] == 1.0
+    assert m["false_alert_episodes"] == 0 and m["outcomes"]["churned"]["precision"] == 1.0
+    assert found["as_of"].max() < cancel  # churned accounts leave the replay
+
+
+def test_adding_later_data_never_changes_a_days_alerts():
+    fleet = make_fleet(80, 200, seed=5, share_changed=0.3)
+    totals = fleet.counts.sum(axis=2).astype(float)
+    start = (fleet.start - date(1970, 1, 1)).days
+    def panel_upto(n):
+        a, d = np.nonzero(totals[:, :n])
+        return build_panel(a, start + d, totals[a, d], totals[a, d], totals[a, d], accounts=fleet.account_ids,
+                           start_day=start, end_day=start + n - 1)
+    day = start + 170
+    short, _ = replay(panel_upto(171), [day])
+    full, _ = replay(panel_upto(200), [day])
+    assert len(short) > 0
+    pd.testing.assert_frame_equal(short.reset_index(drop=True), full.reset_index(drop=True))
+
+
+def test_backtest_uses_the_daily_scans_judgement(tmp_path):
+    fleet = make_fleet(80, 200, seed=6, share_changed=0.3)
+    fleet.daily_frame().to_parquet(tmp_path / "d.parquet")
+    db = str(tmp_path / "s.duckdb")
+    ebbwatch.ingest_files([], db=db, daily=str(tmp_path / "d.parquet"))
+    o = tmp_path / "outcomes.csv"
+    o.write_text("account,date,outcome\nacct-01,2026-06-01,churned\n")
+    day = fleet.as_of - timedelta(days=3)
+    result = ebbwatch.backtest(str(o), start=day, end=day, db=db)
+    scan = ebbwatch.scan(db=db, as_of=day, max_alerts=10_000)
+    assert result["days_replayed"] == 1
+    assert result["alert_episodes"] == len(scan)
+    for key in ("lead_days", "horizon_days", "false_alerts_per_100_account_months", "alerts_per_day", "days_replayed", "seconds"):
+        assert key in result
+    for key in ("count", "recall_at_lead", "median_lead_days", "precision"):
+        assert key in result["outcomes"]["churned"]
+
+
+def test_unknown_outcome_kind_names_the_line(tmp_path):
+    from ebbwatch.errors import InputError
+    from ebbwatch.ingest.csvs import read_outcomes
+
+    path = tmp_path / "o.csv"
+    path.write_text("account,date,outcome\na,2026-01-01,churned\nb,2026-01-02,exploded\n")
+    with pytest.raises(InputError, match="line 3.*exploded"):
+        read_outcomes(str(path))
