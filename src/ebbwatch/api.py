@@ -581,6 +581,88 @@ def _lead_list(alerts, outcomes, horizon_days) -> list:
     return leads
 
 
+# -- HTML report -------------------------------------------------------------------------------
+
+def report_data(*, as_of=None, limit: int = 50, db: str | None = None, config=None, today: date | None = None) -> dict:
+    """What the HTML report shows: fleet overview, and per alert a small series with its band."""
+    from .detect.tail import rolling_window
+    from .explain import drivers_phrase
+
+    cfg = _config(config)
+    alerts = scan(as_of=as_of, db=db, config=config, max_alerts=limit, today=today)
+    summary = alerts.attrs["summary"]
+    scores = alerts.attrs["scores"].set_index("account")
+    masked = alerts.attrs["masked"]
+    start_day = alerts.attrs["start_day"]
+    as_of = parse_day(summary["as_of"])
+    with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
+        loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days)
+        loader.fleet_factor, loader.masked = alerts.attrs["fleet_factor"], masked
+        meta = st.accounts().set_index("account")
+        panel = loader(list(alerts["account"])) if len(alerts) else None
+        states = st.alert_log()
+        totals = st.weighted_daily(loader.weights, st.account_ids(), as_of - timedelta(days=27), as_of)
+        all_accounts = st.account_ids()
+    window = cfg.scan.window_days
+    cards = []
+    shown_days = 120
+    for i, alert in enumerate(alerts.to_dict(orient="records")):
+        values = panel.values[i] / panel.fleet_factor
+        series = [None if not np.isfinite(v) else float(v) for v in values[-shown_days:]]
+        row = scores.loc[alert["account"]]
+        # The band: the middle half of the account's reference 7-day levels, in daily units.
+        levels, _ = rolling_window(values[None, :], window)
+        reference_cols = int(row["reference_end_day"]) - start_day - window + 1
+        ref = levels[0, : max(reference_cols, 0)]
+        ref = ref[np.isfinite(ref)]
+        band = (float(np.percentile(ref, 25)), float(np.percentile(ref, 75))) if ref.size else None
+        onset_index = None
+        alert["onset"] = alert["onset"] if isinstance(alert["onset"], str) else None
+        if alert["change_pct"] is not None and not np.isfinite(alert["change_pct"]):
+            alert["change_pct"] = None
+        if alert["onset"]:
+            onset_index = (date.fromisoformat(alert["onset"]) - as_of).days + shown_days - 1
+        events = [d for d in alert["drivers"] if d["type"] == "event"][:2]
+        words = [f"{d['event']} {d['expected']:.0f} expected, {d['observed']:.0f} seen" for d in events]
+        users = [d for d in alert["drivers"] if d["type"] == "user"]
+        if users:
+            words.append(drivers_phrase(users, str))
+        cards.append({
+            "account": alert["account"], "name": alert["name"], "kind": alert["kind"], "direction": alert["direction"],
+            "state": alert["state"], "severity": alert["severity"], "percentile": alert["percentile"],
+            "change": "-" if alert["change_pct"] is None else f"{alert['change_pct']:+.0f}%",
+            "onset": alert["onset"], "series": series, "band": band, "window": window,
+            "onset_index": onset_index, "driver_words": words,
+            "masked": [j for j, m in enumerate(masked[-shown_days:]) if m],
+        })
+    idx, _, value, _, _ = totals
+    activity = np.bincount(idx, weights=value, minlength=len(all_accounts))
+    down = set(alerts.loc[alerts["direction"] == "down", "account"])
+    mrr = meta["mrr"].dropna() if "mrr" in meta else None
+    if mrr is not None and len(mrr) and mrr.sum() > 0:
+        basis, share = "mrr", float(mrr[mrr.index.isin(down)].sum() / mrr.sum())
+    else:
+        in_down = np.array([a in down for a in all_accounts])
+        basis, share = "activity", float(activity[in_down].sum() / max(activity.sum(), 1e-9))
+    latest = states[states["as_of"] == states["as_of"].max()] if len(states) else states
+    by_state = latest["state"].value_counts().to_dict() if len(latest) else alerts["state"].value_counts().to_dict()
+    return {
+        "summary": summary, "n_alerts": len(alerts), "by_kind": alerts["kind"].value_counts().to_dict(),
+        "by_state": by_state, "share_basis": basis, "down_share": share, "cards": cards,
+        "fleet": {"factor": [float(f) for f in alerts.attrs["fleet_factor"]], "masked": [bool(m) for m in masked],
+                  "masked_days": summary["masked_days"]},
+    }
+
+
+def write_report(path: str, **kwargs) -> dict:
+    """Write the self-contained HTML report to ``path``; returns ``report_data``'s dict."""
+    from .report.html import render_report
+
+    data = report_data(**kwargs)
+    Path(path).write_text(render_report(data), encoding="utf-8")
+    return data
+
+
 # -- demo ------------------------------------------------------------------------------------
 
 def run_demo(directory: str | None = None, *, n_accounts: int = 300, n_days: int = 425, seed: int = 7,

@@ -283,6 +283,22 @@ def alerts_command(db, config_path, states, fmt, limit):
     click.echo(render_log(log, fmt), nl=False)
 
 
+@main.command()
+@store_options
+@click.option("--html", "html_path", required=True, type=click.Path(dir_okay=False), help="The HTML file to write.")
+@click.option("--as-of", help="Day to report, YYYY-MM-DD. Default: the last complete day in the store.")
+@click.option("--limit", type=click.IntRange(min=0), default=50, show_default=True, help="At most this many alert cards.")
+@handle_errors
+def report(db, config_path, html_path, as_of, limit):
+    """Write a self-contained HTML report: fleet overview and one chart per alert.
+
+    The file has no scripts and fetches nothing, so it opens offline and can be attached to an
+    email. Every account, user and event name in it is escaped.
+    """
+    data = api.write_report(html_path, as_of=as_of, limit=limit, db=db, config=config_path)
+    click.echo(f"Wrote {html_path}: {data['n_alerts']} alert card(s) as of {data['summary']['as_of']}.", err=True)
+
+
 @main.command("backtest")
 @store_options
 @click.option("--outcomes", required=True, type=click.Path(exists=True, dir_okay=False),

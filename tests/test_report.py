@@ -1,0 +1,118 @@
+"""The HTML report: self-contained, escaped, and rendered by a real browser."""
+
+import re
+import shutil
+import subprocess
+from html.parser import HTMLParser
+
+import pytest
+from click.testing import CliRunner
+
+import ebbwatch
+from ebbwatch.cli import main
+from ebbwatch.datasets import make_fleet
+
+HOSTILE = '<script>alert("x")</script><img src=x onerror=alert(1)> & "Co"'
+HOSTILE_EVENT = "<b>doc.edit</b>"
+
+
+@pytest.fixture(scope="module")
+def report(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("report")
+    fleet = make_fleet(80, 200, seed=41, share_changed=0.3)
+    daily = fleet.daily_frame()
+    daily["event"] = daily["event"].replace({"doc.edit": HOSTILE_EVENT})
+    daily.to_parquet(tmp / "daily.parquet")
+    accounts = fleet.accounts.copy()
+    accounts["name"] = [f"{HOSTILE} {i}" for i in range(len(accounts))]
+    accounts.to_csv(tmp / "accounts.csv", index=False)
+    db = str(tmp / "s.duckdb")
+    ebbwatch.ingest_files([], db=db, daily=str(tmp / "daily.parquet"), accounts=str(tmp / "accounts.csv"))
+    path = tmp / "report.html"
+    result = CliRunner().invoke(main, ["report", "--db", db, "--html", str(path), "--limit", "12"])
+    assert result.exit_code == 0, result.stderr
+    alerts = ebbwatch.scan(db=db, max_alerts=12)
+    return path, path.read_text(), alerts
+
+
+class Collect(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.tags, self.scripts, self.text = [], 0, []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+        self.scripts += tag == "script"
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def test_self_contained_no_scripts_no_fetches(report):
+    _, text, _ = report
+    parsed = Collect()
+    parsed.feed(text)
+    assert parsed.scripts == 0
+    for tag, attrs in parsed.tags:
+        for name in ("src", "href"):
+            assert name not in attrs or attrs[name].startswith("#"), (tag, attrs)
+    assert "@import" not in text and "url(http" not in text
+
+
+def test_data_values_are_escaped(report):
+    _, text, _ = report
+    assert HOSTILE not in text and "<script>" not in text and "<img" not in text and "<b>doc.edit" not in text
+    parsed = Collect()
+    parsed.feed(text)
+    body = "".join(parsed.text)
+    assert HOSTILE in body  # it is shown, as text
+    assert HOSTILE_EVENT in body
+
+
+def test_one_card_per_alert_ranked(report):
+    _, text, alerts = report
+    cards = re.findall(r'<div class="card (?:down|up)" data-account="([^"]+)"', text)
+    assert len(cards) == len(alerts) > 0
+    assert cards == [a.replace("&", "&amp;") for a in alerts["account"]]
+    assert "not a verdict about people" in text and "personal data" in text
+
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+         "--disable-background-networking", "--disable-component-update", "--disable-sync",
+         "--enable-logging=stderr", "--v=0"]
+
+
+def chromium(url, tmp_path, *extra):
+    return subprocess.run([CHROMIUM, *FLAGS, f"--user-data-dir={tmp_path / 'profile'}", *extra, url],
+                          capture_output=True, text=True, timeout=120)
+
+
+def console_errors(stderr: str) -> list:
+    return [line for line in stderr.splitlines() if ":CONSOLE" in line]
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="Chromium is not installed (.ci/run installs Debian's chromium)")
+def test_console_check_catches_errors(tmp_path):
+    # The check below is only worth something if it sees a broken page.
+    bad = tmp_path / "bad.html"
+    bad.write_text("<html><body><script>undefinedFunction()</script></body></html>")
+    assert console_errors(chromium(bad.as_uri(), tmp_path, "--dump-dom").stderr)
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="Chromium is not installed (.ci/run installs Debian's chromium)")
+def test_renders_in_headless_chromium(report, tmp_path):
+    path, _, alerts = report
+    dom = chromium(path.as_uri(), tmp_path, "--dump-dom")
+    assert dom.returncode == 0
+    assert not console_errors(dom.stderr)
+    cards = re.findall(r'<div class="card (?:down|up)"', dom.stdout)
+    assert len(cards) == len(alerts)
+    charts = re.findall(r'<svg class="chart".*?</svg>', dom.stdout, flags=re.S)
+    assert len(charts) == len(alerts) + 1  # one per card and the fleet factor
+    for chart in charts:
+        d = re.search(r'<path d="([^"]*)"', chart).group(1)
+        assert re.match(r"M[\d.]+,[\d.]+(\s*[ML][\d.]+,[\d.]+)+", d), d[:80]
+    shot = tmp_path / "report.png"
+    assert chromium(path.as_uri(), tmp_path, f"--screenshot={shot}", "--window-size=1200,2000").returncode == 0
+    assert shot.stat().st_size > 10_000
