@@ -19,4 +19,5 @@ def test_demo_finds_the_planted_stories(tmp_path):
     assert expect_alert <= alerted
     assert not (expect_quiet & alerted)
     assert "The store is" in result.stderr and (tmp_path / "ebbwatch.duckdb").exists()
+    assert "ebbwatch backtest" in result.stderr and (tmp_path / "report.html").read_text().count("class=\"card ") == len(alerted)
     assert "Rejected 4 lines" in result.stderr

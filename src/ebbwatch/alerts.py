@@ -129,9 +129,11 @@ def alert_message(alert: dict, window_days: int, drivers: str = "") -> str:
         if slid is not None:
             text += f" (trend {slid:+.0f}% over recent weeks)"
     elif alert["kind"] == "drop":
-        text = f"{who}: activity down {abs(change):.0f}% over the last {window_days} days vs its usual level{since}"
+        amount = f"{abs(change):.0f}%" if change is not None else "sharply"
+        text = f"{who}: activity down {amount} over the last {window_days} days vs its usual level{since}"
     else:
-        text = f"{who}: activity up {change:.0f}% over the last {window_days} days vs its usual level{since}"
+        amount = f"{change:.0f}%" if change is not None else "from almost nothing"
+        text = f"{who}: activity up {amount} over the last {window_days} days vs its usual level{since}"
     side = "below" if alert["direction"] == "down" else "above"
     share = alert["percentile"] if side == "below" else 100 - alert["percentile"]
     tail = f"; {drivers}" if drivers else ""

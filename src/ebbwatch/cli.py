@@ -374,9 +374,15 @@ def demo(directory, n_accounts, n_days, seed):
     for row in stories.itertuples():
         mark = "flagged" if row.account in found else "quiet"
         click.echo(f"  {row.account}  {row.story:<30} expect {row.expect:<6} got {mark:<8} {row.detail}")
-    db = str(__import__("pathlib").Path(scenario.directory) / "ebbwatch.duckdb")
-    say(f"\nThe store is {db}. Try next: ebbwatch scan --db {db} --format jsonl ; "
-        f"ebbwatch status --db {db} ; ebbwatch export daily --db {db} -o daily.csv")
+    from pathlib import Path
+
+    db = str(Path(scenario.directory) / "ebbwatch.duckdb")
+    report_path = str(Path(scenario.directory) / "report.html")
+    api.write_report(report_path, db=db, today=scenario.as_of + __import__("datetime").timedelta(days=1))
+    top = alerts["account"].iloc[0] if len(alerts) else scenario.stories["account"].iloc[0]
+    say(f"\nThe store is {db}; the HTML report is {report_path}. Try next: "
+        f"ebbwatch explain {top} --db {db} ; ebbwatch backtest --db {db} --outcomes {scenario.outcomes_csv} --step 7 ; "
+        f"ebbwatch scan --db {db} --format jsonl")
 
 
 if __name__ == "__main__":  # pragma: no cover
