@@ -24,6 +24,9 @@ from .ingest.readers import STDIN, expand_inputs, iter_lines, remove_quietly, sc
 from .ingest.timestamps import parse_rfc3339
 
 Progress = Callable[[str, int, int], None]
+# Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
+# lines may nest deeper than this goes through the precise path so both paths agree.
+MAX_FAST_NESTING = 500
 
 
 def _config(config) -> Config:
@@ -155,13 +158,13 @@ def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_
             staged = st.stage_jsonl_fast(path, cfg.fields, rules.ts_format, rules.max_line_bytes,
                                          rules.earliest_us, rules.latest_us)
         finally:
-            digest, longest_line = scanning.result()
+            digest, longest_line, deepest = scanning.result()
     earlier = st.already_ingested(digest)
     if earlier is not None:
         st.drop_staged()
         result.skipped = f"already ingested (same content as {earlier})"
         return result
-    if staged is not None and longest_line > rules.max_line_bytes:
+    if staged is not None and (longest_line > rules.max_line_bytes or deepest > MAX_FAST_NESTING):
         st.drop_staged()
         staged = None
     if staged is None:
@@ -335,6 +338,7 @@ def scan(
             _add_drivers(st, loader, scores, alerts, as_of, cfg.scan.window_days)
         lifecycle = advance_lifecycle(st.alert_states_before(as_of), alerts, as_of)
         snoozed = st.snoozed_accounts(as_of)
+        history_changed = st.history_changes_since_last_record()
         if record:
             with st.transaction():
                 st.record_alert_day(as_of, lifecycle)
@@ -359,6 +363,7 @@ def scan(
         "snoozed": int(hidden.sum()),
         "resolved_today": int((lifecycle["state"] == "resolved").sum()) if len(lifecycle) else 0,
         "recorded": bool(record),
+        "history_changed": history_changed,
         "masked_days": masked_days,
         "seconds": round(time.perf_counter() - started, 3),
     }

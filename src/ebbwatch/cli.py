@@ -227,6 +227,9 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
             + ".",
             err=True,
         )
+    for change in summary["history_changed"]:
+        click.echo(f"Note: {change['file']} ({change['events']:,} events) arrived after the last recorded scan and "
+                   f"changed days already judged ({change['first_day']} .. {change['last_day']}).", err=True)
     if fail_on_alert and len(alerts):
         sys.exit(EXIT_ALERTS)
 

@@ -155,7 +155,8 @@ def _same_weekday_reference(matrix: np.ndarray, weeks: int = FLEET_LOOKBACK_WEEK
     n_days = matrix.shape[1]
     lagged = np.full((weeks,) + matrix.shape, np.nan)
     for k in range(1, weeks + 1):
-        lagged[k - 1, :, 7 * k:] = matrix[:, : n_days - 7 * k]
+        if 7 * k < n_days:
+            lagged[k - 1, :, 7 * k:] = matrix[:, : n_days - 7 * k]
     lagged.sort(axis=0)
     count = np.isfinite(lagged).sum(axis=0)
     lo = np.take_along_axis(lagged, np.maximum((count - 1) // 2, 0)[None], axis=0)[0]

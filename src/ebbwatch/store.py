@@ -553,6 +553,19 @@ class Store:
                    "quiet_days", "message"]
         return pd.DataFrame(rows, columns=columns)
 
+    def history_changes_since_last_record(self) -> list[dict]:
+        """Files ingested after the last recorded scan that touched days up to that scan's day:
+        the history behind earlier judgements changed."""
+        last = self.con.execute("SELECT max(recorded_at), max(as_of) FROM alert_log").fetchone()
+        if last[0] is None:
+            return []
+        rows = self.con.execute(
+            """SELECT file, CAST(first_day AS VARCHAR), CAST(least(last_day, ?) AS VARCHAR), ingested
+            FROM ingest_log WHERE ingested_at > ? AND first_day <= ? ORDER BY ingested_at""",
+            [last[1], last[0], last[1]],
+        ).fetchall()
+        return [{"file": f, "first_day": a, "last_day": b, "events": int(n)} for f, a, b, n in rows]
+
     def add_snooze(self, account: str, until, reason: str | None):
         self.con.execute("INSERT INTO snoozes VALUES (?, ?, ?, now())", [account, until, reason])
 
@@ -623,12 +636,18 @@ def resolve_path(path: str | None) -> str:
     return str(path or os.environ.get("EBBWATCH_DB") or DEFAULT_PATH)
 
 
-def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds: float = 0.0,
+LOCK_WAIT_SECONDS = 30.0
+
+
+def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds: float | None = None,
                must_exist: bool = False) -> Store:
     """Open (creating and migrating if needed) the store at ``path``.
 
-    ``wait_seconds``: how long to keep retrying while another process holds the store's lock.
+    DuckDB lets one process write a file and no other process open it meanwhile, so a scan or a
+    second ingest started during an ingest waits for it, up to ``wait_seconds`` (default
+    ``LOCK_WAIT_SECONDS``), then fails with a message saying so.
     """
+    wait_seconds = LOCK_WAIT_SECONDS if wait_seconds is None else wait_seconds
     path = resolve_path(path)
     p = Path(path)
     if (read_only or must_exist) and not p.exists():
@@ -649,8 +668,8 @@ def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds
                     time.sleep(0.2)
                     continue
                 raise StoreError(
-                    f"the store {path} is in use by another ebbwatch process (an ingest is probably "
-                    "running); try again when it finishes"
+                    f"the store {path} is in use by another process (an ingest is probably running); "
+                    f"waited {wait_seconds:.0f} s. Try again when it finishes."
                 ) from exc
             raise StoreError(f"cannot open the store {path}: {exc}") from exc
         except duckdb.Error as exc:

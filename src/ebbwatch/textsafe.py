@@ -5,6 +5,7 @@ from __future__ import annotations
 import re
 
 _CONTROL = re.compile(r"[\x00-\x1f\x7f\u2028\u2029]")
+_MENTION = re.compile("@(?!\u200b)")
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 
@@ -13,12 +14,16 @@ def plain_text(value) -> str:
     link syntax (``@here``, ``<!channel>``, ``<url|text>``) is broken with a zero-width space."""
     text = _CONTROL.sub(" ", str(value))
     text = text.replace("<", "\u2039").replace(">", "\u203a")
-    return text.replace("@", "@\u200b")
+    return _MENTION.sub("@\u200b", text)
 
 
 def csv_cell(value):
     """A CSV cell that a spreadsheet will not run as a formula (OWASP CSV injection advice:
-    prefix a leading =, +, -, @, tab or CR with a single quote)."""
-    if isinstance(value, str) and value.startswith(_FORMULA_START):
-        return "'" + value
+    prefix a leading =, +, -, @, tab or CR with a single quote), with control characters
+    (newlines, escape sequences) replaced by spaces so a row stays one line.  JSON output keeps
+    values exactly."""
+    if isinstance(value, str):
+        if value.startswith(_FORMULA_START):
+            value = "'" + value
+        return _CONTROL.sub(" ", value)
     return value

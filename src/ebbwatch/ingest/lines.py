@@ -73,7 +73,9 @@ def parse_line(raw: bytes, rules: LineRules) -> tuple[int, str, str, str | None,
     try:
         # NaN and Infinity are not JSON (RFC 8259): refuse them rather than let Python accept them.
         obj = json.loads(text, parse_constant=_reject_constant)
-    except (ValueError, RecursionError) as exc:
+    except RecursionError:
+        raise LineRejected("not_json", "nested too deeply for the JSON parser") from None
+    except ValueError as exc:
         raise LineRejected("not_json", str(exc)[:80]) from None
     if not isinstance(obj, dict):
         raise LineRejected("not_object", type(obj).__name__)

@@ -50,16 +50,34 @@ def spool_stdin(stream=None) -> str:
 
 
 class _LongestLine:
-    """Tracks the longest line (bytes, without its terminator) across blocks of a stream."""
+    """Tracks the longest line (bytes, without its terminator) and the deepest bracket nesting
+    of any line (counting brackets inside strings too, so it can only over-estimate) across
+    blocks of a stream."""
 
     def __init__(self):
         self.longest = 0
         self.current = 0  # length of the unfinished line carried into the next block
+        self.deepest = 0
+        self.depth = 0  # nesting carried into the next block
+
+    def _feed_depth(self, data: np.ndarray):
+        delta = (np.isin(data, (91, 123)).astype(np.int32) - np.isin(data, (93, 125)).astype(np.int32))
+        newline = data == 10
+        level = np.cumsum(delta) + self.depth
+        # Depth restarts at 0 after each newline: subtract the level reached at the last one.
+        marks = np.where(newline, np.arange(data.size), -1)
+        last = np.maximum.accumulate(marks)
+        base = np.where(last >= 0, level[np.maximum(last, 0)], 0)
+        depth = level - base
+        self.deepest = max(self.deepest, int(depth.max(initial=0)))
+        self.depth = int(depth[-1])
 
     def feed(self, block: bytes):
         if not block:
             return
-        newlines = np.flatnonzero(np.frombuffer(block, dtype=np.uint8) == 10)
+        data = np.frombuffer(block, dtype=np.uint8)
+        self._feed_depth(data)
+        newlines = np.flatnonzero(data == 10)
         if newlines.size == 0:
             self.current += len(block)
             return
@@ -72,10 +90,11 @@ class _LongestLine:
         return max(self.longest, self.current)
 
 
-def scan_file(path: str) -> tuple[str, int]:
-    """One pass over a file: its SHA-256 (of the bytes as stored) and its longest line in bytes
-    (of the decompressed text for gzip).  DuckDB's reader does not enforce a per-line size limit
-    on its own, so the fast path relies on this."""
+def scan_file(path: str) -> tuple[str, int, int]:
+    """One pass over a file: its SHA-256 (of the bytes as stored), its longest line in bytes and
+    an upper bound of its deepest bracket nesting (of the decompressed text for gzip).  DuckDB's
+    reader enforces neither a per-line size limit nor Python's nesting limit, so the fast path
+    relies on these to send such files to the precise path."""
     digest = hashlib.sha256()
     longest = _LongestLine()
     try:
@@ -99,7 +118,7 @@ def scan_file(path: str) -> tuple[str, int]:
         raise InputError(f"cannot read {path}: not a valid gzip file ({exc})") from exc
     except OSError as exc:
         raise InputError(f"cannot read {path}: {exc.strerror or exc}") from exc
-    return digest.hexdigest(), longest.result()
+    return digest.hexdigest(), longest.result(), longest.deepest
 
 
 def sha256_of(path: str) -> str:
