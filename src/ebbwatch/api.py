@@ -94,7 +94,8 @@ def ingest_files(
     # Read and check the reference files before touching the store, so a bad one writes nothing.
     account_frame = csvs.read_accounts(accounts) if accounts else None
     identity_frame = csvs.read_identities(identities) if identities else None
-    daily_frame = csvs.read_daily(daily) if daily else None
+    if daily is not None and not Path(daily).is_file():
+        raise InputError(f"no such file: {daily}")
     files = expand_inputs(list(inputs))
     summary = {
         "files": 0, "lines": 0, "ingested": 0, "duplicates": 0, "rejected": {}, "unattributed": {},
@@ -105,15 +106,18 @@ def ingest_files(
     rejects_path = rejects_path or str(Path(db_path).with_suffix("")) + ".rejects.jsonl"
     all_rejects: list[Reject] = []
     with store_mod.open_store(db_path) as st:
+        problem = st.check_daily_file(daily) if daily is not None else None
+        if problem:
+            raise InputError(problem)
         if account_frame is not None:
             with st.transaction():
                 summary["accounts_loaded"] = st.upsert_accounts(account_frame)
         if identity_frame is not None:
             with st.transaction():
                 summary["identities_loaded"] = st.replace_identities(identity_frame)
-        if daily_frame is not None:
+        if daily is not None:
             with st.transaction():
-                summary["daily_rows_loaded"] = st.load_daily(daily_frame)
+                summary["daily_rows_loaded"] = st.load_daily_file(daily)
         for position, item in enumerate(files, start=1):
             display = "<stdin>" if item == STDIN else item
             path = spool_stdin(stdin) if item == STDIN else item

@@ -12,7 +12,6 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..frames import DAILY_INPUT_COLUMNS
 
 
 def _read_csv(path: str, required: tuple[str, ...]) -> pd.DataFrame:
@@ -114,40 +113,6 @@ def read_identities(path: str) -> pd.DataFrame:
             f"{_where(path, i)}: user {out['user'][i]!r} has overlapping identity intervals; "
             "a user belongs to one account at a time"
         )
-    return out
-
-
-def read_daily(path: str) -> pd.DataFrame:
-    """Pre-aggregated daily counts: CSV or Parquet with ``account,day,event,count[,users]``."""
-    suffix = Path(path).suffix.lower()
-    try:
-        if suffix in (".parquet", ".pq"):
-            frame = pd.read_parquet(path)
-        else:
-            frame = pd.read_csv(path, dtype={"account": str, "event": str}, keep_default_na=False)
-    except (OSError, ValueError) as exc:
-        raise InputError(f"cannot read {path}: {exc}") from exc
-    missing = [c for c in DAILY_INPUT_COLUMNS if c not in frame.columns]
-    if missing:
-        raise InputError(f"{path}: missing column(s) {', '.join(missing)}; expected account,day,event,count[,users]")
-    days = pd.to_datetime(frame["day"], errors="coerce", format="ISO8601")
-    if days.isna().any():
-        i = days.isna().idxmax()
-        raise InputError(f"{_where(path, i)}: day must be a date (YYYY-MM-DD), got {frame['day'][i]!r}")
-    counts = pd.to_numeric(frame["count"], errors="coerce")
-    bad = counts.isna() | (counts < 0) | (counts != np.floor(counts))
-    if bad.any():
-        i = bad.idxmax()
-        raise InputError(f"{_where(path, i)}: count must be a whole number >= 0, got {frame['count'][i]!r}")
-    out = pd.DataFrame(
-        {"account": frame["account"].astype(str), "day": days.dt.date, "event": frame["event"].astype(str),
-         "count": counts.astype(np.int64)}
-    )
-    if "users" in frame.columns:
-        users = pd.to_numeric(frame["users"], errors="coerce")
-        out["users"] = users.astype("Int64")
-    else:
-        out["users"] = pd.array([pd.NA] * len(out), dtype="Int64")
     return out
 
 
