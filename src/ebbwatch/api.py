@@ -292,6 +292,44 @@ class PanelLoader:
                            fleet_factor=self.fleet_factor, masked=self.masked)
 
 
+def score_parquet_chunk(accounts, *, path, start_day, end_day, normalise, seats, fleet_factor, masked, params):
+    """Score one chunk of accounts from the Parquet export (what a Dask worker runs)."""
+    import pyarrow.parquet as pq
+
+    from .detect import score_panel
+    from .series import build_panel
+
+    table = pq.read_table(path, filters=[("account", ">=", accounts[0]), ("account", "<=", accounts[-1])])
+    frame = table.to_pandas()
+    position = {a: i for i, a in enumerate(accounts)}
+    frame = frame[frame["account"].isin(position)]
+    index = frame["account"].map(position).to_numpy()
+    panel = build_panel(index, frame["day"].to_numpy(), frame["value"].to_numpy(float), frame["events"].to_numpy(float),
+                        frame["users"].to_numpy(float), accounts=list(accounts), start_day=start_day, end_day=end_day,
+                        normalise=normalise, seats=np.array([seats.get(a, np.nan) for a in accounts], float),
+                        fleet_factor=fleet_factor, masked=masked)
+    return score_panel(panel, params)
+
+
+def _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress, workdir=None):
+    import functools
+    import tempfile
+
+    from .engine.dask import dask_client, run_dask
+
+    with tempfile.TemporaryDirectory(prefix="ebbwatch-dask-", dir=workdir) as tmp:
+        path = str(Path(tmp) / "scan-input.parquet")
+        start = date(1970, 1, 1) + timedelta(days=loader.start_day)
+        end = date(1970, 1, 1) + timedelta(days=loader.end_day)
+        st.export_scan_input(path, loader.weights, start, end)
+        seats = {a: s for a, s in loader.seats.items() if s == s}
+        task = functools.partial(score_parquet_chunk, path=path, start_day=loader.start_day, end_day=loader.end_day,
+                                 normalise=loader.cfg.index.normalise, seats=seats, fleet_factor=loader.fleet_factor,
+                                 masked=loader.masked, params=params)
+        with dask_client(scheduler) as client:
+            return run_dask(accounts, task, chunk_size=chunk_size, client=client, progress=progress)
+
+
 def scan(
     *,
     as_of=None,
@@ -305,6 +343,8 @@ def scan(
     record: bool = False,
     show: str = "all",
     drivers: bool = True,
+    engine: str = "local",
+    scheduler: str | None = None,
 ):
     """Judge every account at ``as_of`` (default: the last complete day) and return the alerts.
 
@@ -312,8 +352,13 @@ def scan(
     holds the counts (accounts judged, not enough history, dormant, masked days) and
     ``.attrs["scores"]`` the per-account scores.  ``record`` writes the day's alert states to
     the store (the daily job does; a look at a past day does not).  ``show``: ``all`` open
-    alerts, or only ``new`` and escalated ones; snoozed accounts are never shown.
+    alerts, or only ``new`` and escalated ones; snoozed accounts are never shown.  ``engine``:
+    ``local`` (chunks in this process) or ``dask`` (chunks on a cluster: ``scheduler`` is
+    ``local[:N]`` or a scheduler address; workers read a Parquet export of the store, so they
+    need the same filesystem).
     """
+    if engine not in ("local", "dask"):
+        raise UsageError(f"unknown engine {engine!r}; expected local or dask")
     from .alerts import advance_lifecycle, alert_message, select_alerts
     from .detect import score_panel
     from .engine import run_local
@@ -331,8 +376,11 @@ def scan(
             raise InputError("the store has no accounts yet; ingest events or --daily first")
         loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days).fit_fleet(accounts)
         params = _scan_params(cfg)
-        scores = run_local(accounts, loader, lambda panel: score_panel(panel, params),
-                           chunk_size=chunk_size, progress=progress)
+        if engine == "dask":
+            scores = _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress)
+        else:
+            scores = run_local(accounts, loader, lambda panel: score_panel(panel, params),
+                               chunk_size=chunk_size, progress=progress)
         alerts = select_alerts(
             scores, as_of=as_of, names=loader.names, window_days=cfg.scan.window_days, fdr=cfg.scan.fdr,
             max_alerts=cfg.scan.max_alerts if max_alerts is None else max_alerts,

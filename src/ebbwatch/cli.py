@@ -194,8 +194,11 @@ def export_daily(db, config_path, fmt, output):
 @click.option("--all", "show_all", is_flag=True, help="Print every open alert, not only new and escalated ones.")
 @click.option("--record/--no-record", default=None,
               help="Record the day's alert states. Default: record when --as-of is not given.")
+@click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
+              help="dask: score account chunks on a Dask cluster (pip install 'ebbwatch[dask]').")
+@click.option("--scheduler", help="With --engine dask: local[:N] (N worker processes here) or a scheduler address.")
 @handle_errors
-def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, record):
+def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, record, engine, scheduler):
     """Judge every account's recent days against its own history and print ranked alerts.
 
     Kinds: drop (a sudden fall), stop (no activity, unusual for the account), slide (a gradual
@@ -213,7 +216,7 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
     record = (as_of is None) if record is None else record
     alerts = api.scan(as_of=as_of, db=db, config=config_path, kinds=list(kinds) or None,
                       max_alerts=max_alerts, chunk_size=chunk_size, progress=_progress_printer("scan"),
-                      record=record, show="all" if show_all else "new")
+                      record=record, show="all" if show_all else "new", engine=engine, scheduler=scheduler)
     from .report import render_alerts
 
     summary = alerts.attrs["summary"]

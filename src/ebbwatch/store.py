@@ -497,6 +497,25 @@ class Store:
     def last_day(self):
         return self.con.execute("SELECT max(day) FROM daily").fetchone()[0]
 
+    def export_scan_input(self, path: str, event_weights: dict[str, float], start_day, end_day) -> int:
+        """Write the weighted daily rows the scan reads (account, day number, value, events, users)
+        to a Parquet file sorted by account, for engines that read partitions themselves."""
+        weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
+        self.con.register("event_weights", weights)
+        try:
+            self.con.execute(
+                f"""COPY (SELECT d.account, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
+                            sum(d.events * e.weight) AS value, CAST(sum(d.events) AS DOUBLE) AS events,
+                            CAST(COALESCE(max(d.users), 0) AS DOUBLE) AS users
+                     FROM daily d JOIN event_weights e ON e.event = d.event
+                     WHERE d.day BETWEEN ? AND ? AND e.weight > 0 GROUP BY ALL ORDER BY d.account, day)
+                TO {quote_literal(path)} (FORMAT parquet, ROW_GROUP_SIZE 100000)""",
+                [start_day, end_day],
+            ).fetchall()
+        finally:
+            self.con.unregister("event_weights")
+        return 1
+
     def weighted_daily(self, event_weights: dict[str, float], accounts: list[str], start_day, end_day):
         """Weighted event totals per account and day, for ``accounts`` and days in [start, end].
 
@@ -676,6 +695,7 @@ def resolve_path(path: str | None) -> str:
 
 
 LOCK_WAIT_SECONDS = 30.0
+MEMORY_LIMIT = "4GB"
 
 
 def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds: float | None = None,
@@ -716,6 +736,8 @@ def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds
     try:
         # Instants are compared and printed in UTC whatever the machine's zone.
         con.execute("SET TimeZone = 'UTC'")
+        # Bounded memory: past this DuckDB spills to a temporary directory beside the store.
+        con.execute(f"SET memory_limit = '{MEMORY_LIMIT}'")
         if not read_only:
             _migrate(con, path)
         else:

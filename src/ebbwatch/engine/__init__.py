@@ -1,4 +1,7 @@
-"""Execution of the same pure functions over blocks of accounts: locally, or on Dask."""
+"""Execution of the same pure functions over blocks of accounts: locally, or on Dask.
+
+``engine.dask`` is imported only when the Dask engine is asked for.
+"""
 
 from .local import chunked, run_local
 
