@@ -43,6 +43,11 @@ def store_options(func):
     return func
 
 
+def _emit(document: dict, fmt: str, render):
+    """One JSON object on stdout for ``--format json``, else the text ``render`` makes."""
+    click.echo(json.dumps(document) if fmt == "json" else render(document), nl=fmt == "json")
+
+
 def _is_tty(stream) -> bool:
     try:
         return stream.isatty()
@@ -253,12 +258,9 @@ def explain_command(account, db, config_path, as_of, fmt, plot_path):
 
         plot_account(info, plot_path)
         click.echo(f"Wrote {plot_path}.", err=True)
-    if fmt == "json":
-        click.echo(json.dumps(info))
-        return
     from .report.explain_text import render_explanation
 
-    click.echo(render_explanation(info), nl=False)
+    _emit(info, fmt, render_explanation)
 
 
 @main.command()
@@ -339,12 +341,9 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
 
         plot_backtest(result, leads, plot_path)
         click.echo(f"Wrote {plot_path}.", err=True)
-    if fmt == "json":
-        click.echo(json.dumps(result))
-        return
     from .report.backtest_text import render_backtest
 
-    click.echo(render_backtest(result), nl=False)
+    _emit(result, fmt, render_backtest)
 
 
 @main.command()

@@ -581,9 +581,7 @@ class Store:
             QUALIFY row_number() OVER (PARTITION BY account, direction ORDER BY as_of DESC) = 1""",
             [as_of],
         ).fetchall()
-        columns = ["as_of", "account", "direction", "kind", "state", "severity", "peak_severity", "opened",
-                   "quiet_days", "message"]
-        return pd.DataFrame(rows, columns=columns)
+        return pd.DataFrame(rows, columns=ALERT_LOG_COLUMNS)
 
     def record_alert_day(self, as_of, rows: pd.DataFrame):
         """Replace the log rows of ``as_of`` (so recording the same day twice changes nothing)."""
@@ -607,9 +605,7 @@ class Store:
             query += " WHERE state IN (SELECT unnest(?))"
             params.append(list(states))
         rows = self.con.execute(query + " ORDER BY as_of DESC, severity DESC NULLS LAST, account", params).fetchall()
-        columns = ["as_of", "account", "direction", "kind", "state", "severity", "peak_severity", "opened",
-                   "quiet_days", "message"]
-        return pd.DataFrame(rows, columns=columns)
+        return pd.DataFrame(rows, columns=ALERT_LOG_COLUMNS)
 
     def history_changes_since_last_record(self) -> list[dict]:
         """Files ingested after the last recorded scan that touched days up to that scan's day:
@@ -694,6 +690,8 @@ def resolve_path(path: str | None) -> str:
     return str(path or os.environ.get("EBBWATCH_DB") or DEFAULT_PATH)
 
 
+ALERT_LOG_COLUMNS = ["as_of", "account", "direction", "kind", "state", "severity", "peak_severity", "opened",
+                     "quiet_days", "message"]
 LOCK_WAIT_SECONDS = 30.0
 MEMORY_LIMIT = "4GB"
 
