@@ -441,26 +441,28 @@ BASELINE_DRIVER_DAYS = 56
 
 
 def _add_drivers(st, loader, scores, alerts, as_of, window_days):
-    """Fill the ``drivers`` column and extend each ``message`` with a short clause."""
+    """Fill the ``drivers`` column and extend each ``message`` with a short clause (the rows of
+    all alerted accounts are read in two queries)."""
     from .alerts import alert_message
     from .explain import drivers_phrase, event_drivers, user_drivers
     from .textsafe import plain_text
 
     by_account = scores.set_index("account")
     end = (as_of - date(1970, 1, 1)).days
+    first_needed = max(int(by_account.loc[list(alerts["account"]), "reference_end_day"].min()) - BASELINE_DRIVER_DAYS,
+                       loader.start_day)
+    events, users = st.accounts_activity(list(alerts["account"]), date(1970, 1, 1) + timedelta(days=first_needed), as_of)
+    events_by, users_by = dict(list(events.groupby("account"))), dict(list(users.groupby("account")))
+    empty_events, empty_users = events.iloc[:0], users.iloc[:0]
+    window = _period_days(end - window_days + 1, end, loader.masked, loader.start_day)
     driver_lists, messages = [], []
     for alert in alerts.to_dict(orient="records"):
-        row = by_account.loc[alert["account"]]
-        reference_end = int(row["reference_end_day"])
-        window_start = end - window_days + 1
+        reference_end = int(by_account.loc[alert["account"], "reference_end_day"])
         baseline = _period_days(max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day), reference_end - 1,
                                 loader.masked, loader.start_day)
-        window = _period_days(window_start, end, loader.masked, loader.start_day)
-        first = baseline[0] if baseline else as_of
-        events = st.account_event_days(alert["account"], first, as_of)
-        users = st.account_user_days(alert["account"], first, as_of)
-        found = event_drivers(events, loader.weights, baseline, window)[:5]
-        found += user_drivers(users, loader.weights, baseline, window, alert["direction"])
+        found = event_drivers(events_by.get(alert["account"], empty_events), loader.weights, baseline, window)[:5]
+        found += user_drivers(users_by.get(alert["account"], empty_users), loader.weights, baseline, window,
+                              alert["direction"])
         driver_lists.append(found)
         messages.append(alert_message(alert, window_days, drivers_phrase(found, plain_text)))
     alerts["drivers"] = driver_lists

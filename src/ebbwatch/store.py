@@ -632,6 +632,25 @@ class Store:
         return {a: (u, r) for a, u, r in rows}
 
     # -- drivers ---------------------------------------------------------------------------
+    def accounts_activity(self, accounts: list[str], start_day, end_day) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """For several accounts at once: rows ``account, day, event, events`` and ``account,
+        day, user, event, events`` in [start_day, end_day] (days as datetime.date)."""
+        wanted = pd.DataFrame({"account": list(dict.fromkeys(accounts))})
+        self.con.register("driver_accounts", wanted)
+        try:
+            lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
+            events = self.con.execute(
+                """SELECT d.account, d.day, d.event, d.events FROM daily d SEMI JOIN driver_accounts w ON w.account = d.account
+                WHERE d.day BETWEEN ? AND ? AND d.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).fetchall()
+            users = self.con.execute(
+                """SELECT u.account, u.day, u."user", u.event, u.events FROM user_daily u
+                SEMI JOIN driver_accounts w ON w.account = u.account
+                WHERE u.day BETWEEN ? AND ? AND u.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).fetchall()
+        finally:
+            self.con.unregister("driver_accounts")
+        return (pd.DataFrame(events, columns=["account", "day", "event", "events"]),
+                pd.DataFrame(users, columns=["account", "day", "user", "event", "events"]))
+
     def account_event_days(self, account: str, start_day, end_day) -> pd.DataFrame:
         """Rows ``day`` (datetime.date), ``event``, ``events`` of one account."""
         rows = self.con.execute(

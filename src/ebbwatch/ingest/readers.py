@@ -49,42 +49,45 @@ def spool_stdin(stream=None) -> str:
     return handle.name
 
 
+# A line nesting deeper than N needs at least 2N bytes, so only lines this long are counted.
+_DEPTH_CHECK_BYTES = 1000
+
+
+def _opens(data: bytes) -> int:
+    return data.count(b"[") + data.count(b"{")
+
+
 class _LongestLine:
-    """Tracks the longest line (bytes, without its terminator) and the deepest bracket nesting
-    of any line (counting brackets inside strings too, so it can only over-estimate) across
-    blocks of a stream."""
+    """Tracks the longest line (bytes, without its terminator) and, for lines long enough to
+    nest deeply, the most opening brackets on one line — an upper bound of the nesting depth —
+    across blocks of a stream."""
 
     def __init__(self):
         self.longest = 0
         self.current = 0  # length of the unfinished line carried into the next block
         self.deepest = 0
-        self.depth = 0  # nesting carried into the next block
-
-    def _feed_depth(self, data: np.ndarray):
-        delta = (np.isin(data, (91, 123)).astype(np.int32) - np.isin(data, (93, 125)).astype(np.int32))
-        newline = data == 10
-        level = np.cumsum(delta) + self.depth
-        # Depth restarts at 0 after each newline: subtract the level reached at the last one.
-        marks = np.where(newline, np.arange(data.size), -1)
-        last = np.maximum.accumulate(marks)
-        base = np.where(last >= 0, level[np.maximum(last, 0)], 0)
-        depth = level - base
-        self.deepest = max(self.deepest, int(depth.max(initial=0)))
-        self.depth = int(depth[-1])
+        self.opens = 0  # opening brackets of the unfinished line, if it is long
 
     def feed(self, block: bytes):
         if not block:
             return
-        data = np.frombuffer(block, dtype=np.uint8)
-        self._feed_depth(data)
-        newlines = np.flatnonzero(data == 10)
+        newlines = np.flatnonzero(np.frombuffer(block, dtype=np.uint8) == 10)
         if newlines.size == 0:
             self.current += len(block)
+            self.opens += _opens(block)
+            self.deepest = max(self.deepest, self.opens)
             return
-        first = self.current + int(newlines[0])
-        inner = int(np.diff(newlines).max()) - 1 if newlines.size > 1 else 0
-        self.longest = max(self.longest, first, inner)
-        self.current = len(block) - int(newlines[-1]) - 1
+        starts = np.concatenate([[0], newlines[:-1] + 1])
+        lengths = newlines - starts
+        first = self.current + int(lengths[0])
+        self.longest = max(self.longest, first, int(lengths[1:].max()) if lengths.size > 1 else 0)
+        if first >= _DEPTH_CHECK_BYTES:
+            self.deepest = max(self.deepest, self.opens + _opens(block[: newlines[0]]))
+        for i in np.flatnonzero(lengths[1:] >= _DEPTH_CHECK_BYTES) + 1:
+            self.deepest = max(self.deepest, _opens(block[starts[i]: newlines[i]]))
+        tail = block[newlines[-1] + 1:]
+        self.current = len(tail)
+        self.opens = _opens(tail)
 
     def result(self) -> int:
         return max(self.longest, self.current)
