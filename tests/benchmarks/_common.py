@@ -11,11 +11,13 @@ import textwrap
 def run_measured(code: str) -> dict:
     """Run Python ``code`` in a fresh interpreter; it must print one JSON object as its last line.
 
-    Adds ``peak_rss_mb`` (the child's maximum resident set size, from getrusage).
+    Adds ``peak_rss_mb``: the child's peak resident set (VmHWM from /proc/self/status; Linux's
+    getrusage high-water mark survives exec, so it would include the parent's size at fork).
     """
     wrapper = textwrap.dedent(code) + textwrap.dedent("""
-        import resource as _r, json as _j
-        print(_j.dumps({**RESULT, "peak_rss_mb": _r.getrusage(_r.RUSAGE_SELF).ru_maxrss / 1024}))
+        import json as _j, re as _re
+        _hwm = int(_re.search(r"VmHWM:\\s+(\\d+)", open("/proc/self/status").read()).group(1))
+        print(_j.dumps({**RESULT, "peak_rss_mb": _hwm / 1024}))
     """)
     out = subprocess.run([sys.executable, "-c", wrapper], capture_output=True, text=True)
     if out.returncode != 0:
