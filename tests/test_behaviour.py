@@ -7,7 +7,7 @@ import pytest
 
 from ebbwatch.alerts import select_alerts
 from ebbwatch.datasets import make_fleet
-from ebbwatch.detect import ScanParams, score_panel
+from ebbwatch.detect import SCORE_COLUMNS, ScanParams, score_panel
 from ebbwatch.series import build_panel, fleet_factor
 
 AS_OF = date(2026, 3, 31)
@@ -24,6 +24,7 @@ def judge(totals: np.ndarray, as_of: date = AS_OF, **kw):
     panel = build_panel(a, start + d, totals[a, d], totals[a, d], totals[a, d], accounts=ids,
                         start_day=start, end_day=end, fleet_factor=factor, masked=masked)
     scores = score_panel(panel, ScanParams())
+    assert tuple(scores.columns) == SCORE_COLUMNS  # the frame that crosses into alerts, declared once
     return scores.set_index("account"), select_alerts(scores, as_of=as_of, max_alerts=None, **kw)
 
 

@@ -4,18 +4,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-# Staged events, as the ingester hands them to the store: one row per valid line.
-EVENT_COLUMNS = ("ts", "event", "user", "account", "id")
-
-# The daily input (warehouse aggregates) and the daily export.
-DAILY_INPUT_COLUMNS = ("account", "day", "event", "count")
-DAILY_OPTIONAL_COLUMNS = ("users",)
-DAILY_EXPORT_COLUMNS = ("account", "day", "event", "events", "users")
-
-ACCOUNT_COLUMNS = ("account", "name", "seats", "segment", "timezone", "mrr")
-IDENTITY_COLUMNS = ("user", "account", "valid_from", "valid_to")
-OUTCOME_COLUMNS = ("account", "date", "outcome")
-
 # One alert as the scan returns it (the JSON-lines schema; README documents each key).
 ALERT_COLUMNS = (
     "account",

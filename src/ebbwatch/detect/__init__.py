@@ -18,9 +18,6 @@ from .silence import last_active_column, silence
 from .tail import reference_mask, rolling_window
 from .trend import step_or_ramp, trend_test
 
-STATUS = ("judged", "not_enough_history", "dormant")
-
-
 def sustained_change(values, factors, breakpoints, lookback: int = 56):
     """Of the candidate ``breakpoints`` (columns), the one where activity changed for good.
 
@@ -110,7 +107,8 @@ def _level_tails(values, counts, factors, first_seen, reference_end, window, par
 def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame:
     """Score the last column of ``panel`` (the as-of day) for every account in it.
 
-    Returns a frame with ``SCORE_COLUMNS``, one row per account.  ``p_down``/``p_up`` are
+    Returns a frame with ``SCORE_COLUMNS``, one row per account; ``status`` is ``judged``,
+    ``not_enough_history`` or ``dormant``.  ``p_down``/``p_up`` are
     per-account p-values (Bonferroni over the downward tests: level, trend, silence), not yet
     corrected across accounts.  Levels are in activity-index units per day, deseasonalised.
     """
