@@ -1,7 +1,6 @@
 """A small version of the planted-truth accuracy benchmark (tests/benchmarks/accuracy.py), with
 thresholds a little below the benchmark's targets, so a regression in detection fails CI."""
 
-import numpy as np
 import pytest
 
 import ebbwatch

@@ -76,7 +76,6 @@ def test_bad_settings_fail_in_fit(model, fit, data, fitted):
 def test_weekday_profile_recovers_planted_factors():
     shape = np.array([1.2, 1.2, 1.2, 1.2, 1.0, 0.1, 0.1])
     shape /= shape.mean()
-    days = 7 * 40
     x = np.tile(shape, 40)[None, :] * 200
     model = WeekdayProfile(shrink_weeks=0).fit(x, first_weekday=0)
     np.testing.assert_allclose(model.factors_[0], shape, rtol=1e-9)

@@ -3,7 +3,6 @@
 from datetime import date, timedelta
 
 import numpy as np
-import pytest
 
 from ebbwatch.alerts import select_alerts
 from ebbwatch.datasets import make_fleet

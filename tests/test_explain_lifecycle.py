@@ -144,7 +144,6 @@ def test_jsonl_schema_is_pinned(store):
 def test_hostile_account_name_is_inert_in_message_csv_and_markdown(store):
     fleet, db = store
     alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, show="all")
-    hostile = fleet.account_ids[0]
     from ebbwatch.report import render_alerts
     from ebbwatch.alerts import alert_message
 

@@ -2,7 +2,7 @@ import gzip
 import io
 import json
 from collections import Counter
-from datetime import date, datetime, timedelta, timezone
+from datetime import datetime, timedelta, timezone
 from zoneinfo import ZoneInfo
 
 import duckdb

@@ -6,7 +6,6 @@ from __future__ import annotations
 import json
 import time
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import asdict
 from datetime import date, datetime, timedelta, timezone
 from pathlib import Path
 from typing import Callable
@@ -359,7 +358,7 @@ def scan(
     """
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
-    from .alerts import advance_lifecycle, alert_message, select_alerts
+    from .alerts import advance_lifecycle, select_alerts
     from .detect import score_panel
     from .engine import run_local
 
@@ -440,33 +439,41 @@ def _period_days(start_day: int, end_day: int, masked, panel_start: int) -> list
 BASELINE_DRIVER_DAYS = 56
 
 
-def _add_drivers(st, loader, scores, alerts, as_of, window_days):
-    """Fill the ``drivers`` column and extend each ``message`` with a short clause (the rows of
-    all alerted accounts are read in two queries)."""
-    from .alerts import alert_message
-    from .explain import drivers_phrase, event_drivers, user_drivers
-    from .textsafe import plain_text
+def _find_drivers(st, loader, targets, as_of, window_days, max_events=None) -> list[list[dict]]:
+    """Drivers for each ``(account, reference_end_day, direction)`` in ``targets``: the window is
+    the last ``window_days`` days, the baseline the 8 weeks before the reference history ends,
+    masked days left out of both; all accounts' rows are read in two queries."""
+    from .explain import event_drivers, user_drivers
 
-    by_account = scores.set_index("account")
     end = (as_of - date(1970, 1, 1)).days
-    first_needed = max(int(by_account.loc[list(alerts["account"]), "reference_end_day"].min()) - BASELINE_DRIVER_DAYS,
-                       loader.start_day)
-    events, users = st.accounts_activity(list(alerts["account"]), date(1970, 1, 1) + timedelta(days=first_needed), as_of)
+    first_needed = max(min(ref for _, ref, _ in targets) - BASELINE_DRIVER_DAYS, loader.start_day)
+    accounts = [account for account, _, _ in targets]
+    events, users = st.accounts_activity(accounts, date(1970, 1, 1) + timedelta(days=first_needed), as_of)
     events_by, users_by = dict(list(events.groupby("account"))), dict(list(users.groupby("account")))
     empty_events, empty_users = events.iloc[:0], users.iloc[:0]
     window = _period_days(end - window_days + 1, end, loader.masked, loader.start_day)
-    driver_lists, messages = [], []
-    for alert in alerts.to_dict(orient="records"):
-        reference_end = int(by_account.loc[alert["account"], "reference_end_day"])
+    found = []
+    for account, reference_end, direction in targets:
         baseline = _period_days(max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day), reference_end - 1,
                                 loader.masked, loader.start_day)
-        found = event_drivers(events_by.get(alert["account"], empty_events), loader.weights, baseline, window)[:5]
-        found += user_drivers(users_by.get(alert["account"], empty_users), loader.weights, baseline, window,
-                              alert["direction"])
-        driver_lists.append(found)
-        messages.append(alert_message(alert, window_days, drivers_phrase(found, plain_text)))
+        drivers = event_drivers(events_by.get(account, empty_events), loader.weights, baseline, window)[:max_events]
+        drivers += user_drivers(users_by.get(account, empty_users), loader.weights, baseline, window, direction)
+        found.append(drivers)
+    return found
+
+
+def _add_drivers(st, loader, scores, alerts, as_of, window_days):
+    """Fill the ``drivers`` column and extend each ``message`` with a short clause."""
+    from .alerts import alert_message
+    from .explain import drivers_phrase
+    from .textsafe import plain_text
+
+    reference_end = scores.set_index("account")["reference_end_day"]
+    targets = [(a, int(reference_end[a]), d) for a, d in zip(alerts["account"], alerts["direction"])]
+    driver_lists = _find_drivers(st, loader, targets, as_of, window_days, max_events=5)
     alerts["drivers"] = driver_lists
-    alerts["message"] = messages
+    alerts["message"] = [alert_message(alert, window_days, drivers_phrase(found, plain_text))
+                         for alert, found in zip(alerts.to_dict(orient="records"), driver_lists)]
 
 
 # -- explain, snooze, alert history -----------------------------------------------------------
@@ -481,7 +488,6 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
     """
     from .alerts import day_to_date
     from .detect import score_panel
-    from .explain import event_drivers, user_drivers
 
     cfg = _config(config)
     as_of = parse_day(as_of)
@@ -494,17 +500,9 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days).fit_fleet(accounts)
         panel = loader([account])
         row = score_panel(panel, _scan_params(cfg)).iloc[0]
-        end = (as_of - date(1970, 1, 1)).days
-        window = _period_days(end - cfg.scan.window_days + 1, end, loader.masked, loader.start_day)
         reference_end = int(row["reference_end_day"])
-        baseline = _period_days(max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day), reference_end - 1,
-                                loader.masked, loader.start_day)
-        first = baseline[0] if baseline else as_of
-        events = st.account_event_days(account, first, as_of)
-        users = st.account_user_days(account, first, as_of)
         direction = "down" if row["p_down"] <= row["p_up"] else "up"
-        drivers = event_drivers(events, loader.weights, baseline, window) + \
-            user_drivers(users, loader.weights, baseline, window, direction)
+        drivers = _find_drivers(st, loader, [(account, reference_end, direction)], as_of, cfg.scan.window_days)[0]
     weekday_names = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
     f = lambda v: None if v is None or (isinstance(v, float) and not np.isfinite(v)) else float(v)  # noqa: E731
     bic_one, bic_two = f(row["bic_lognormal"]), f(row["bic_mixture"])

@@ -111,7 +111,6 @@ def evaluate(alerts: pd.DataFrame, outcomes: pd.DataFrame, exposure: pd.DataFram
     outs = outcomes.copy()
     outs["date"] = pd.to_datetime(outs["date"])
     result = {"outcomes": {}}
-    matched_episode = np.zeros(0, bool)
     episodes = _episodes(alerts, step_days) if len(alerts) else alerts
     episodes = episodes.assign(as_of=pd.to_datetime(episodes["as_of"])) if len(episodes) else episodes
     for kind in sorted(set(outs["outcome"])):

@@ -5,7 +5,6 @@ Pure functions on small frames of one account's rows; the api reads those rows f
 
 from __future__ import annotations
 
-import numpy as np
 import pandas as pd
 
 MAX_EVENT_DRIVERS = 5

@@ -651,23 +651,6 @@ class Store:
         return (pd.DataFrame(events, columns=["account", "day", "event", "events"]),
                 pd.DataFrame(users, columns=["account", "day", "user", "event", "events"]))
 
-    def account_event_days(self, account: str, start_day, end_day) -> pd.DataFrame:
-        """Rows ``day`` (datetime.date), ``event``, ``events`` of one account."""
-        rows = self.con.execute(
-            "SELECT day, event, events FROM daily WHERE account = ? AND day BETWEEN ? AND ? ORDER BY day, event",
-            [account, start_day, end_day],
-        ).fetchall()
-        return pd.DataFrame(rows, columns=["day", "event", "events"])
-
-    def account_user_days(self, account: str, start_day, end_day) -> pd.DataFrame:
-        """Rows ``day`` (datetime.date), ``user``, ``event``, ``events`` of one account."""
-        rows = self.con.execute(
-            """SELECT day, "user", event, events FROM user_daily
-            WHERE account = ? AND day BETWEEN ? AND ? ORDER BY day""",
-            [account, start_day, end_day],
-        ).fetchall()
-        return pd.DataFrame(rows, columns=["day", "user", "event", "events"])
-
     def has_account(self, account: str) -> bool:
         return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily WHERE account = ? LIMIT 1)", [account]).fetchone()[0] > 0
 

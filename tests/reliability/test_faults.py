@@ -5,7 +5,6 @@ Long runs are marked ``slow``:  python -m pytest -m slow tests/reliability  (rep
 """
 
 import json
-import os
 import random
 import signal
 import subprocess

@@ -5,7 +5,6 @@ Each error names the file, the line (1 = header) and the value.
 
 from __future__ import annotations
 
-from pathlib import Path
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import numpy as np

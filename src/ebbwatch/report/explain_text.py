@@ -19,7 +19,7 @@ def render_explanation(info: dict) -> str:
         f"  last {r['window_days']} days   level {_num(r['level'])}/day vs usual {_num(r['usual_level'])}/day "
         f"({_num(r['change_pct'], '{:+.0f}')}%), percentile {_num(r['percentile'], '{:.1f}')}, "
         f"P(this low) {_num(r['p_low'])}, P(this high) {_num(r['p_high'])}",
-        f"  changepoint    " + (f"onset {cp['onset']}, level {_num(cp['level_before'])} -> {_num(cp['level_after'])}/day"
+        "  changepoint    " + (f"onset {cp['onset']}, level {_num(cp['level_before'])} -> {_num(cp['level_after'])}/day"
                                if cp["onset"] else "none in the last 13 weeks"),
         f"  trend          Theil-Sen {_num(tr['theil_sen_change_pct'], '{:+.0f}')}% over {tr['weeks']} weeks, "
         f"Mann-Kendall P(falling by chance) {_num(tr['mann_kendall_p_down'])}",
