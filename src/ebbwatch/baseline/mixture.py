@@ -55,28 +55,34 @@ def fit_two_gaussians(x, *, max_iter: int = 100, tol: float = 1e-6, var_floor: f
     pooled = np.where(valid, (values - mean_all[:, None]) ** 2, 0.0).sum(axis=1) / n_safe
     variances = np.repeat(np.maximum(pooled, var_floor)[:, None], 2, axis=1)
     weights = np.full((x.shape[0], 2), 0.5)
+    # Each account stops at its own convergence: a converged account's rows leave the arrays,
+    # so the result does not depend on which accounts share the batch and later iterations
+    # cost only what is still moving.
+    iterations = np.zeros(x.shape[0], dtype=np.int64)
+    active = np.arange(x.shape[0])
     previous = np.full(x.shape[0], -np.inf)
-    loglik = previous
-    iteration = 0
     for iteration in range(1, max_iter + 1):
-        # E-step: log responsibilities (A, N, 2).
-        log_dens = -0.5 * (LOG_2PI + np.log(variances)[:, None, :]
-                           + (values[:, :, None] - means[:, None, :]) ** 2 / variances[:, None, :])
-        log_joint = log_dens + np.log(weights)[:, None, :]
+        if active.size == 0:
+            break
+        v, ok, w, m, var = values[active], valid[active], weights[active], means[active], variances[active]
+        # E-step: log responsibilities (a, N, 2) for the a accounts still active.
+        log_dens = -0.5 * (LOG_2PI + np.log(var)[:, None, :] + (v[:, :, None] - m[:, None, :]) ** 2 / var[:, None, :])
+        log_joint = log_dens + np.log(w)[:, None, :]
         log_norm = _logaddexp_pair(log_joint[:, :, 0], log_joint[:, :, 1])
-        loglik = np.where(valid, log_norm, 0.0).sum(axis=1)
-        resp = np.exp(log_joint - log_norm[:, :, None]) * valid[:, :, None]
+        loglik = np.where(ok, log_norm, 0.0).sum(axis=1)
+        resp = np.exp(log_joint - log_norm[:, :, None]) * ok[:, :, None]
         # M-step.
         nk = resp.sum(axis=1) + 1e-12
-        weights = nk / n_safe[:, None]
-        weights = np.clip(weights, min_weight, 1 - min_weight)
-        weights /= weights.sum(axis=1, keepdims=True)
-        means = (resp * values[:, :, None]).sum(axis=1) / nk
-        variances = (resp * (values[:, :, None] - means[:, None, :]) ** 2).sum(axis=1) / nk
-        variances = np.maximum(variances, var_floor)
-        if np.all(np.abs(loglik - previous) <= tol * np.maximum(1.0, np.abs(loglik))):
-            break
-        previous = loglik
+        w = np.clip(nk / n_safe[active, None], min_weight, 1 - min_weight)
+        weights[active] = w / w.sum(axis=1, keepdims=True)
+        m = (resp * v[:, :, None]).sum(axis=1) / nk
+        means[active] = m
+        variances[active] = np.maximum((resp * (v[:, :, None] - m[:, None, :]) ** 2).sum(axis=1) / nk, var_floor)
+        iterations[active] = iteration
+        converged = np.abs(loglik - previous[active]) <= tol * np.maximum(1.0, np.abs(loglik))
+        previous[active] = loglik
+        active = active[~converged]
+    iteration = int(iterations.max()) if iterations.size else 0
     # Final log-likelihood at the returned parameters.
     log_dens = -0.5 * (LOG_2PI + np.log(variances)[:, None, :]
                        + (values[:, :, None] - means[:, None, :]) ** 2 / variances[:, None, :])

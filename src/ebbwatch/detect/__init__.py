@@ -58,6 +58,8 @@ class ScanParams:
     penalty_factor: float = 3.0
     trend_weeks: int = 12
     dormant_days: int = 91
+    # The fleet's count dispersion (baseline.counts.pooled_dispersion); None pools per block.
+    pooled_count_dispersion: float | None = None
     log_offset: float = 0.1
     stop_p: float = 1e-3
     trend_screen_p: float = 0.01
@@ -95,7 +97,7 @@ def _level_tails(values, counts, factors, first_seen, reference_end, window, par
     usual_total = quiet_nanmean(total_sample, axis=1) * 7.0 / window
     low_volume = np.nan_to_num(usual_total) < params.low_volume_events
     if low_volume.any():
-        count_model = WindowCountModel(window=window).fit(total_sample[low_volume])
+        count_model = WindowCountModel(window=window, pooled=params.pooled_count_dispersion).fit(total_sample[low_volume])
         nb_low, nb_high = count_model.tails(np.nan_to_num(totals[low_volume, -1]))
         n = np.maximum(n_reference[low_volume], 1)
         p_low[low_volume] = np.where(n_low[low_volume] >= window, n_low[low_volume] / n, nb_low)
