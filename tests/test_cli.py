@@ -86,3 +86,21 @@ def test_db_from_environment(tmp_path, monkeypatch):
     monkeypatch.setenv("EBBWATCH_DB", str(tmp_path / "env.duckdb"))
     assert run("ingest", str(f)).exit_code == 0
     assert (tmp_path / "env.duckdb").exists()
+
+
+def test_export_index_writes_blocks_and_refuses_a_used_folder(tmp_path):
+    rows = [{"ts": f"2026-03-{d:02d}T10:00:00Z", "event": e, "user": "u", "account": a}
+            for d in range(1, 20) for a in ("a", "b", "c") for e in ("x", "y")]
+    f = write_jsonl(tmp_path / "e.jsonl", rows)
+    db = str(tmp_path / "s.duckdb")
+    run("ingest", str(f), "--db", db)
+    out = tmp_path / "index"
+    result = run("export", "index", "--db", db, "-o", str(out), "--accounts-per-part", "2")
+    assert result.exit_code == 0 and result.stdout == ""
+    assert "3 accounts in 2 block(s)" in result.stderr
+    import pandas as pd
+
+    index = pd.read_parquet(out / "rows")
+    assert len(index) == 3 * 19 and (index["events"] == 2).all() and (index["value"] == 2).all()
+    again = run("export", "index", "--db", db, "-o", str(out))
+    assert again.exit_code == 2 and "not an empty folder" in again.stderr

@@ -9,6 +9,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "src" / "ebbwatch"
 LAYERS = [
     {"cli", "__main__"},
     {"api", "__init__"},
+    {"tasks"},
     {"config"},
     {"report"},
     {"backtest"},

@@ -130,6 +130,23 @@ def test_theil_sen_matches_scipy_theilslopes():
         assert intercept[row] == pytest.approx(ref.intercept)
 
 
+def test_benjamini_hochberg_over_part_of_the_family():
+    """Reference: scipy.stats.false_discovery_control on the whole family.  Given only the
+    p-values at or below 0.05 and the family's size, every q-value at or below 0.05 is the same."""
+    rng = np.random.default_rng(4)
+    p = np.concatenate([rng.uniform(0, 1e-3, 30), rng.uniform(0, 1, 970)])
+    whole = stats.false_discovery_control(p, method="bh")
+    assert np.allclose(benjamini_hochberg(p, family_size=p.size), whole, rtol=1e-12, atol=0)
+    small = p <= 0.05
+    part = benjamini_hochberg(p[small], family_size=p.size)
+    passing = whole[small] <= 0.05
+    assert passing.sum() >= 20
+    assert np.allclose(part[passing], whole[small][passing], rtol=1e-12, atol=0)
+    assert ((part <= 0.05) == passing).all()
+    with pytest.raises(ValueError):
+        benjamini_hochberg(p, family_size=10)
+
+
 def test_benjamini_hochberg_published_example():
     """Reference: Benjamini & Hochberg (1995)'s 15 p-values, as in the docstring of
     scipy.stats.false_discovery_control: BH rejects 4 at q = 0.05, Bonferroni 3."""
@@ -137,3 +154,18 @@ def test_benjamini_hochberg_published_example():
                   0.3240, 0.4262, 0.5719, 0.6528, 0.7590, 1.000])
     assert (benjamini_hochberg(p) <= 0.05).sum() == 4
     assert (p * p.size <= 0.05).sum() == 3
+
+
+def test_pooled_dispersion_recovers_a_negative_binomial():
+    """Reference: scipy.stats.nbinom.  Daily counts NB(size r) summed over 7 days are NB(size 7r),
+    whose dispersion (var = mean + d·mean²) is 1 / (7r); Poisson counts have dispersion 0."""
+    from ebbwatch.baseline.counts import pooled_dispersion
+
+    rng = np.random.default_rng(3)
+    r, mean = 0.5, 2.0
+    daily = stats.nbinom.rvs(r, r / (r + mean), size=(400, 200), random_state=rng).astype(float)
+    assert pooled_dispersion(daily) == pytest.approx(1 / (7 * r), rel=0.15)
+    poisson = stats.poisson.rvs(2.0, size=(400, 200), random_state=rng).astype(float)
+    assert pooled_dispersion(poisson) == pytest.approx(0.0, abs=0.01)
+    big = stats.poisson.rvs(50.0, size=(40, 200), random_state=rng).astype(float)
+    assert pooled_dispersion(big) == 0.0  # no low-volume account in the sample

@@ -44,6 +44,19 @@ def test_api_scan_returns_ranked_dataframe(fleet_store):
     assert summary["masked_days"] == [fleet.gap_day.isoformat()]
 
 
+def test_chunk_size_never_changes_a_score(fleet_store):
+    """Fleet-wide quantities are measured once, so chunks of 7 score exactly as one pass does
+    (the batched EM and the count model's pooling once depended on the chunk's other accounts)."""
+    fleet, db = fleet_store
+    whole = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=10_000)
+    pieces = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=7)
+    assert (whole.attrs["scores"]["model"] == "negbin").any()  # the pooled count model is exercised
+    assert (whole.attrs["scores"]["model"] == "mixture").any()  # and the EM
+    pd.testing.assert_frame_equal(whole.attrs["scores"].drop(columns="weekday_factors"),
+                                  pieces.attrs["scores"].drop(columns="weekday_factors"))
+    pd.testing.assert_frame_equal(whole.drop(columns="drivers"), pieces.drop(columns="drivers"))
+
+
 def test_default_as_of_is_the_last_complete_day(fleet_store):
     fleet, db = fleet_store
     alerts = ebbwatch.scan(db=db, max_alerts=5)

@@ -21,12 +21,29 @@ def day_to_date(day: int) -> date:
     return EPOCH + timedelta(days=int(day))
 
 
-def benjamini_hochberg(p_values) -> np.ndarray:
-    """BH-adjusted p-values (q-values), Benjamini & Hochberg (1995), via scipy."""
-    p = np.asarray(p_values, float)
+def benjamini_hochberg(p_values, family_size: int | None = None) -> np.ndarray:
+    """BH-adjusted p-values (q-values), Benjamini & Hochberg (1995).
+
+    ``family_size``: the number of hypotheses in the family when ``p_values`` holds only part of
+    it.  Every p-value of the family at or below a level ``alpha`` must be present; then each
+    q-value at or below ``alpha`` is exact (a left-out p-value above ``alpha`` cannot lower it),
+    which lets account blocks pass on only their small p-values.  Without it the whole family is
+    given and scipy's ``false_discovery_control`` computes the q-values.
+    """
+    p = np.clip(np.asarray(p_values, float), 0.0, 1.0)
     if p.size == 0:
         return p
-    return stats.false_discovery_control(np.clip(p, 0.0, 1.0), method="bh")
+    if family_size is None:
+        return stats.false_discovery_control(p, method="bh")
+    if family_size < p.size:
+        raise ValueError(f"family_size {family_size} is smaller than the {p.size} p-values given")
+    # The same steps as scipy's implementation, with the family's size in place of len(p).
+    order = np.argsort(p)
+    ranked = p[order] * (family_size / np.arange(1, p.size + 1))
+    ranked = np.minimum.accumulate(ranked[::-1])[::-1]
+    q = np.empty_like(p)
+    q[order] = np.clip(ranked, 0.0, 1.0)
+    return q
 
 
 def select_alerts(
@@ -40,6 +57,7 @@ def select_alerts(
     min_change_pct: float = 30.0,
     kinds=None,
     min_severity: float = 0.0,
+    family_size: int | None = None,
 ) -> pd.DataFrame:
     """Alerts for the accounts in ``scores`` (``detect.SCORE_COLUMNS``, the whole fleet).
 
@@ -47,6 +65,8 @@ def select_alerts(
     the expected share of false alerts among those raised stays at ``fdr`` however large the fleet.
     An alert also needs a change of at least ``min_change_pct`` (a stop always qualifies), and at
     most ``max_alerts`` are kept, most severe first.  Returns a frame with ``frames.ALERT_COLUMNS``.
+    ``family_size``: when ``scores`` holds only the accounts with a p-value at or below ``fdr``,
+    the whole family's size (twice the fleet's judged accounts); see :func:`benjamini_hochberg`.
     """
     if kinds:
         unknown = set(kinds) - set(ALERT_KINDS)
@@ -55,7 +75,8 @@ def select_alerts(
     names = names or {}
     judged = scores[scores["status"] == "judged"].reset_index(drop=True)
     n = len(judged)
-    q = benjamini_hochberg(np.concatenate([judged["p_down"].to_numpy(float), judged["p_up"].to_numpy(float)]))
+    q = benjamini_hochberg(np.concatenate([judged["p_down"].to_numpy(float), judged["p_up"].to_numpy(float)]),
+                           family_size=family_size)
     q_down, q_up = q[:n], q[n:]
     change = judged["change_pct"].to_numpy(float)
     trend = judged["trend_change_pct"].to_numpy(float)

@@ -5,27 +5,24 @@ from __future__ import annotations
 
 import json
 import time
-from concurrent.futures import ThreadPoolExecutor
+from contextlib import contextmanager
+from dataclasses import replace
 from datetime import date, datetime, timedelta, timezone
 from pathlib import Path
 from typing import Callable
 
 import numpy as np
-import pyarrow as pa
 
 from . import store as store_mod
 from .config import Config, load_config
 from .errors import InputError, UsageError
 from .frames import FileResult, Reject
 from .ingest import csvs
-from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
-from .ingest.readers import STDIN, expand_inputs, iter_lines, remove_quietly, scan_file, spool_stdin
+from .ingest.lines import LineRules
+from .ingest.readers import STDIN, expand_inputs, remove_quietly, spool_stdin
 from .ingest.timestamps import parse_rfc3339
 
 Progress = Callable[[str, int, int], None]
-# Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
-# lines may nest deeper than this goes through the precise path so both paths agree.
-MAX_FAST_NESTING = 500
 
 
 def _config(config) -> Config:
@@ -47,26 +44,6 @@ def _line_rules(cfg: Config, now_us: int) -> LineRules:
     )
 
 
-def _precise_records(path: str, display: str, rules: LineRules, result: FileResult, rejects: list):
-    columns = {"ts_us": [], "event": [], "user": [], "account": [], "id": []}
-    for number, raw in iter_lines(path):
-        try:
-            parsed = parse_line(raw, rules)
-        except LineRejected as exc:
-            result.lines += 1
-            result.rejected[exc.reason] = result.rejected.get(exc.reason, 0) + 1
-            rejects.append(Reject(display, number, exc.reason, excerpt(raw), exc.detail))
-            continue
-        if parsed is None:
-            continue
-        result.lines += 1
-        for key, value in zip(columns, parsed):
-            columns[key].append(value)
-    schema = pa.schema([("ts_us", pa.int64()), ("event", pa.string()), ("user", pa.string()),
-                        ("account", pa.string()), ("id", pa.string())])
-    return pa.table(columns, schema=schema)
-
-
 def ingest_files(
     inputs: list[str] = (),
     *,
@@ -79,12 +56,19 @@ def ingest_files(
     now: datetime | None = None,
     progress: Progress | None = None,
     stdin=None,
+    engine: str = "local",
+    scheduler: str | None = None,
 ) -> dict:
     """Ingest JSON-lines event files (and/or the accounts, identities and daily-aggregate files).
 
     Each file is one transaction.  Returns the summary (see README, ``ingest --format json``).
     Files that cannot be read are listed under ``errors``; the others are ingested.
+    ``engine="dask"``: the files are parsed, attributed and counted on a Dask cluster
+    (``scheduler`` as in :func:`scan`; workers must read the same paths), and the store takes
+    all of them in one transaction, with the same result as ingesting them in turn here.
     """
+    if engine not in ("local", "dask"):
+        raise UsageError(f"unknown engine {engine!r}; expected local or dask")
     cfg = _config(config)
     started = time.perf_counter()
     now = now or datetime.now(timezone.utc)
@@ -96,6 +80,8 @@ def ingest_files(
     if daily is not None and not Path(daily).is_file():
         raise InputError(f"no such file: {daily}")
     files = expand_inputs(list(inputs))
+    if engine == "dask" and STDIN in files:
+        raise UsageError("--engine dask reads files its workers can open; it cannot take - (stdin)")
     summary = {
         "files": 0, "lines": 0, "ingested": 0, "duplicates": 0, "rejected": {}, "unattributed": {},
         "skipped_files": [], "errors": [], "accounts_loaded": 0, "identities_loaded": 0,
@@ -117,29 +103,13 @@ def ingest_files(
         if daily is not None:
             with st.transaction():
                 summary["daily_rows_loaded"] = st.load_daily_file(daily)
-        for position, item in enumerate(files, start=1):
-            display = "<stdin>" if item == STDIN else item
-            path = spool_stdin(stdin) if item == STDIN else item
-            if progress:
-                progress(display, position, len(files))
-            try:
-                result = _ingest_one(st, path, display, cfg, rules, all_rejects)
-            except InputError as exc:
-                summary["errors"].append({"file": display, "error": str(exc)})
-                continue
-            finally:
-                if item == STDIN:
-                    remove_quietly(path)
-            if result.skipped:
-                summary["skipped_files"].append({"file": display, "reason": result.skipped})
-                continue
-            summary["files"] += 1
-            summary["paths"][result.path_taken] += 1
-            for key in ("lines", "ingested", "duplicates"):
-                summary[key] += getattr(result, key)
-            for group in ("rejected", "unattributed"):
-                for reason, n in getattr(result, group).items():
-                    summary[group][reason] = summary[group].get(reason, 0) + n
+        if engine == "dask" and files:
+            outcomes = _ingest_on_dask(st, files, cfg, rules, scheduler, progress)
+        else:
+            outcomes = _ingest_here(st, files, cfg, rules, progress, stdin)
+        for display, outcome, rejects in outcomes:
+            _add_to_summary(summary, display, outcome)
+            all_rejects.extend(rejects)
     if all_rejects:
         with open(rejects_path, "a", encoding="utf-8") as handle:
             for reject in all_rejects:
@@ -149,33 +119,94 @@ def ingest_files(
     return summary
 
 
-def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_rejects: list) -> FileResult:
-    result = FileResult(file=display)
-    file_rejects: list[Reject] = []
-    # Hashing (and measuring the longest line) runs in a thread beside the fast-path parse:
-    # both release the GIL.  Staging writes only temporary tables, so it runs before the
-    # file's transaction: a fast-path parse error must not abort it.
-    with ThreadPoolExecutor(max_workers=1) as pool:
-        scanning = pool.submit(scan_file, path)
+def _add_to_summary(summary: dict, display: str, outcome):
+    """Count one file's outcome: a ``FileResult``, or the message of an error reading it."""
+    if isinstance(outcome, str):
+        summary["errors"].append({"file": display, "error": outcome})
+        return
+    if outcome.skipped:
+        summary["skipped_files"].append({"file": display, "reason": outcome.skipped})
+        return
+    summary["files"] += 1
+    summary["paths"][outcome.path_taken] += 1
+    for key in ("lines", "ingested", "duplicates"):
+        summary[key] += getattr(outcome, key)
+    for group in ("rejected", "unattributed"):
+        for reason, n in getattr(outcome, group).items():
+            summary[group][reason] = summary[group].get(reason, 0) + n
+
+
+def _ingest_here(st, files, cfg, rules, progress, stdin):
+    """Each file in turn, one transaction each: ``(name, FileResult or error, rejects)``."""
+    for position, item in enumerate(files, start=1):
+        display = "<stdin>" if item == STDIN else item
+        path = spool_stdin(stdin) if item == STDIN else item
+        if progress:
+            progress(display, position, len(files))
+        rejects: list[Reject] = []
         try:
-            staged = st.stage_jsonl_fast(path, cfg.fields, rules.ts_format, rules.max_line_bytes,
-                                         rules.earliest_us, rules.latest_us)
+            result = _ingest_one(st, path, display, cfg, rules, rejects)
+        except InputError as exc:
+            yield display, str(exc), []
+            continue
         finally:
-            digest, longest_line, deepest = scanning.result()
-    earlier = st.already_ingested(digest)
-    if earlier is not None:
-        st.drop_staged()
-        result.skipped = f"already ingested (same content as {earlier})"
+            if item == STDIN:
+                remove_quietly(path)
+        yield display, result, rejects
+
+
+def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
+    """Workers parse, attribute and date the files in parallel; this process dedupes their ids
+    in file order (so the first delivery wins as in a local ingest), the workers count what is
+    left, and the store takes every file's counts and log row in one transaction."""
+    from .engine.dask import dask_client, gather_in_order
+    from .tasks import ParsedFile, count_parsed, parse_file
+
+    accounts_table, identities_table = st.reference_tables()
+    known = st.ingested_digests()
+    outcomes = []
+    with dask_client(scheduler) as client:
+        reference = client.scatter([accounts_table, identities_table], broadcast=True)
+        parsed = client.map(parse_file, [(f, f) for f in files], rules=rules, fields=cfg.fields,
+                            accounts=reference[0], identities=reference[1], known_digests=known,
+                            pure=False, retries=3)
+        summaries = gather_in_order(
+            client.map(ParsedFile.summary, parsed, pure=False, retries=3), "parsing",
+            progress=None if progress is None else (lambda i, n: progress(files[i - 1], i, n)))
+        with st.transaction():
+            waiting, seen_before = [], []  # files to count: (place in outcomes, digest, parsed future)
+            first_of_content = {}
+            for future, light in zip(parsed, summaries):
+                result = light.result
+                if light.error is None and result.skipped is None and light.digest in first_of_content:
+                    result.skipped = f"already ingested (same content as {first_of_content[light.digest]})"
+                if light.error is not None or result.skipped:
+                    outcomes.append((light.file, light.error or result, []))
+                    continue
+                first_of_content[light.digest] = light.file
+                seen_before.append(st.claim_ids(*light.ids, cfg.ingest.dedupe_window_days))
+                waiting.append((len(outcomes), light.digest, future))
+                outcomes.append((light.file, None, light.rejects))
+            counted = gather_in_order(client.map(count_parsed, [f for *_, f in waiting], seen_before,
+                                                 pure=False, retries=3), "counting")
+            st.merge_user_daily([table for table, *_ in counted])
+            for (place, digest, _), (_, result, first_day, last_day) in zip(waiting, counted):
+                name, _, rejects = outcomes[place]
+                st.log_ingest(name, digest, result, first_day, last_day)
+                outcomes[place] = (name, result, rejects)
+    return outcomes
+
+
+def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_rejects: list) -> FileResult:
+    from .tasks import stage_file
+
+    def earlier_copy(digest):
+        earlier = st.already_ingested(digest)
+        return None if earlier is None else f"already ingested (same content as {earlier})"
+
+    digest, result, file_rejects = stage_file(st, path, display, rules, cfg.fields, skip_reason=earlier_copy)
+    if result.skipped:
         return result
-    if staged is not None and (longest_line > rules.max_line_bytes or deepest > MAX_FAST_NESTING):
-        st.drop_staged()
-        staged = None
-    if staged is None:
-        result.path_taken = "precise"
-        table = _precise_records(path, display, rules, result, file_rejects)
-        st.stage_records(table)
-    else:
-        result.lines = staged
     with st.transaction():
         merged = st.merge_staged(cfg.ingest.dedupe_window_days)
         result.ingested = merged["ingested"]
@@ -229,6 +260,11 @@ def _scan_params(cfg: Config):
                       horizon_days=s.horizon_days, dormant_days=s.dormant_days)
 
 
+def _fleet_params(cfg: Config, loader):
+    """The scan's settings with the fleet-wide quantities the loader measured."""
+    return replace(_scan_params(cfg), pooled_count_dispersion=loader.count_dispersion)
+
+
 def default_as_of(last_day: date | None, today: date | None = None) -> date:
     """The last complete day: the store's last day, unless that is today (still filling)."""
     today = today or datetime.now(timezone.utc).date()
@@ -263,6 +299,7 @@ class PanelLoader:
         self.mrr = meta["mrr"].dropna().to_dict()
         self.fleet_factor = None
         self.masked = None
+        self.count_dispersion = None
 
     def _rows(self, accounts):
         start = date(1970, 1, 1) + timedelta(days=self.start_day)
@@ -270,6 +307,7 @@ class PanelLoader:
         return self.st.weighted_daily(self.weights, list(accounts), start, end)
 
     def fit_fleet(self, accounts):
+        from .baseline.counts import pooled_dispersion
         from .series import dense_matrix, fleet_factor
 
         step = max(1, len(accounts) // FLEET_SAMPLE_ACCOUNTS)
@@ -278,6 +316,10 @@ class PanelLoader:
         n_days = self.end_day - self.start_day + 1
         counts = dense_matrix(idx, day, value, len(sample), self.start_day, n_days)
         self.fleet_factor, self.masked = fleet_factor(counts)
+        # The same fleet-wide count dispersion for every chunk (see backtest.replay_fleet_factors).
+        started = np.where(np.cumsum(counts > 0, axis=1) > 0, counts, np.nan)
+        started[:, self.masked] = np.nan
+        self.count_dispersion = pooled_dispersion(started, window=self.cfg.scan.window_days)
         return self
 
     def __call__(self, accounts):
@@ -291,42 +333,81 @@ class PanelLoader:
                            fleet_factor=self.fleet_factor, masked=self.masked)
 
 
-def score_parquet_chunk(accounts, *, path, start_day, end_day, normalise, seats, fleet_factor, masked, params):
-    """Score one chunk of accounts from the Parquet export (what a Dask worker runs)."""
-    import pyarrow.parquet as pq
+def _blocks(accounts: list[str], size: int) -> list[tuple[int, list[str]]]:
+    """``(part, accounts)`` pairs: the account blocks ``Store.export_index_parts`` writes."""
+    from .engine import chunked
 
-    from .detect import score_panel
-    from .series import build_panel
-
-    table = pq.read_table(path, filters=[("account", ">=", accounts[0]), ("account", "<=", accounts[-1])])
-    frame = table.to_pandas()
-    position = {a: i for i, a in enumerate(accounts)}
-    frame = frame[frame["account"].isin(position)]
-    index = frame["account"].map(position).to_numpy()
-    panel = build_panel(index, frame["day"].to_numpy(), frame["value"].to_numpy(float), frame["events"].to_numpy(float),
-                        frame["users"].to_numpy(float), accounts=list(accounts), start_day=start_day, end_day=end_day,
-                        normalise=normalise, seats=np.array([seats.get(a, np.nan) for a in accounts], float),
-                        fleet_factor=fleet_factor, masked=masked)
-    return score_panel(panel, params)
+    return list(enumerate(chunked(list(accounts), size)))
 
 
-def _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress, workdir=None):
-    import functools
+def _day_number(day: date) -> int:
+    return (day - date(1970, 1, 1)).days
+
+
+def _day_of(number: int) -> date:
+    return date(1970, 1, 1) + timedelta(days=int(number))
+
+
+@contextmanager
+def _exchange(st, loader, accounts_per_part: int, shared_dir: str | None):
+    """The store's index for ``loader``'s window, exported as Parquet blocks into a fresh folder
+    (inside ``shared_dir`` when given: it must be readable by every worker), removed afterwards."""
     import tempfile
 
-    from .engine.dask import dask_client, run_dask
+    with tempfile.TemporaryDirectory(prefix="ebbwatch-exchange-", dir=shared_dir) as directory:
+        st.export_index_parts(directory, loader.weights, _day_of(loader.start_day), _day_of(loader.end_day),
+                              accounts_per_part)
+        yield directory
 
-    with tempfile.TemporaryDirectory(prefix="ebbwatch-dask-", dir=workdir) as tmp:
-        path = str(Path(tmp) / "scan-input.parquet")
-        start = date(1970, 1, 1) + timedelta(days=loader.start_day)
-        end = date(1970, 1, 1) + timedelta(days=loader.end_day)
-        st.export_scan_input(path, loader.weights, start, end)
-        seats = {a: s for a, s in loader.seats.items() if s == s}
-        task = functools.partial(score_parquet_chunk, path=path, start_day=loader.start_day, end_day=loader.end_day,
-                                 normalise=loader.cfg.index.normalise, seats=seats, fleet_factor=loader.fleet_factor,
-                                 masked=loader.masked, params=params)
-        with dask_client(scheduler) as client:
-            return run_dask(accounts, task, chunk_size=chunk_size, client=client, progress=progress)
+
+def _on_dask(scheduler, task, items, progress):
+    from .engine.dask import dask_client, map_dask
+
+    with dask_client(scheduler) as client:
+        return map_dask(client, task, items, progress=progress)
+
+
+def _seats(loader) -> dict:
+    return {a: s for a, s in loader.seats.items() if s == s}
+
+
+def _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress, shared_dir=None):
+    import functools
+
+    from .engine.dask import concat_accounts
+    from .tasks import score_part
+
+    blocks = _blocks(accounts, chunk_size)
+    with _exchange(st, loader, chunk_size, shared_dir) as directory:
+        task = functools.partial(score_part, directory=directory, start_day=loader.start_day, end_day=loader.end_day,
+                                 normalise=loader.cfg.index.normalise, seats=_seats(loader),
+                                 fleet_factor=loader.fleet_factor, masked=loader.masked, params=params)
+        block_progress = None if progress is None else (
+            lambda done, total: progress(min(done * chunk_size, len(accounts)), len(accounts)))
+        return concat_accounts(_on_dask(scheduler, task, blocks, block_progress), accounts)
+
+
+def export_index(output: str, *, as_of=None, history_days: int | None = None, accounts_per_part: int = 10_000,
+                 db: str | None = None, config=None, today: date | None = None) -> dict:
+    """Write the activity index the scan reads (weights and exclusions applied) as a Parquet
+    dataset of account blocks in the folder ``output`` (see ``Store.export_index_parts``), for
+    a Dask cluster or a notebook.  Returns what was written and the window."""
+    cfg = _config(config)
+    as_of = parse_day(as_of)
+    if accounts_per_part < 1 or (history_days is not None and history_days < 1):
+        raise UsageError("accounts per part and history days must be >= 1")
+    target = Path(output)
+    if target.exists() and (not target.is_dir() or any(target.iterdir())):
+        raise UsageError(f"{output} exists and is not an empty folder; give a new folder (nothing was written)")
+    with store_mod.open_store(db or cfg.store_path, read_only=True, must_exist=True) as st:
+        if as_of is None:
+            as_of = default_as_of(st.last_day(), today)
+        loader = PanelLoader(st, cfg, as_of, history_days or cfg.scan.history_days)
+        info = st.export_index_parts(output, loader.weights, _day_of(loader.start_day), _day_of(loader.end_day),
+                                     accounts_per_part)
+    info.update({"directory": output, "from": _day_of(loader.start_day).isoformat(), "to": as_of.isoformat(),
+                 "accounts_per_part": accounts_per_part})
+    return info
 
 
 def scan(
@@ -344,6 +425,7 @@ def scan(
     drivers: bool = True,
     engine: str = "local",
     scheduler: str | None = None,
+    shared_dir: str | None = None,
 ):
     """Judge every account at ``as_of`` (default: the last complete day) and return the alerts.
 
@@ -353,8 +435,8 @@ def scan(
     the store (the daily job does; a look at a past day does not).  ``show``: ``all`` open
     alerts, or only ``new`` and escalated ones; snoozed accounts are never shown.  ``engine``:
     ``local`` (chunks in this process) or ``dask`` (chunks on a cluster: ``scheduler`` is
-    ``local[:N]`` or a scheduler address; workers read a Parquet export of the store, so they
-    need the same filesystem).
+    ``local[:N]`` or a scheduler address; workers read a Parquet export of the store, written
+    into a temporary folder inside ``shared_dir``, which every worker must be able to read).
     """
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
@@ -374,9 +456,9 @@ def scan(
         if not accounts:
             raise InputError("the store has no accounts yet; ingest events or --daily first")
         loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days).fit_fleet(accounts)
-        params = _scan_params(cfg)
+        params = _fleet_params(cfg, loader)
         if engine == "dask":
-            scores = _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress)
+            scores = _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress, shared_dir)
         else:
             scores = run_local(accounts, loader, lambda panel: score_panel(panel, params),
                                chunk_size=chunk_size, progress=progress)
@@ -499,7 +581,7 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         accounts = st.account_ids()
         loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days).fit_fleet(accounts)
         panel = loader([account])
-        row = score_panel(panel, _scan_params(cfg)).iloc[0]
+        row = score_panel(panel, _fleet_params(cfg, loader)).iloc[0]
         reference_end = int(row["reference_end_day"])
         direction = "down" if row["p_down"] <= row["p_up"] else "up"
         drivers = _find_drivers(st, loader, [(account, reference_end, direction)], as_of, cfg.scan.window_days)[0]
@@ -567,19 +649,33 @@ def alert_history(*, states=None, db: str | None = None, config=None):
 
 def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: int = 30, horizon_days: int = 90,
              budget: float | None = None, target_precision: float | None = None, db: str | None = None,
-             config=None, progress=None, today: date | None = None) -> dict:
+             config=None, progress=None, today: date | None = None, chunk_size: int = 10_000,
+             engine: str = "local", scheduler: str | None = None, shared_dir: str | None = None) -> dict:
     """Replay the daily scan from ``start`` to ``end`` every ``step`` days against ``outcomes``
     (a CSV ``account,date,outcome``) and return the metrics, a severity sweep and a calibration.
+
+    Accounts are replayed in blocks of ``chunk_size`` (memory is bounded by the block), in this
+    process or, with ``engine="dask"``, on a cluster as in :func:`scan`.  Each day's fleet factor
+    comes from one fleet-wide sample and each day's Benjamini–Hochberg step sees the whole
+    fleet, so the blocks give the same alerts as one pass over every account.
     """
-    from .backtest import calibrate, evaluate, replay, sweep
+    import functools
+
+    from .backtest import calibrate, churn_days, evaluate, replay_fleet_factors, replay_scores, select_replayed, sweep
     from .ingest.csvs import read_outcomes
 
+    if engine not in ("local", "dask"):
+        raise UsageError(f"unknown engine {engine!r}; expected local or dask")
     if step < 1 or lead_days < 0 or horizon_days < max(lead_days, 1):
         raise UsageError("need --step >= 1, --lead-days >= 0 and --horizon-days >= max(--lead-days, 1)")
+    if chunk_size < 1:
+        raise UsageError(f"chunk size must be >= 1, got {chunk_size}")
     cfg = _config(config)
     started = time.perf_counter()
     outcome_frame = read_outcomes(outcomes)
     start, end = parse_day(start, "--from"), parse_day(end, "--to")
+    params = _scan_params(cfg)
+    history_days = cfg.scan.history_days
     with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
         first_day = st.status()["first_day"]
         if first_day is None:
@@ -591,11 +687,44 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         accounts = st.account_ids()
         history = max((end - first_day).days + 1, cfg.scan.window_days + 14)
         loader = PanelLoader(st, cfg, end, history)
-        panel = loader(accounts)
-    days = list(range((start - date(1970, 1, 1)).days, (end - date(1970, 1, 1)).days + 1, step))
-    params = _scan_params(cfg)
-    alerts, exposure = replay(panel, days, params=params, history_days=cfg.scan.history_days, fdr=cfg.scan.fdr,
-                                 min_change_pct=cfg.scan.min_change_pct, outcomes=outcome_frame, progress=progress)
+        days = list(range(_day_number(start), _day_number(end) + 1, step))
+        sample = accounts[::max(1, len(accounts) // FLEET_SAMPLE_ACCOUNTS)]
+        factors = replay_fleet_factors(loader(sample).counts, loader.start_day, days, history_days=history_days,
+                                       params=params)
+        churn = churn_days(accounts, outcome_frame)
+        blocks = _blocks(accounts, chunk_size)
+        done = [0]
+
+        def block_done(n_accounts):
+            done[0] += n_accounts
+            if progress:
+                progress(done[0], len(accounts))
+
+        if engine == "dask":
+            from .tasks import replay_part
+
+            never = np.iinfo(np.int64).max
+            with _exchange(st, loader, chunk_size, shared_dir) as directory:
+                task = functools.partial(
+                    replay_part, directory=directory, start_day=loader.start_day, end_day=loader.end_day,
+                    normalise=cfg.index.normalise, seats=_seats(loader), as_of_days=days, fleet_factors=factors,
+                    churn={a: int(c) for a, c in zip(accounts, churn) if c != never}, params=params,
+                    history_days=history_days, fdr=cfg.scan.fdr)
+                results = _on_dask(scheduler, task, blocks, lambda i, n: block_done(len(blocks[i - 1][1])))
+        else:
+            results = []
+            for part, chunk in blocks:
+                offset = part * chunk_size
+                results.append(replay_scores(loader(chunk), days, factors, params=params, history_days=history_days,
+                                             churn=churn[offset:offset + len(chunk)], fdr=cfg.scan.fdr))
+                block_done(len(chunk))
+    import pandas as pd
+
+    found = [candidates for candidates, _ in results if len(candidates)]
+    candidates = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=["as_of_day"])
+    judged = np.sum([j for _, j in results], axis=0) if results else np.zeros(len(days), dtype=np.int64)
+    alerts, exposure = select_replayed(candidates, judged, days, fdr=cfg.scan.fdr,
+                                       min_change_pct=cfg.scan.min_change_pct, window_days=params.window_days)
     kw = dict(lead_days=lead_days, horizon_days=horizon_days, step_days=step)
     result = evaluate(alerts[alerts["severity"] >= cfg.scan.min_severity], outcome_frame, exposure, **kw)
     thresholds = sorted({0.0, 1.0, 2.0, 3.0, 4.0, 5.0, 7.5, 10.0, 15.0, 20.0, 30.0})

@@ -6,12 +6,14 @@ columns up to it — the fleet factor included — so nothing from after a day r
 
 from __future__ import annotations
 
+from dataclasses import replace
 from datetime import date, timedelta
 
 import numpy as np
 import pandas as pd
 
 from .alerts import select_alerts
+from .baseline.counts import pooled_dispersion
 from .detect import ScanParams, score_panel
 from .series import Panel, fleet_factor
 
@@ -39,6 +41,109 @@ def _slice(panel: Panel, start: int, end: int, factor, masked) -> Panel:
     return Panel(panel.accounts, panel.start_day + start, values, counts, first, masked, factor)
 
 
+REPLAY_COLUMNS = ["as_of", "account", "direction", "kind", "severity"]
+
+
+def _before_first_activity_missing(counts) -> np.ndarray:
+    """Raw totals with the days before each account's first activity as NaN (not zero)."""
+    active = np.nan_to_num(counts) > 0
+    started = np.cumsum(active, axis=1) > 0
+    return np.where(started, counts, np.nan)
+
+
+def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history_days: int = 365,
+                         params: ScanParams = ScanParams()) -> list:
+    """Each replayed day's fleet-wide quantities, from a fleet-wide sample.
+
+    ``sample_counts`` (S, D): raw event totals of a sample of accounts over the whole history
+    (NaN or 0 where none), column 0 being day ``panel_start``.  Returns per day in
+    ``as_of_days`` a tuple ``(factor, masked, count_dispersion)`` over the ``history_days``
+    columns ending on that day, computed only from columns up to it (the fleet factor and
+    data-gap mask of ``series.fleet_factor``, the pooled dispersion of
+    ``baseline.counts.pooled_dispersion``).
+    """
+    raw = np.where(np.isnan(sample_counts), 0.0, sample_counts)
+    started = _before_first_activity_missing(sample_counts)
+    out = []
+    for day in as_of_days:
+        end = day - panel_start
+        factor, masked = fleet_factor(_columns(raw, end - history_days + 1, end, 0.0))
+        seen = _columns(started, end - history_days + 1, end, np.nan)
+        seen[:, masked] = np.nan
+        dispersion = pooled_dispersion(seen, window=params.window_days, low_volume_events=params.low_volume_events)
+        out.append((factor, masked, dispersion))
+    return out
+
+
+def churn_days(accounts, outcomes: pd.DataFrame | None) -> np.ndarray:
+    """Per account, the day number of its first ``churned`` outcome (int64 max when none)."""
+    first = {}
+    if outcomes is not None and len(outcomes):
+        for row in outcomes[outcomes["outcome"] == "churned"].itertuples():
+            day = (row.date - EPOCH).days
+            first[row.account] = min(day, first.get(row.account, day))
+    return np.array([first.get(a, np.iinfo(np.int64).max) for a in accounts], dtype=np.int64)
+
+
+def replay_scores(panel: Panel, as_of_days, fleet_factors: list, *, params: ScanParams = ScanParams(),
+                  history_days: int = 365, churn=None, fdr: float = 0.01,
+                  progress=None) -> tuple[pd.DataFrame, np.ndarray]:
+    """Score one block of accounts on each replayed day: the per-block half of :func:`replay`.
+
+    ``panel``: the block's whole history without a fleet factor; ``fleet_factors`` from
+    :func:`replay_fleet_factors` (fleet-wide, so every block sees the same ones); ``churn``: per
+    account the day of its cancellation (:func:`churn_days`), after which it is not judged.
+    Returns ``(candidates, judged)``: the score rows of judged accounts with a p-value at or
+    below ``fdr`` (only those can pass the Benjamini–Hochberg step), with an ``as_of_day``
+    column; and per replayed day the number of accounts judged (int64, len(as_of_days)).
+    """
+    churn = np.full(len(panel.accounts), np.iinfo(np.int64).max) if churn is None else np.asarray(churn)
+    found, judged = [], np.zeros(len(as_of_days), dtype=np.int64)
+    for i, (day, (factor, masked, dispersion)) in enumerate(zip(as_of_days, fleet_factors)):
+        end = day - panel.start_day
+        part = _slice(panel, end - history_days + 1, end, factor, masked)
+        keep = np.flatnonzero(churn > day)
+        part = Panel([panel.accounts[k] for k in keep], part.start_day, part.values[keep], part.counts[keep],
+                     part.first_seen[keep], part.masked, part.fleet_factor)
+        scores = score_panel(part, replace(params, pooled_count_dispersion=dispersion))
+        is_judged = (scores["status"] == "judged").to_numpy()
+        judged[i] = int(is_judged.sum())
+        small = np.minimum(scores["p_down"].to_numpy(float), scores["p_up"].to_numpy(float)) <= fdr
+        rows = scores[is_judged & small]
+        if len(rows):
+            found.append(rows.assign(as_of_day=int(day)))
+        if progress:
+            progress(i + 1, len(as_of_days))
+    candidates = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=["as_of_day"])
+    return candidates, judged
+
+
+def select_replayed(candidates: pd.DataFrame, judged, as_of_days, *, fdr: float = 0.01, min_change_pct: float = 30.0,
+                    window_days: int = 7) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The fleet-wide half of :func:`replay`: per day, the alerts among every block's candidates.
+
+    ``judged``: per day the fleet's judged accounts (the blocks' counts summed), so each day's
+    Benjamini–Hochberg family is the whole fleet's two p-values per account, as in the daily scan.
+    Returns ``(alerts, exposure)`` as :func:`replay` does.
+    """
+    found, exposure = [], []
+    by_day = dict(tuple(candidates.groupby("as_of_day"))) if len(candidates) else {}
+    for day, n_judged in zip(as_of_days, judged):
+        as_of = EPOCH + timedelta(days=int(day))
+        exposure.append({"as_of": as_of, "judged": int(n_judged)})
+        rows = by_day.get(int(day))
+        if rows is None:
+            continue
+        alerts = select_alerts(rows.drop(columns="as_of_day"), as_of=as_of, fdr=fdr, max_alerts=None,
+                               min_change_pct=min_change_pct, window_days=window_days,
+                               family_size=2 * int(n_judged))
+        if len(alerts):
+            found.append(alerts[REPLAY_COLUMNS])
+    alerts = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=REPLAY_COLUMNS)
+    alerts["as_of"] = pd.to_datetime(alerts["as_of"]).dt.date
+    return alerts, pd.DataFrame(exposure, columns=["as_of", "judged"])
+
+
 def replay(panel: Panel, as_of_days, *, params: ScanParams = ScanParams(), history_days: int = 365,
            fdr: float = 0.01, min_change_pct: float = 30.0, outcomes: pd.DataFrame | None = None,
            fleet_sample: int = 5000, progress=None) -> tuple[pd.DataFrame, pd.DataFrame]:
@@ -47,40 +152,17 @@ def replay(panel: Panel, as_of_days, *, params: ScanParams = ScanParams(), histo
     ``panel`` holds the whole history, without a fleet factor (raw values, NaN before first
     activity).  Accounts with a ``churned`` outcome on or before a day are left out of that day.
     Returns ``(alerts, exposure)``: every alert raised (as_of, account, direction, kind,
-    severity), and per day the number of accounts judged.
+    severity), and per day the number of accounts judged.  The api runs the same three steps
+    over account blocks (:func:`replay_fleet_factors`, :func:`replay_scores` per block,
+    :func:`select_replayed`), so memory is bounded by the block size.
     """
-    churn_day = {}
-    if outcomes is not None and len(outcomes):
-        for row in outcomes[outcomes["outcome"] == "churned"].itertuples():
-            day = (row.date - EPOCH).days
-            churn_day[row.account] = min(day, churn_day.get(row.account, day))
-    churn = np.array([churn_day.get(a, np.iinfo(np.int64).max) for a in panel.accounts])
     step = max(1, len(panel.accounts) // fleet_sample)
-    sample_rows = np.arange(0, len(panel.accounts), step)
-    raw_counts = np.where(np.isnan(panel.counts), 0.0, panel.counts)
-    found, exposure = [], []
-    for i, day in enumerate(as_of_days):
-        end = day - panel.start_day
-        start = end - history_days + 1
-        factor, masked = fleet_factor(_columns(raw_counts[sample_rows], start, end, 0.0))
-        part = _slice(panel, start, end, factor, masked)
-        alive = churn > day
-        keep = np.flatnonzero(alive)
-        part = Panel([panel.accounts[k] for k in keep], part.start_day, part.values[keep], part.counts[keep],
-                     part.first_seen[keep], part.masked, part.fleet_factor)
-        scores = score_panel(part, params)
-        as_of = EPOCH + timedelta(days=int(day))
-        alerts = select_alerts(scores, as_of=as_of, fdr=fdr, max_alerts=None, min_change_pct=min_change_pct,
-                               window_days=params.window_days)
-        exposure.append({"as_of": as_of, "judged": int((scores["status"] == "judged").sum())})
-        if len(alerts):
-            found.append(alerts[["as_of", "account", "direction", "kind", "severity"]])
-        if progress:
-            progress(i + 1, len(as_of_days))
-    columns = ["as_of", "account", "direction", "kind", "severity"]
-    alerts = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=columns)
-    alerts["as_of"] = pd.to_datetime(alerts["as_of"]).dt.date
-    return alerts, pd.DataFrame(exposure)
+    factors = replay_fleet_factors(panel.counts[::step], panel.start_day, as_of_days, history_days=history_days,
+                                   params=params)
+    candidates, judged = replay_scores(panel, as_of_days, factors, params=params, history_days=history_days,
+                                       churn=churn_days(panel.accounts, outcomes), fdr=fdr, progress=progress)
+    return select_replayed(candidates, judged, as_of_days, fdr=fdr, min_change_pct=min_change_pct,
+                           window_days=params.window_days)
 
 
 def _episodes(alerts: pd.DataFrame, step_days: int = 1) -> pd.DataFrame:

@@ -43,6 +43,21 @@ def store_options(func):
     return func
 
 
+def engine_options(func):
+    """--engine and --scheduler, the same on every command that can run on Dask."""
+    func = click.option("--scheduler", metavar="ADDRESS|local[:N]",
+                        help="With --engine dask: local[:N] starts N worker processes here (default 2); "
+                             "an address such as tcp://10.0.0.5:8786 connects to a running cluster.")(func)
+    return click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
+                        help="dask: run the work on a Dask cluster (pip install 'ebbwatch[dask]').")(func)
+
+
+def shared_dir_option(func):
+    return click.option("--shared-dir", type=click.Path(file_okay=False),
+                        help="With --engine dask: a folder every worker can read (NFS, a mounted bucket), "
+                             "where the store's index is exported for them. Default: a temporary folder here.")(func)
+
+
 def _emit(document: dict, fmt: str, render):
     """One JSON object on stdout for ``--format json``, else the text ``render`` makes."""
     click.echo(json.dumps(document) if fmt == "json" else render(document), nl=fmt == "json")
@@ -99,8 +114,9 @@ def main():
               help="Where rejected lines go (JSON lines). Default: beside the store.")
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True,
               help="json prints one summary object on stdout.")
+@engine_options
 @handle_errors
-def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, fmt):
+def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, fmt, engine, scheduler):
     """Ingest JSON-lines events into the activity store.
 
     INPUTS are .jsonl or .jsonl.gz files, directories (searched recursively, in sorted order) or
@@ -108,9 +124,13 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
     skipped. Bad lines go to the rejects file with their line number and reason; the rest of the
     file is ingested.
 
+    With --engine dask the files are parsed on the cluster's workers (they must see the same
+    paths) and the store takes them all in one transaction, with the same result.
+
     \b
     Examples:
       ebbwatch ingest events/ --identities identities.csv --accounts accounts.csv
+      ebbwatch ingest /mnt/events/2026-11/ --engine dask --scheduler tcp://10.0.0.5:8786
       zcat today.jsonl.gz | ebbwatch ingest -
       ebbwatch ingest --daily warehouse_daily.parquet
     """
@@ -118,7 +138,7 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
         raise click.UsageError("nothing to ingest: give INPUTS, --accounts, --identities or --daily")
     summary = api.ingest_files(list(inputs), db=db, config=config_path, accounts=accounts,
                                identities=identities, daily=daily, rejects_path=rejects_path,
-                               progress=_progress_printer("ingest"))
+                               progress=_progress_printer("ingest"), engine=engine, scheduler=scheduler)
     if fmt == "json":
         click.echo(json.dumps(summary, default=str))
     else:
@@ -185,6 +205,31 @@ def export_daily(db, config_path, fmt, output):
     click.echo(f"Wrote {rows:,} rows to {output}.", err=True)
 
 
+@export.command("index")
+@store_options
+@click.option("-o", "--output", required=True, type=click.Path(file_okay=False),
+              help="A new (or empty) folder to write.")
+@click.option("--as-of", help="Last day, YYYY-MM-DD. Default: the last complete day in the store.")
+@click.option("--history-days", type=click.IntRange(min=1),
+              help="Days up to --as-of. Default: the scan's history_days from the config.")
+@click.option("--accounts-per-part", type=click.IntRange(min=1), default=10_000, show_default=True,
+              help="Accounts per block file.")
+@handle_errors
+def export_index(db, config_path, output, as_of, history_days, accounts_per_part):
+    """Write the activity index the scan reads, as Parquet blocks of accounts.
+
+    The index is the weighted daily activity per account (event weights and exclusions from
+    the config applied): OUTPUT/rows/part=K/*.parquet holds block K's rows (account, day as days
+    since 1970-01-01, value, events, users) and OUTPUT/accounts.parquet lists each account's
+    block. The Dask engine reads these blocks on its workers; a notebook can read the folder
+    with pandas.read_parquet(OUTPUT + "/rows").
+    """
+    info = api.export_index(output, as_of=as_of, history_days=history_days, accounts_per_part=accounts_per_part,
+                            db=db, config=config_path)
+    click.echo(f"Wrote {info['rows']:,} rows for {info['accounts']:,} accounts in {info['parts']:,} block(s), "
+               f"{info['from']} .. {info['to']}, to {output}.", err=True)
+
+
 @main.command()
 @store_options
 @click.option("--as-of", help="Day to judge, YYYY-MM-DD. Default: the last complete day in the store.")
@@ -199,11 +244,11 @@ def export_daily(db, config_path, fmt, output):
 @click.option("--all", "show_all", is_flag=True, help="Print every open alert, not only new and escalated ones.")
 @click.option("--record/--no-record", default=None,
               help="Record the day's alert states. Default: record when --as-of is not given.")
-@click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
-              help="dask: score account chunks on a Dask cluster (pip install 'ebbwatch[dask]').")
-@click.option("--scheduler", help="With --engine dask: local[:N] (N worker processes here) or a scheduler address.")
+@engine_options
+@shared_dir_option
 @handle_errors
-def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, record, engine, scheduler):
+def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, record, engine, scheduler,
+         shared_dir):
     """Judge every account's recent days against its own history and print ranked alerts.
 
     Kinds: drop (a sudden fall), stop (no activity, unusual for the account), slide (a gradual
@@ -221,7 +266,8 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
     record = (as_of is None) if record is None else record
     alerts = api.scan(as_of=as_of, db=db, config=config_path, kinds=list(kinds) or None,
                       max_alerts=max_alerts, chunk_size=chunk_size, progress=_progress_printer("scan"),
-                      record=record, show="all" if show_all else "new", engine=engine, scheduler=scheduler)
+                      record=record, show="all" if show_all else "new", engine=engine, scheduler=scheduler,
+                      shared_dir=shared_dir)
     from .report import render_alerts
 
     summary = alerts.attrs["summary"]
@@ -322,9 +368,13 @@ def report(db, config_path, html_path, as_of, limit):
 @click.option("--target-precision", type=click.FloatRange(0, 1), help="Or calibrate to this precision.")
 @click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False), help="Precision-recall over the sweep and lead times (.svg/.png).")
+@click.option("--chunk-size", type=click.IntRange(min=1), default=10_000, show_default=True,
+              help="Accounts replayed at once (bounds memory).")
+@engine_options
+@shared_dir_option
 @handle_errors
 def backtest_command(db, config_path, outcomes, start, end, step, lead_days, horizon_days, budget, target_precision,
-                     fmt, plot_path):
+                     fmt, plot_path, chunk_size, engine, scheduler, shared_dir):
     """Replay the daily scan over history: how early and how precisely would it have alerted?
 
     Each replayed day sees only the data up to it (accounts that already churned are left out),
@@ -334,7 +384,8 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
     """
     result = api.backtest(outcomes, start=start, end=end, step=step, lead_days=lead_days, horizon_days=horizon_days,
                           budget=budget, target_precision=target_precision, db=db, config=config_path,
-                          progress=_progress_printer("replay"))
+                          progress=_progress_printer("replay"), chunk_size=chunk_size, engine=engine,
+                          scheduler=scheduler, shared_dir=shared_dir)
     leads = result.pop("_lead_times")
     if plot_path:
         from .report.plot import plot_backtest

@@ -71,6 +71,19 @@ FAST_TS_PATTERN = (
 )
 
 
+def _arrow(con, query: str) -> pa.Table:
+    """A query's rows as one Arrow table.
+
+    DuckDB 2 refuses a relation query while an earlier ``execute`` result is not drained (a
+    ``fetchone`` leaves it open), and ``arrow()`` became a batch reader in 1.4; draining with a
+    trivial query first and picking the table method that exists works across versions.
+    """
+    con.execute("SELECT 1").fetchall()
+    relation = con.sql(query)
+    to_table = getattr(relation, "to_arrow_table", None)
+    return to_table() if to_table is not None else relation.arrow()
+
+
 def quote_ident(name: str) -> str:
     """A SQL identifier, double-quoted with embedded quotes doubled."""
     return '"' + name.replace('"', '""') + '"'
@@ -138,6 +151,16 @@ class Store:
 
     def accounts(self) -> pd.DataFrame:
         return self.con.execute("SELECT * FROM accounts ORDER BY account").df()
+
+    def reference_tables(self) -> tuple[pa.Table, pa.Table]:
+        """The accounts and identities tables as Arrow, for :func:`scratch_store` elsewhere."""
+        return (_arrow(self.con, "SELECT * FROM accounts"),
+                _arrow(self.con, "SELECT * FROM identities"))
+
+    def ingested_digests(self) -> dict[str, str]:
+        """Content hash → the file first ingested with it."""
+        return dict(self.con.execute(
+            "SELECT sha256, min_by(file, ingested_at) FROM ingest_log GROUP BY 1").fetchall())
 
     # -- ingest log ------------------------------------------------------------------------
     def already_ingested(self, sha256: str) -> str | None:
@@ -259,14 +282,17 @@ class Store:
         return table.num_rows
 
     # -- events: merge (both paths) ----------------------------------------------------------
-    def merge_staged(self, dedupe_window_days: int) -> dict:
-        """Attribute, dedupe and aggregate the staged events into the daily tables.
+    def prepare_staged(self) -> dict:
+        """Attribute the staged events and set aside repeats within the file.
 
-        The staged table's row order is the file's line order (DuckDB preserves insertion
-        order), so "first delivery wins" means the lowest row number.  Steps with nothing to do
-        (no event without an account, no repeated id, no id seen before, no account time zone)
-        are skipped: they are the common case and the costly part.  Returns counts:
-        ``ingested``, ``duplicates``, ``unattributed`` (by reason), first and last day touched.
+        Leaves the view ``prepared`` (``id_hash``, ``ts_us``, ``account``, ``day`` in the
+        account's time zone, ``event``, ``user``): the attributed events, each id's first
+        delivery only.  The staged table's row order is the file's line order (DuckDB preserves
+        insertion order), so "first delivery wins" means the lowest row number.  Steps with
+        nothing to do (no event without an account, no repeated id, no account time zone) are
+        skipped: they are the common case and the costly part.  Returns ``candidates`` (attributed
+        events), ``repeats`` (later deliveries of an id within the file) and ``unattributed``
+        (by reason).
         """
         con = self.con
         without_account, repeated = con.execute(
@@ -279,6 +305,8 @@ class Store:
             base = "staged_n"
         else:
             base = "staged"
+        unattributed = {}
+        source = base
         if without_account:
             con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE attributed AS
@@ -301,46 +329,132 @@ class Store:
                 "SELECT unattributed, count(*) FROM attributed WHERE unattributed IS NOT NULL GROUP BY 1"
             ).fetchall())
             source = "attributed"
-        else:
-            unattributed = {}
-            source = base
-        # Dedupe: the first delivery of an id wins, within this file and against ids already seen.
-        # (Repeats were counted by hash: a collision only sends us down this exact path.)
-        conditions = ["unattributed IS NULL"] if without_account else []
+        conditions = ["s.unattributed IS NULL"] if without_account else []
+        repeats = 0
         if repeated:
+            # (Repeats were counted by hash: a collision only sends us down this exact path.)
             con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE repeat_losers AS
                 SELECT line_order FROM {source} WHERE id IS NOT NULL
                 QUALIFY row_number() OVER (PARTITION BY id ORDER BY line_order) > 1"""
             )
-            conditions.append("line_order NOT IN (SELECT line_order FROM repeat_losers)")
-        if con.execute("SELECT count(*) FROM (SELECT 1 FROM seen_ids LIMIT 1)").fetchone()[0]:
-            conditions.append("(id IS NULL OR hash(id) NOT IN (SELECT id_hash FROM seen_ids))")
-        where = " AND ".join(conditions) or "true"
-        if conditions:
-            con.execute(f"CREATE OR REPLACE TEMP TABLE fresh AS SELECT * FROM {source} WHERE {where}")
-            fresh = "fresh"
-        else:
-            fresh = source
+            conditions.append("s.line_order NOT IN (SELECT line_order FROM repeat_losers)")
         candidates = con.execute(
             f"SELECT count(*) FROM {source}" + (" WHERE unattributed IS NULL" if without_account else "")
         ).fetchone()[0]
-        fresh_count = candidates if fresh == source else con.execute(f"SELECT count(*) FROM {fresh}").fetchone()[0]
-        con.execute(f"INSERT INTO seen_ids SELECT hash(id), make_timestamptz(ts_us) FROM {fresh} WHERE id IS NOT NULL")
-        zoned = con.execute("SELECT count(*) FROM accounts WHERE timezone IS NOT NULL").fetchone()[0]
-        if zoned:
-            day = "CAST(timezone(COALESCE(a.timezone, 'UTC'), make_timestamptz(f.ts_us)) AS DATE)"
-            join = "LEFT JOIN accounts a ON a.account = f.account"
+        if repeated:
+            repeats = con.execute(
+                f"SELECT count(*) FROM {source} s JOIN repeat_losers r ON r.line_order = s.line_order"
+                + (" WHERE s.unattributed IS NULL" if without_account else "")
+            ).fetchone()[0]
+        if con.execute("SELECT count(*) FROM accounts WHERE timezone IS NOT NULL").fetchone()[0]:
+            day = "CAST(timezone(COALESCE(a.timezone, 'UTC'), make_timestamptz(s.ts_us)) AS DATE)"
+            join = "LEFT JOIN accounts a ON a.account = s.account"
         else:
-            day = "CAST(make_timestamp(f.ts_us) AS DATE)"
-            join = ""
+            day, join = "CAST(make_timestamp(s.ts_us) AS DATE)", ""
+        con.execute(
+            f"""CREATE OR REPLACE TEMP VIEW prepared AS
+            SELECT CASE WHEN s.id IS NOT NULL THEN hash(s.id) END AS id_hash, s.ts_us, s.account, {day} AS day, s.event, s."user"
+            FROM {source} s {join} WHERE {" AND ".join(conditions) or "true"}"""
+        )
+        return {"candidates": candidates, "repeats": repeats, "unattributed": unattributed}
+
+    def prepared_table(self) -> pa.Table:
+        """The ``prepared`` view as an Arrow table (what a Dask worker keeps for a file)."""
+        return _arrow(self.con, "SELECT * FROM prepared")
+
+    def drop_prepared(self):
+        self.con.execute("DROP VIEW IF EXISTS prepared")
+        for table in ("staged", "staged_n", "attributed", "repeat_losers"):
+            self.con.execute(f"DROP TABLE IF EXISTS {table}")
+
+    def merge_staged(self, dedupe_window_days: int) -> dict:
+        """Attribute, dedupe and aggregate the staged events into the daily tables.
+
+        Dedupe: the first delivery of an id wins, within this file (:meth:`prepare_staged`) and
+        against ids already seen.  Returns counts: ``ingested``, ``duplicates``,
+        ``unattributed`` (by reason), first and last day touched.
+        """
+        con = self.con
+        prepared = self.prepare_staged()
+        if con.execute("SELECT count(*) FROM (SELECT 1 FROM seen_ids LIMIT 1)").fetchone()[0]:
+            con.execute(
+                """CREATE OR REPLACE TEMP TABLE fresh AS SELECT * FROM prepared
+                WHERE id_hash IS NULL OR id_hash NOT IN (SELECT id_hash FROM seen_ids)"""
+            )
+            fresh = "fresh"
+            fresh_count = con.execute("SELECT count(*) FROM fresh").fetchone()[0]
+        else:
+            fresh = "prepared"
+            fresh_count = prepared["candidates"] - prepared["repeats"]
+        con.execute(f"INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh} WHERE id_hash IS NOT NULL")
         con.execute(
             f"""CREATE OR REPLACE TEMP TABLE new_user_daily AS
-            SELECT f.account, {day} AS day, f.event, f."user", count(*) AS events
-            FROM {fresh} f {join} GROUP BY ALL"""
+            SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL"""
         )
-        for table in ("staged", "staged_n", "attributed", "repeat_losers", "fresh"):
-            con.execute(f"DROP TABLE IF EXISTS {table}")
+        self.drop_prepared()
+        con.execute("DROP TABLE IF EXISTS fresh")
+        first_day, last_day = self._merge_new_user_daily()
+        self.forget_old_ids(dedupe_window_days)
+        return {
+            "ingested": fresh_count,
+            "duplicates": prepared["candidates"] - fresh_count,
+            "unattributed": prepared["unattributed"],
+            "first_day": first_day,
+            "last_day": last_day,
+        }
+
+    def forget_old_ids(self, dedupe_window_days: int):
+        """Forget ids older than the dedupe window, measured back from the newest event time seen."""
+        self.con.execute(
+            """DELETE FROM seen_ids WHERE ts < (SELECT max(ts) FROM seen_ids) - to_days(CAST(? AS INTEGER))""",
+            [int(dedupe_window_days)],
+        )
+
+    def claim_ids(self, id_hash: np.ndarray, ts_us: np.ndarray, dedupe_window_days: int) -> np.ndarray:
+        """One file's event ids (first deliveries within it) against the ids already seen.
+
+        Returns the hashes already seen (those events are duplicates); records the others with
+        their event times and forgets ids older than the window, as :meth:`merge_staged` does
+        for a file, so files claimed one after another dedupe exactly as if ingested in turn.
+        """
+        con = self.con
+        ids = pa.table({"id_hash": pa.array(id_hash, pa.uint64()), "ts_us": pa.array(ts_us, pa.int64())})
+        con.register("claimed_ids", ids)
+        try:
+            seen = con.execute(
+                "SELECT c.id_hash FROM claimed_ids c SEMI JOIN seen_ids s ON s.id_hash = c.id_hash"
+            ).fetchnumpy()["id_hash"]
+            con.execute(
+                """INSERT INTO seen_ids SELECT c.id_hash, make_timestamptz(c.ts_us) FROM claimed_ids c
+                ANTI JOIN seen_ids s ON s.id_hash = c.id_hash"""
+            )
+        finally:
+            con.unregister("claimed_ids")
+        self.forget_old_ids(dedupe_window_days)
+        return np.asarray(seen, dtype=np.uint64)
+
+    def merge_user_daily(self, tables: list[pa.Table]) -> tuple:
+        """Add per-user daily counts (``account, day, event, user, events``; several tables may
+        hold the same key) to ``user_daily`` and ``daily``.  Returns the first and last day."""
+        if not tables:
+            return None, None
+        incoming = pa.concat_tables(tables)
+        self.con.register("incoming_user_daily", incoming)
+        try:
+            self.con.execute(
+                """CREATE OR REPLACE TEMP TABLE new_user_daily AS
+                SELECT account, day, event, "user", CAST(sum(events) AS BIGINT) AS events
+                FROM incoming_user_daily GROUP BY ALL"""
+            )
+        finally:
+            self.con.unregister("incoming_user_daily")
+        return self._merge_new_user_daily()
+
+    def _merge_new_user_daily(self) -> tuple:
+        """Fold the temp table ``new_user_daily`` into ``user_daily`` and ``daily`` (the touched
+        account-days are recomputed whole).  Returns the first and last day touched."""
+        con = self.con
         touched_any = con.execute("SELECT count(*) FROM (SELECT 1 FROM new_user_daily LIMIT 1)").fetchone()[0] > 0
         store_empty = con.execute("SELECT count(*) FROM (SELECT 1 FROM user_daily LIMIT 1)").fetchone()[0] == 0
         first_day, last_day = con.execute("SELECT min(day), max(day) FROM new_user_daily").fetchone()
@@ -373,20 +487,9 @@ class Store:
                 FROM merged_user_daily GROUP BY ALL"""
             )
             con.execute("DROP TABLE merged_user_daily")
-        # Forget ids older than the dedupe window, measured back from the newest event time seen.
-        con.execute(
-            """DELETE FROM seen_ids WHERE ts < (SELECT max(ts) FROM seen_ids) - to_days(CAST(? AS INTEGER))""",
-            [int(dedupe_window_days)],
-        )
         con.execute("DROP TABLE IF EXISTS new_user_daily")
         con.execute("DROP TABLE IF EXISTS touched")
-        return {
-            "ingested": fresh_count,
-            "duplicates": candidates - fresh_count,
-            "unattributed": unattributed,
-            "first_day": first_day,
-            "last_day": last_day,
-        }
+        return first_day, last_day
 
     # -- daily input -----------------------------------------------------------------------
     def _daily_source(self, path: str) -> str:
@@ -497,24 +600,59 @@ class Store:
     def last_day(self):
         return self.con.execute("SELECT max(day) FROM daily").fetchone()[0]
 
-    def export_scan_input(self, path: str, event_weights: dict[str, float], start_day, end_day) -> int:
-        """Write the weighted daily rows the scan reads (account, day number, value, events, users)
-        to a Parquet file sorted by account, for engines that read partitions themselves."""
+    def export_index_parts(self, directory: str, event_weights: dict[str, float], start_day, end_day,
+                           accounts_per_part: int) -> dict:
+        """Write the weighted daily rows the scan reads as a Parquet dataset of account blocks.
+
+        ``directory/accounts.parquet`` lists every account (``account``, ``part``) in
+        :meth:`account_ids` order, ``accounts_per_part`` to a block; ``directory/rows/part=K/`` holds
+        block K's rows (``account``, ``day`` as days since 1970-01-01, ``value``, ``events``,
+        ``users``) sorted by account and day.  A block whose accounts had no activity in the
+        window has no folder.  Engines and notebooks read a block without the store.
+        Returns ``{"accounts": n, "parts": n, "rows": n}``.
+        """
+        if accounts_per_part < 1:
+            raise ValueError(f"accounts_per_part must be >= 1, got {accounts_per_part}")
         weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
+        Path(directory).mkdir(parents=True, exist_ok=True)
+        blocks = f"""SELECT account, CAST((row_number() OVER (ORDER BY account) - 1) // {int(accounts_per_part)}
+                            AS INTEGER) AS part
+                     FROM (SELECT DISTINCT account FROM daily)"""
         self.con.register("event_weights", weights)
         try:
+            self.con.execute(f"CREATE OR REPLACE TEMP TABLE account_blocks AS {blocks}")
             self.con.execute(
-                f"""COPY (SELECT d.account, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
-                            sum(d.events * e.weight) AS value, CAST(sum(d.events) AS DOUBLE) AS events,
-                            CAST(COALESCE(max(d.users), 0) AS DOUBLE) AS users
-                     FROM daily d JOIN event_weights e ON e.event = d.event
-                     WHERE d.day BETWEEN ? AND ? AND e.weight > 0 GROUP BY ALL ORDER BY d.account, day)
-                TO {quote_literal(path)} (FORMAT parquet, ROW_GROUP_SIZE 100000)""",
-                [start_day, end_day],
+                f"COPY (SELECT account, part FROM account_blocks ORDER BY account) "
+                f"TO {quote_literal(str(Path(directory) / 'accounts.parquet'))} (FORMAT parquet)"
             ).fetchall()
+            rows = self.con.execute(
+                # users as weighted_daily gives them: distinct users where user_daily has the
+                # account-day, else the largest per-event count (daily input only).
+                f"""COPY (WITH totals AS (
+                        SELECT b.part, d.account, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
+                               sum(d.events * e.weight) AS value, CAST(sum(d.events) AS DOUBLE) AS events,
+                               CAST(COALESCE(max(d.users), 0) AS DOUBLE) AS users
+                        FROM daily d JOIN event_weights e ON e.event = d.event
+                        JOIN account_blocks b ON b.account = d.account
+                        WHERE d.day BETWEEN $1 AND $2 AND e.weight > 0 GROUP BY ALL),
+                      distinct_users AS (
+                        SELECT u.account, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day,
+                               CAST(count(DISTINCT u."user") AS DOUBLE) AS users
+                        FROM user_daily u JOIN event_weights e ON e.event = u.event
+                        WHERE u.day BETWEEN $1 AND $2 AND e.weight > 0 GROUP BY ALL)
+                     SELECT t.part, t.account, t.day, t.value, t.events, COALESCE(du.users, t.users) AS users
+                     FROM totals t LEFT JOIN distinct_users du ON du.account = t.account AND du.day = t.day
+                     ORDER BY t.account, t.day)
+                TO {quote_literal(str(Path(directory) / "rows"))} (FORMAT parquet, PARTITION_BY (part), OVERWRITE_OR_IGNORE,
+                                               ROW_GROUP_SIZE 100000)""",
+                [start_day, end_day],
+            ).fetchall()[0][0]
+            n_accounts, n_parts = self.con.execute(
+                "SELECT count(*), COALESCE(max(part) + 1, 0) FROM account_blocks").fetchall()[0]
         finally:
             self.con.unregister("event_weights")
-        return 1
+            self.con.execute("DROP TABLE IF EXISTS account_blocks")
+        return {"accounts": int(n_accounts), "parts": int(n_parts), "rows": int(rows)}
 
     def weighted_daily(self, event_weights: dict[str, float], accounts: list[str], start_day, end_day):
         """Weighted event totals per account and day, for ``accounts`` and days in [start, end].
@@ -685,6 +823,38 @@ def _migrate(con, path: str):
             "INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", [str(version)]
         )
         con.execute("COMMIT")
+
+
+def scratch_store(accounts: pa.Table, identities: pa.Table) -> Store:
+    """An in-memory store holding only the given accounts and identities: where a worker
+    stages, attributes and dates one file exactly as the real store would."""
+    st = open_store(":memory:")
+    for name, table in (("accounts", accounts), ("identities", identities)):
+        st.con.register("incoming_reference", table)
+        try:
+            st.con.execute(f"INSERT INTO {name} SELECT * FROM incoming_reference")
+        finally:
+            st.con.unregister("incoming_reference")
+    return st
+
+
+def aggregate_events(events: pa.Table, duplicate_hashes: np.ndarray) -> tuple[pa.Table, int, object, object]:
+    """Per-user daily counts of prepared events (``Store.prepared_table``) without the ids in
+    ``duplicate_hashes``.  Returns ``(account, day, event, user, events)`` rows, the number of
+    events counted, and the first and last day."""
+    con = duckdb.connect()
+    try:
+        con.register("events", events)
+        con.register("duplicates", pa.table({"id_hash": pa.array(duplicate_hashes, pa.uint64())}))
+        con.execute(
+            """CREATE TEMP TABLE fresh AS SELECT * FROM events e
+            WHERE e.id_hash IS NULL OR e.id_hash NOT IN (SELECT id_hash FROM duplicates)"""
+        )
+        counted, first_day, last_day = con.execute("SELECT count(*), min(day), max(day) FROM fresh").fetchall()[0]
+        table = _arrow(con, 'SELECT account, day, event, "user", count(*) AS events FROM fresh GROUP BY ALL')
+    finally:
+        con.close()
+    return table, int(counted), first_day, last_day
 
 
 def resolve_path(path: str | None) -> str:

@@ -13,7 +13,7 @@ from typing import Callable, Sequence
 import pandas as pd
 
 from ..errors import EbbwatchError, UsageError
-from .local import chunked
+
 
 LOCAL = re.compile(r"^local(?::(\d+))?$")
 
@@ -49,24 +49,30 @@ def dask_client(scheduler: str | None):
         client.close()
 
 
-def run_dask(accounts: Sequence[str], task: Callable, *, chunk_size: int = 10_000, client=None,
-             retries: int = 3, progress=None) -> pd.DataFrame:
-    """``task(chunk)`` for each chunk of ``accounts`` on the cluster, concatenated in order.
-
-    A chunk whose worker dies is retried (``retries`` times).  Every account must come back:
-    a result missing any is an error, never a silently shorter answer.
-    """
-    chunks = [list(c) for c in chunked(list(accounts), chunk_size)]
-    futures = client.map(task, chunks, retries=retries, pure=False)
-    parts = []
+def gather_in_order(futures: Sequence, what: str = "task", *, progress=None) -> list:
+    """The futures' results in order.  A task that failed (after Dask's retries) is one clear
+    error naming it, never a shorter list."""
+    results = []
     for i, future in enumerate(futures):
         try:
-            parts.append(future.result())
+            results.append(future.result())
         except Exception as exc:  # noqa: BLE001 - a task failure becomes one clear error
-            raise EbbwatchError(f"chunk {i + 1} of {len(chunks)} failed on the cluster: {exc}") from exc
+            raise EbbwatchError(f"{what} task {i + 1} of {len(futures)} failed on the cluster: {exc}") from exc
         if progress:
-            progress(min((i + 1) * chunk_size, len(accounts)), len(accounts))
-    result = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
+            progress(i + 1, len(futures))
+    return results
+
+
+def map_dask(client, task: Callable, items: Sequence, *, retries: int = 3, progress=None) -> list:
+    """``[task(item) for item in items]`` on the cluster, results in the order of ``items``;
+    a task whose worker dies is retried (``retries`` times)."""
+    return gather_in_order(client.map(task, list(items), retries=retries, pure=False), progress=progress)
+
+
+def concat_accounts(frames: Sequence[pd.DataFrame], accounts: Sequence[str]) -> pd.DataFrame:
+    """The per-block score frames as one, checked to hold exactly ``accounts`` in order:
+    a result missing any is an error, never a silently shorter answer."""
+    result = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
     if len(result) != len(accounts) or list(result["account"]) != list(accounts):
-        raise EbbwatchError(f"the cluster returned {len(result)} of {len(accounts)} accounts; refusing a partial scan")
+        raise EbbwatchError(f"the cluster returned {len(result)} of {len(accounts)} accounts; refusing a partial result")
     return result

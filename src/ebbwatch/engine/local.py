@@ -18,6 +18,16 @@ def chunked(items: Sequence, size: int):
         yield items[start:start + size]
 
 
+def map_local(task: Callable, items: Sequence, *, progress: Callable[[int, int], None] | None = None) -> list:
+    """``[task(item) for item in items]``, reporting progress after each item."""
+    results = []
+    for i, item in enumerate(items):
+        results.append(task(item))
+        if progress:
+            progress(i + 1, len(items))
+    return results
+
+
 def run_local(accounts: Sequence[str], load: Callable, score: Callable, *, chunk_size: int = 10_000,
               progress: Callable[[int, int], None] | None = None) -> pd.DataFrame:
     """``score(load(chunk))`` for each chunk of ``accounts``, concatenated in order."""

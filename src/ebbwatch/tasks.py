@@ -1,0 +1,208 @@
+"""The work an engine runs on one partition: stage one event file, score a block of accounts,
+replay a block, read a block from the Parquet export.
+
+Plain, picklable arguments only (no config, no open store), so the same functions run in this
+process or on a Dask worker.  A block is read from the dataset that
+``store.Store.export_index_parts`` writes (``ebbwatch export index``).
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+
+from . import store as store_mod
+from .errors import InputError
+from .frames import FileResult, Reject
+from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
+from .ingest.readers import iter_lines, scan_file
+from .series import Panel, build_panel
+
+# Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
+# lines may nest deeper than this goes through the precise path so both paths agree.
+MAX_FAST_NESTING = 500
+
+
+# -- events -----------------------------------------------------------------------------------
+
+def precise_records(path: str, display: str, rules: LineRules, result: FileResult, rejects: list) -> pa.Table:
+    """Every line of ``path`` through the precise parser: the valid ones as a table (ts_us,
+    event, user, account, id), each bad one counted in ``result`` and added to ``rejects``."""
+    columns = {"ts_us": [], "event": [], "user": [], "account": [], "id": []}
+    for number, raw in iter_lines(path):
+        try:
+            parsed = parse_line(raw, rules)
+        except LineRejected as exc:
+            result.lines += 1
+            result.rejected[exc.reason] = result.rejected.get(exc.reason, 0) + 1
+            rejects.append(Reject(display, number, exc.reason, excerpt(raw), exc.detail))
+            continue
+        if parsed is None:
+            continue
+        result.lines += 1
+        for key, value in zip(columns, parsed):
+            columns[key].append(value)
+    schema = pa.schema([("ts_us", pa.int64()), ("event", pa.string()), ("user", pa.string()),
+                        ("account", pa.string()), ("id", pa.string())])
+    return pa.table(columns, schema=schema)
+
+
+def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reason=None):
+    """Parse one event file into ``st``'s temp table ``staged``: DuckDB's native reader when
+    every line passes its checks, else the precise parser line by line.
+
+    ``skip_reason(digest)`` may return why the file is not to be ingested (its content was
+    ingested before); then nothing is staged.  Returns ``(digest, result, rejects)``, with
+    ``result.skipped`` set for a skipped file.
+    """
+    result = FileResult(file=display)
+    rejects: list[Reject] = []
+    # Hashing (and measuring the longest line) runs in a thread beside the fast-path parse:
+    # both release the GIL.  Staging writes only temporary tables, so a fast-path parse error
+    # cannot touch the store.
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        scanning = pool.submit(scan_file, path)
+        try:
+            staged = st.stage_jsonl_fast(path, fields, rules.ts_format, rules.max_line_bytes,
+                                         rules.earliest_us, rules.latest_us)
+        finally:
+            digest, longest_line, deepest = scanning.result()
+    reason = skip_reason(digest) if skip_reason else None
+    if reason is not None:
+        st.drop_staged()
+        result.skipped = reason
+        return digest, result, rejects
+    if staged is not None and (longest_line > rules.max_line_bytes or deepest > MAX_FAST_NESTING):
+        st.drop_staged()
+        staged = None
+    if staged is None:
+        result.path_taken = "precise"
+        st.stage_records(precise_records(path, display, rules, result, rejects))
+    else:
+        result.lines = staged
+    return digest, result, rejects
+
+
+@dataclass
+class ParsedFile:
+    """One event file parsed, attributed and dated on a worker, not yet deduped across files.
+
+    ``events``: the prepared rows (``Store.prepared_table``); ``candidates`` attributed events,
+    ``repeats`` later deliveries of an id within the file.  ``error``: why the file could not
+    be read (then nothing else is set).
+    """
+
+    file: str
+    digest: str | None = None
+    result: FileResult | None = None
+    rejects: list = field(default_factory=list)
+    candidates: int = 0
+    repeats: int = 0
+    events: pa.Table | None = None
+    error: str | None = None
+    ids: tuple | None = None  # (id_hash uint64, ts_us int64) of the events with an id
+
+    def summary(self) -> "ParsedFile":
+        """This file without its events but with their ids: what the driver needs to dedupe."""
+        ids = None
+        if self.events is not None:
+            with_id = self.events.filter(self.events["id_hash"].is_valid())
+            ids = (with_id["id_hash"].to_numpy(), with_id["ts_us"].to_numpy())
+        return replace(self, events=None, ids=ids)
+
+
+def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.Table, identities: pa.Table,
+               known_digests: dict) -> ParsedFile:
+    """Stage, attribute and date one event file in a scratch store holding the real store's
+    accounts and identities (one task of a Dask ingest).  ``item``: (path, name to report)."""
+    path, display = item
+    st = store_mod.scratch_store(accounts, identities)
+    try:
+        try:
+            digest, result, rejects = stage_file(
+                st, path, display, rules, fields,
+                skip_reason=lambda d: None if d not in known_digests else
+                f"already ingested (same content as {known_digests[d]})")
+        except InputError as exc:
+            return ParsedFile(display, error=str(exc))
+        parsed = ParsedFile(display, digest, result, rejects)
+        if result.skipped is None:
+            prepared = st.prepare_staged()
+            result.unattributed = prepared["unattributed"]
+            parsed.candidates, parsed.repeats = prepared["candidates"], prepared["repeats"]
+            parsed.events = st.prepared_table()
+            st.drop_prepared()
+        return parsed
+    finally:
+        st.close()
+
+
+def count_parsed(parsed: ParsedFile, duplicate_hashes: np.ndarray):
+    """One parsed file's per-user daily counts without the ids already seen (one task of a Dask
+    ingest).  Returns ``(table, result, first_day, last_day)`` with the result's counts filled."""
+    table, counted, first_day, last_day = store_mod.aggregate_events(parsed.events, duplicate_hashes)
+    result = parsed.result
+    result.ingested = counted
+    result.duplicates = parsed.candidates - counted
+    return table, result, first_day, last_day
+
+
+# -- accounts ---------------------------------------------------------------------------------
+
+
+def read_index_part(directory: str, part: int, accounts: list[str]):
+    """Block ``part`` of an index export as ``(account_index, day, value, events, users)``
+    arrays, ``account_index`` indexing into ``accounts`` (the block's accounts, in order)."""
+    import pyarrow.parquet as pq
+
+    folder = Path(directory) / "rows" / f"part={int(part)}"
+    if not folder.is_dir():  # no account of the block was active in the window
+        empty = np.zeros(0)
+        return empty.astype(np.int64), empty.astype(np.int64), empty, empty, empty
+    frame = pq.read_table(folder).to_pandas()
+    position = {a: i for i, a in enumerate(accounts)}
+    index = frame["account"].map(position)
+    if index.isna().any():
+        stray = frame.loc[index.isna(), "account"].iloc[0]
+        raise ValueError(f"{folder} holds account {stray!r}, which is not in the block's account list")
+    return (index.to_numpy(np.int64), frame["day"].to_numpy(np.int64), frame["value"].to_numpy(float),
+            frame["events"].to_numpy(float), frame["users"].to_numpy(float))
+
+
+def part_panel(directory: str, part: int, accounts: list[str], *, start_day: int, end_day: int, normalise: str,
+               seats: dict, fleet_factor=None, masked=None) -> Panel:
+    """Block ``part`` as a :class:`series.Panel` over days ``start_day .. end_day``."""
+    idx, day, value, events, users = read_index_part(directory, part, accounts)
+    keep = (day >= start_day) & (day <= end_day)
+    return build_panel(idx[keep], day[keep], value[keep], events[keep], users[keep], accounts=list(accounts),
+                       start_day=start_day, end_day=end_day, normalise=normalise,
+                       seats=np.array([seats.get(a, np.nan) for a in accounts], float),
+                       fleet_factor=fleet_factor, masked=masked)
+
+
+def score_part(part_and_accounts, *, directory: str, start_day: int, end_day: int, normalise: str, seats: dict,
+               fleet_factor, masked, params):
+    """``detect.score_panel`` on one block of the export (one task of the scan)."""
+    from .detect import score_panel
+
+    part, accounts = part_and_accounts
+    panel = part_panel(directory, part, accounts, start_day=start_day, end_day=end_day, normalise=normalise,
+                       seats=seats, fleet_factor=fleet_factor, masked=masked)
+    return score_panel(panel, params)
+
+
+def replay_part(part_and_accounts, *, directory: str, start_day: int, end_day: int, normalise: str, seats: dict,
+                as_of_days, fleet_factors, churn: dict, params, history_days: int, fdr: float):
+    """``backtest.replay_scores`` on one block of the export (one task of the backtest)."""
+    from .backtest import replay_scores
+
+    part, accounts = part_and_accounts
+    panel = part_panel(directory, part, accounts, start_day=start_day, end_day=end_day, normalise=normalise,
+                       seats=seats)
+    never = np.iinfo(np.int64).max
+    return replay_scores(panel, as_of_days, fleet_factors, params=params, history_days=history_days,
+                         churn=np.array([churn.get(a, never) for a in accounts], dtype=np.int64), fdr=fdr)
