@@ -200,23 +200,23 @@ class Store:
         names = [fields.ts, fields.event, fields.user, fields.account, fields.id]
         spec = ", ".join(f"{quote_literal(n)}: 'JSON'" for n in dict.fromkeys(names))
         ts, ev, us, ac, idc = (quote_ident(n) for n in names)
-        # JSON values are typed by their first character (cheaper than json_type) and strings
-        # without escapes are unquoted by slicing (cheaper than ->>); other strings use ->>.
+        # JSON values are typed by their first character (cheaper than json_type); ->> unquotes
+        # and unescapes a string (measured: cheaper than slicing the quotes off with a CASE for
+        # escapes, ~0.3 s of 1.4 s on 2M lines).
         def text(col):
             return f"CAST({col} AS VARCHAR)"
 
         def unquote(col):
-            return (f"CASE WHEN NOT contains({text(col)}, '\\') THEN {text(col)}[2:-2] "
-                    f"ELSE {col} ->> '$' END")
+            return f"({col} ->> '$')"
 
         def is_string(col):
-            return f"{text(col)}[1] = '\"'"
+            return f"prefix({text(col)}, '\"')"
 
         def is_integer(col):
             return f"regexp_full_match({text(col)}, '-?[0-9]{{1,19}}')"
 
         def id_ok(col):
-            return f"(CASE WHEN {is_string(col)} THEN true ELSE {is_integer(col)} END)"
+            return f"({is_string(col)} OR {is_integer(col)})"
 
         def is_number(col):
             return f"regexp_full_match({text(col)}, '-?[0-9]+(\\.[0-9]+)?([eE][-+]?[0-9]+)?')"
