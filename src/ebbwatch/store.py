@@ -388,13 +388,19 @@ class Store:
             fresh = "prepared"
             fresh_count = prepared["candidates"] - prepared["repeats"]
         con.execute(f"INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh} WHERE id_hash IS NOT NULL")
-        con.execute(
-            f"""CREATE OR REPLACE TEMP TABLE new_user_daily AS
-            SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL"""
-        )
-        self.drop_prepared()
-        con.execute("DROP TABLE IF EXISTS fresh")
-        first_day, last_day = self._merge_new_user_daily()
+        grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
+        if self._user_daily_is_empty():
+            # A first load (a backfill) has nothing to merge with: group straight into the table.
+            con.execute(f"INSERT INTO user_daily {grouped}")
+            con.execute("INSERT INTO daily SELECT account, day, event, sum(events), count(*) FROM user_daily GROUP BY ALL")
+            first_day, last_day = con.execute("SELECT min(day), max(day) FROM user_daily").fetchone()
+            self.drop_prepared()
+            con.execute("DROP TABLE IF EXISTS fresh")
+        else:
+            con.execute(f"CREATE OR REPLACE TEMP TABLE new_user_daily AS {grouped}")
+            self.drop_prepared()
+            con.execute("DROP TABLE IF EXISTS fresh")
+            first_day, last_day = self._merge_new_user_daily()
         self.forget_old_ids(dedupe_window_days)
         return {
             "ingested": fresh_count,
@@ -451,12 +457,15 @@ class Store:
             self.con.unregister("incoming_user_daily")
         return self._merge_new_user_daily()
 
+    def _user_daily_is_empty(self) -> bool:
+        return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM user_daily LIMIT 1)").fetchone()[0] == 0
+
     def _merge_new_user_daily(self) -> tuple:
         """Fold the temp table ``new_user_daily`` into ``user_daily`` and ``daily`` (the touched
         account-days are recomputed whole).  Returns the first and last day touched."""
         con = self.con
         touched_any = con.execute("SELECT count(*) FROM (SELECT 1 FROM new_user_daily LIMIT 1)").fetchone()[0] > 0
-        store_empty = con.execute("SELECT count(*) FROM (SELECT 1 FROM user_daily LIMIT 1)").fetchone()[0] == 0
+        store_empty = self._user_daily_is_empty()
         first_day, last_day = con.execute("SELECT min(day), max(day) FROM new_user_daily").fetchone()
         if touched_any and store_empty:
             con.execute("INSERT INTO user_daily SELECT * FROM new_user_daily")
