@@ -45,11 +45,12 @@ def test_api_scan_returns_ranked_dataframe(fleet_store):
 
 
 def test_chunk_size_never_changes_a_score(fleet_store):
-    """Fleet-wide quantities are measured once, so chunks of 7 score exactly as one pass does
-    (the batched EM and the count model's pooling once depended on the chunk's other accounts)."""
+    """Fleet-wide quantities are measured once, so chunks of 7 scored three at a time in threads
+    give exactly what one pass does (the batched EM and the count model's pooling once depended
+    on the chunk's other accounts)."""
     fleet, db = fleet_store
-    whole = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=10_000)
-    pieces = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=7)
+    whole = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=10_000, threads=1)
+    pieces = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=7, threads=3)
     assert (whole.attrs["scores"]["model"] == "negbin").any()  # the pooled count model is exercised
     assert (whole.attrs["scores"]["model"] == "mixture").any()  # and the EM
     pd.testing.assert_frame_equal(whole.attrs["scores"].drop(columns="weekday_factors"),

@@ -426,6 +426,7 @@ def scan(
     engine: str = "local",
     scheduler: str | None = None,
     shared_dir: str | None = None,
+    threads: int | None = None,
 ):
     """Judge every account at ``as_of`` (default: the last complete day) and return the alerts.
 
@@ -437,12 +438,17 @@ def scan(
     ``local`` (chunks in this process) or ``dask`` (chunks on a cluster: ``scheduler`` is
     ``local[:N]`` or a scheduler address; workers read a Parquet export of the store, written
     into a temporary folder inside ``shared_dir``, which every worker must be able to read).
+    ``threads``: chunks scored at once by the local engine (default: one per core, at most 4).
     """
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
     from .alerts import advance_lifecycle, select_alerts
     from .detect import score_panel
-    from .engine import run_local
+    import functools
+
+    import pandas as pd
+
+    from .engine import default_threads, run_local
 
     if show not in ("all", "new"):
         raise UsageError(f"show must be all or new, got {show!r}")
@@ -460,8 +466,9 @@ def scan(
         if engine == "dask":
             scores = _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress, shared_dir)
         else:
-            scores = run_local(accounts, loader, lambda panel: score_panel(panel, params),
-                               chunk_size=chunk_size, progress=progress)
+            parts = run_local(accounts, loader, functools.partial(score_panel, params=params), chunk_size=chunk_size,
+                              progress=progress, threads=threads or default_threads())
+            scores = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
         alerts = select_alerts(
             scores, as_of=as_of, names=loader.names, window_days=cfg.scan.window_days, fdr=cfg.scan.fdr,
             max_alerts=cfg.scan.max_alerts if max_alerts is None else max_alerts,
@@ -650,7 +657,8 @@ def alert_history(*, states=None, db: str | None = None, config=None):
 def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: int = 30, horizon_days: int = 90,
              budget: float | None = None, target_precision: float | None = None, db: str | None = None,
              config=None, progress=None, today: date | None = None, chunk_size: int = 10_000,
-             engine: str = "local", scheduler: str | None = None, shared_dir: str | None = None) -> dict:
+             engine: str = "local", scheduler: str | None = None, shared_dir: str | None = None,
+             threads: int | None = None) -> dict:
     """Replay the daily scan from ``start`` to ``end`` every ``step`` days against ``outcomes``
     (a CSV ``account,date,outcome``) and return the metrics, a severity sweep and a calibration.
 
@@ -661,7 +669,8 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     """
     import functools
 
-    from .backtest import calibrate, churn_days, evaluate, replay_fleet_factors, replay_scores, select_replayed, sweep
+    from .backtest import calibrate, churn_days, evaluate, replay_fleet_factors, select_replayed, sweep
+    from .engine import default_threads
     from .ingest.csvs import read_outcomes
 
     if engine not in ("local", "dask"):
@@ -691,33 +700,27 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         sample = accounts[::max(1, len(accounts) // FLEET_SAMPLE_ACCOUNTS)]
         factors = replay_fleet_factors(loader(sample).counts, loader.start_day, days, history_days=history_days,
                                        params=params)
-        churn = churn_days(accounts, outcome_frame)
-        blocks = _blocks(accounts, chunk_size)
-        done = [0]
-
-        def block_done(n_accounts):
-            done[0] += n_accounts
-            if progress:
-                progress(done[0], len(accounts))
-
+        never = np.iinfo(np.int64).max
+        churn = {a: int(c) for a, c in zip(accounts, churn_days(accounts, outcome_frame)) if c != never}
+        replay = dict(as_of_days=days, fleet_factors=factors, churn=churn, params=params, history_days=history_days,
+                      fdr=cfg.scan.fdr)
         if engine == "dask":
             from .tasks import replay_part
 
-            never = np.iinfo(np.int64).max
+            blocks = _blocks(accounts, chunk_size)
             with _exchange(st, loader, chunk_size, shared_dir) as directory:
-                task = functools.partial(
-                    replay_part, directory=directory, start_day=loader.start_day, end_day=loader.end_day,
-                    normalise=cfg.index.normalise, seats=_seats(loader), as_of_days=days, fleet_factors=factors,
-                    churn={a: int(c) for a, c in zip(accounts, churn) if c != never}, params=params,
-                    history_days=history_days, fdr=cfg.scan.fdr)
-                results = _on_dask(scheduler, task, blocks, lambda i, n: block_done(len(blocks[i - 1][1])))
+                task = functools.partial(replay_part, directory=directory, start_day=loader.start_day,
+                                         end_day=loader.end_day, normalise=cfg.index.normalise, seats=_seats(loader),
+                                         **replay)
+                block_progress = None if progress is None else (
+                    lambda done, total: progress(min(done * chunk_size, len(accounts)), len(accounts)))
+                results = _on_dask(scheduler, task, blocks, block_progress)
         else:
-            results = []
-            for part, chunk in blocks:
-                offset = part * chunk_size
-                results.append(replay_scores(loader(chunk), days, factors, params=params, history_days=history_days,
-                                             churn=churn[offset:offset + len(chunk)], fdr=cfg.scan.fdr))
-                block_done(len(chunk))
+            from .engine import run_local
+            from .tasks import replay_block
+
+            results = run_local(accounts, loader, functools.partial(replay_block, **replay), chunk_size=chunk_size,
+                                progress=progress, threads=threads or default_threads())
     import pandas as pd
 
     found = [candidates for candidates, _ in results if len(candidates)]

@@ -52,6 +52,12 @@ def engine_options(func):
                         help="dask: run the work on a Dask cluster (pip install 'ebbwatch[dask]').")(func)
 
 
+def threads_option(func):
+    return click.option("--threads", type=click.IntRange(min=1),
+                        help="Chunks scored at once on the local engine. Default: one per core, at most 4 "
+                             "(each chunk in flight adds its memory).")(func)
+
+
 def shared_dir_option(func):
     return click.option("--shared-dir", type=click.Path(file_okay=False),
                         help="With --engine dask: a folder every worker can read (NFS, a mounted bucket), "
@@ -244,11 +250,12 @@ def export_index(db, config_path, output, as_of, history_days, accounts_per_part
 @click.option("--all", "show_all", is_flag=True, help="Print every open alert, not only new and escalated ones.")
 @click.option("--record/--no-record", default=None,
               help="Record the day's alert states. Default: record when --as-of is not given.")
+@threads_option
 @engine_options
 @shared_dir_option
 @handle_errors
-def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, record, engine, scheduler,
-         shared_dir):
+def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, record, threads, engine,
+         scheduler, shared_dir):
     """Judge every account's recent days against its own history and print ranked alerts.
 
     Kinds: drop (a sudden fall), stop (no activity, unusual for the account), slide (a gradual
@@ -267,7 +274,7 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
     alerts = api.scan(as_of=as_of, db=db, config=config_path, kinds=list(kinds) or None,
                       max_alerts=max_alerts, chunk_size=chunk_size, progress=_progress_printer("scan"),
                       record=record, show="all" if show_all else "new", engine=engine, scheduler=scheduler,
-                      shared_dir=shared_dir)
+                      shared_dir=shared_dir, threads=threads)
     from .report import render_alerts
 
     summary = alerts.attrs["summary"]
@@ -370,11 +377,12 @@ def report(db, config_path, html_path, as_of, limit):
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False), help="Precision-recall over the sweep and lead times (.svg/.png).")
 @click.option("--chunk-size", type=click.IntRange(min=1), default=10_000, show_default=True,
               help="Accounts replayed at once (bounds memory).")
+@threads_option
 @engine_options
 @shared_dir_option
 @handle_errors
 def backtest_command(db, config_path, outcomes, start, end, step, lead_days, horizon_days, budget, target_precision,
-                     fmt, plot_path, chunk_size, engine, scheduler, shared_dir):
+                     fmt, plot_path, chunk_size, threads, engine, scheduler, shared_dir):
     """Replay the daily scan over history: how early and how precisely would it have alerted?
 
     Each replayed day sees only the data up to it (accounts that already churned are left out),
@@ -385,7 +393,7 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
     result = api.backtest(outcomes, start=start, end=end, step=step, lead_days=lead_days, horizon_days=horizon_days,
                           budget=budget, target_precision=target_precision, db=db, config=config_path,
                           progress=_progress_printer("replay"), chunk_size=chunk_size, engine=engine,
-                          scheduler=scheduler, shared_dir=shared_dir)
+                          scheduler=scheduler, shared_dir=shared_dir, threads=threads)
     leads = result.pop("_lead_times")
     if plot_path:
         from .report.plot import plot_backtest

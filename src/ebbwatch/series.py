@@ -7,7 +7,6 @@ integers since 1970-01-01 (1970-01-01 was a Thursday, so weekday = (day + 3) % 7
 from __future__ import annotations
 
 import fnmatch
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -22,13 +21,6 @@ FLEET_MIN_REFERENCE = 3.0  # accounts whose usual day is under 3 events are too 
 def weekday_of(day: np.ndarray | int):
     """Monday = 0 … Sunday = 6 for days since the epoch."""
     return (np.asarray(day) + 3) % 7
-
-
-def quiet_nanmedian(array, axis):
-    """``np.nanmedian`` without the warning for all-NaN slices (they give NaN, as intended)."""
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        return np.nanmedian(array, axis=axis)
 
 
 def fast_nanmedian_rows(array) -> np.ndarray:
@@ -51,9 +43,16 @@ def fast_nanmedian_rows(array) -> np.ndarray:
 
 
 def quiet_nanmean(array, axis):
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        return np.nanmean(array, axis=axis)
+    """``np.nanmean`` (the same sums and counts) giving NaN for all-NaN slices without a warning.
+
+    ``warnings.catch_warnings`` would be simpler but is not thread-safe, and chunks are scored
+    in threads.
+    """
+    array = np.asarray(array, float)
+    valid = ~np.isnan(array)
+    total = np.where(valid, array, 0.0).sum(axis=axis)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return total / valid.sum(axis=axis)
 
 
 def resolve_event_weights(event_names, weights: dict[str, float], exclude=()) -> dict[str, float]:

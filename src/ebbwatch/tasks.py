@@ -195,14 +195,20 @@ def score_part(part_and_accounts, *, directory: str, start_day: int, end_day: in
     return score_panel(panel, params)
 
 
-def replay_part(part_and_accounts, *, directory: str, start_day: int, end_day: int, normalise: str, seats: dict,
-                as_of_days, fleet_factors, churn: dict, params, history_days: int, fdr: float):
-    """``backtest.replay_scores`` on one block of the export (one task of the backtest)."""
+def replay_block(panel: Panel, *, as_of_days, fleet_factors, churn: dict, params, history_days: int, fdr: float):
+    """``backtest.replay_scores`` on one block's panel, ``churn`` mapping accounts to the day
+    number of their cancellation (accounts without one are judged on every day)."""
     from .backtest import replay_scores
 
+    never = np.iinfo(np.int64).max
+    return replay_scores(panel, as_of_days, fleet_factors, params=params, history_days=history_days,
+                         churn=np.array([churn.get(a, never) for a in panel.accounts], dtype=np.int64), fdr=fdr)
+
+
+def replay_part(part_and_accounts, *, directory: str, start_day: int, end_day: int, normalise: str, seats: dict,
+                **replay):
+    """:func:`replay_block` on one block of the export (one task of the backtest)."""
     part, accounts = part_and_accounts
     panel = part_panel(directory, part, accounts, start_day=start_day, end_day=end_day, normalise=normalise,
                        seats=seats)
-    never = np.iinfo(np.int64).max
-    return replay_scores(panel, as_of_days, fleet_factors, params=params, history_days=history_days,
-                         churn=np.array([churn.get(a, never) for a in accounts], dtype=np.int64), fdr=fdr)
+    return replay_block(panel, **replay)

@@ -1,13 +1,15 @@
-"""The local engine: score account chunks one after another in this process.
+"""The local engine: score account chunks in this process.
 
-Peak memory is set by the chunk size, not by the number of accounts.
+Peak memory is set by the chunk size (and the number of chunks in flight), not by the number of
+accounts.
 """
 
 from __future__ import annotations
 
+import os
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
 from typing import Callable, Sequence
-
-import pandas as pd
 
 
 def chunked(items: Sequence, size: int):
@@ -18,26 +20,48 @@ def chunked(items: Sequence, size: int):
         yield items[start:start + size]
 
 
-def map_local(task: Callable, items: Sequence, *, progress: Callable[[int, int], None] | None = None) -> list:
-    """``[task(item) for item in items]``, reporting progress after each item."""
-    results = []
-    for i, item in enumerate(items):
-        results.append(task(item))
-        if progress:
-            progress(i + 1, len(items))
-    return results
+def default_threads() -> int:
+    """Chunks scored at once by default: one per core, at most four (memory grows with it)."""
+    return max(1, min(4, os.cpu_count() or 1))
 
 
 def run_local(accounts: Sequence[str], load: Callable, score: Callable, *, chunk_size: int = 10_000,
-              progress: Callable[[int, int], None] | None = None) -> pd.DataFrame:
-    """``score(load(chunk))`` for each chunk of ``accounts``, concatenated in order."""
-    parts = []
-    done = 0
-    for chunk in chunked(list(accounts), chunk_size):
-        parts.append(score(load(chunk)))
-        done += len(chunk)
-        if progress:
-            progress(done, len(accounts))
-    if not parts:
-        return pd.DataFrame()
-    return pd.concat(parts, ignore_index=True)
+              progress: Callable[[int, int], None] | None = None, threads: int = 1) -> list:
+    """``[score(load(chunk)) for chunk in chunks of accounts]``, in order.
+
+    With ``threads`` > 1, up to that many chunks are scored at once in threads (numpy and
+    DuckDB release the GIL in their heavy loops) while the next chunks are loaded, one at a time
+    on one thread of their own (``load`` may use a connection that must not be shared).  At
+    most ``threads`` loaded chunks wait, so memory stays bounded.
+    """
+    chunks = list(chunked(list(accounts), chunk_size))
+    results, done = [None] * len(chunks), 0
+    if threads <= 1:
+        for i, chunk in enumerate(chunks):
+            results[i] = score(load(chunk))
+            done += len(chunk)
+            if progress:
+                progress(done, len(accounts))
+        return results
+    with ThreadPoolExecutor(1) as reader, ThreadPoolExecutor(threads) as scorers:
+        to_load = iter(enumerate(chunks))
+        loading, scoring = deque(), deque()
+
+        def load_next():
+            for i, chunk in to_load:  # at most one
+                loading.append((i, reader.submit(load, chunk)))
+                break
+
+        for _ in range(threads):
+            load_next()
+        while loading or scoring:
+            while loading and len(scoring) < threads:
+                i, panel = loading.popleft()
+                scoring.append((i, scorers.submit(score, panel.result())))
+                load_next()
+            i, result = scoring.popleft()
+            results[i] = result.result()
+            done += len(chunks[i])
+            if progress:
+                progress(done, len(accounts))
+    return results
