@@ -532,22 +532,21 @@ def _find_drivers(st, loader, targets, as_of, window_days, max_events=None) -> l
     """Drivers for each ``(account, reference_end_day, direction)`` in ``targets``: the window is
     the last ``window_days`` days, the baseline the 8 weeks before the reference history ends,
     masked days left out of both; all accounts' rows are read in two queries."""
-    from .explain import event_drivers, user_drivers
+    from .explain import event_drivers_many, user_drivers
 
     end = (as_of - date(1970, 1, 1)).days
     first_needed = max(min(ref for _, ref, _ in targets) - BASELINE_DRIVER_DAYS, loader.start_day)
     accounts = [account for account, _, _ in targets]
     events, users = st.accounts_activity(accounts, date(1970, 1, 1) + timedelta(days=first_needed), as_of)
-    events_by, users_by = dict(list(events.groupby("account"))), dict(list(users.groupby("account")))
-    empty_events, empty_users = events.iloc[:0], users.iloc[:0]
+    users_by = dict(list(users.groupby("account")))
     window = _period_days(end - window_days + 1, end, loader.masked, loader.start_day)
-    found = []
-    for account, reference_end, direction in targets:
-        baseline = _period_days(max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day), reference_end - 1,
-                                loader.masked, loader.start_day)
-        drivers = event_drivers(events_by.get(account, empty_events), loader.weights, baseline, window)[:max_events]
-        drivers += user_drivers(users_by.get(account, empty_users), loader.weights, baseline, window, direction)
-        found.append(drivers)
+    baselines = [(account, _period_days(max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day),
+                                        reference_end - 1, loader.masked, loader.start_day))
+                 for account, reference_end, _ in targets]
+    found = [drivers[:max_events] for drivers in event_drivers_many(events, loader.weights, baselines, window)]
+    for drivers, (account, baseline), (_, _, direction) in zip(found, baselines, targets):
+        if account in users_by:
+            drivers += user_drivers(users_by[account], loader.weights, baseline, window, direction)
     return found
 
 

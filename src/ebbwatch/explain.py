@@ -1,10 +1,11 @@
 """Drivers: which event names and which of the account's regular users account for a change.
 
-Pure functions on small frames of one account's rows; the api reads those rows from the store.
+Pure functions on frames of the accounts' rows; the api reads those rows from the store.
 """
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 
 MAX_EVENT_DRIVERS = 5
@@ -20,27 +21,44 @@ def event_drivers(event_days: pd.DataFrame, weights: dict, baseline_days, window
     event's part of the whole change in the index, so the shares add up to 1; the list is ranked
     by the size of each event's change.
     """
-    if event_days.empty or not len(window_days) or not len(baseline_days):
-        return []
-    frame = event_days.assign(index=event_days["events"] * event_days["event"].map(lambda e: weights.get(e, 1.0)))
-    baseline = frame[frame["day"].isin(set(baseline_days))].groupby("event")["index"].sum() / len(baseline_days)
-    observed = frame[frame["day"].isin(set(window_days))].groupby("event")["index"].sum()
-    names = sorted(set(baseline.index) | set(observed.index))
-    expected = baseline.reindex(names, fill_value=0.0) * len(window_days)
-    observed = observed.reindex(names, fill_value=0.0)
-    change = observed - expected
-    total = change.sum()
-    out = []
-    for name in sorted(names, key=lambda n: -abs(change[n])):
-        if weights.get(name, 1.0) == 0:
+    return event_drivers_many(event_days.assign(account=""), weights, [("", baseline_days)], window_days)[0]
+
+
+def event_drivers_many(event_days: pd.DataFrame, weights: dict, baselines, window_days) -> list[list[dict]]:
+    """:func:`event_drivers` for many accounts in one pass of frame operations.
+
+    ``event_days``: rows ``account, day, event, events``; ``baselines``: ``(account,
+    baseline_days)`` pairs, one per wanted result (in that order); ``window_days`` is shared.
+    """
+    found = [[] for _ in baselines]
+    wanted = [(i, account, days) for i, (account, days) in enumerate(baselines) if len(days)]
+    if event_days.empty or not len(window_days) or not wanted:
+        return found
+    place = pd.DataFrame({"place": np.repeat([i for i, _, _ in wanted], [len(d) for _, _, d in wanted]),
+                          "account": np.repeat([a for _, a, _ in wanted], [len(d) for _, _, d in wanted]),
+                          "day": [day for _, _, days in wanted for day in days]})
+    n_baseline = pd.Series([len(d) for _, _, d in wanted], index=[i for i, _, _ in wanted])
+    rows = event_days.assign(index=event_days["events"] * event_days["event"].map(lambda e: weights.get(e, 1.0)))
+    # Each wanted result's baseline rows, and its account's window rows.
+    baseline = rows.merge(place, on=["account", "day"]).groupby(["place", "event"])["index"].sum()
+    in_window = rows[rows["day"].isin(set(window_days))]
+    accounts = pd.DataFrame({"place": [i for i, _, _ in wanted], "account": [a for _, a, _ in wanted]})
+    observed = in_window.merge(accounts, on="account").groupby(["place", "event"])["index"].sum()
+    table = pd.concat({"baseline": baseline, "observed": observed}, axis=1).fillna(0.0).reset_index()
+    table["expected"] = table["baseline"] / n_baseline.reindex(table["place"]).to_numpy() * len(window_days)
+    table["change"] = table["observed"] - table["expected"]
+    total = table.groupby("place")["change"].transform("sum")
+    table = table.assign(total=total, size=-table["change"].abs()).sort_values(["place", "size", "event"])
+    for row in table.itertuples(index=False):
+        if weights.get(row.event, 1.0) == 0:
             continue
-        out.append({
-            "type": "event", "event": name, "expected": round(float(expected[name]), 2),
-            "observed": round(float(observed[name]), 2),
-            "change_pct": None if expected[name] == 0 else round(100 * float(change[name] / expected[name]), 1),
-            "share": None if total == 0 else round(float(change[name] / total), 4),
+        found[row.place].append({
+            "type": "event", "event": row.event, "expected": round(float(row.expected), 2),
+            "observed": round(float(row.observed), 2),
+            "change_pct": None if row.expected == 0 else round(100 * float(row.change / row.expected), 1),
+            "share": None if row.total == 0 else round(float(row.change / row.total), 4),
         })
-    return out
+    return found
 
 
 def user_drivers(user_days: pd.DataFrame, weights: dict, baseline_days, window_days, direction: str,
