@@ -90,34 +90,39 @@ def select_alerts(
     down &= ~both | (q_down <= q_up)
     up &= ~down
     rows = []
+    # Columns as plain arrays: a row lookup per alert (DataFrame.iloc) costs ~0.25 ms, which
+    # adds up over thousands of alerts.
+    col = {name: judged[name].to_numpy() for name in ("account", "down_kind", "onset_day", "percentile",
+                                                      "change_pct", "level", "baseline_level", "model",
+                                                      "silent_days", "trend_change_pct")}
     for direction, mask, qv, pv in (("down", down, q_down, judged["p_down"].to_numpy(float)),
                                     ("up", up, q_up, judged["p_up"].to_numpy(float))):
         for i in np.flatnonzero(mask):
-            r = judged.iloc[i]
-            kind = r["down_kind"] if direction == "down" else "surge"
+            kind = col["down_kind"][i] if direction == "down" else "surge"
             if kinds and kind not in kinds:
                 continue
-            onset = None if r["onset_day"] < 0 else day_to_date(r["onset_day"]).isoformat()
             severity = float(min(MAX_SEVERITY, -np.log10(max(qv[i], 1e-300))))
             if severity < min_severity:
                 continue
+            account, onset_day = col["account"][i], col["onset_day"][i]
+            change, baseline_level, trend = col["change_pct"][i], col["baseline_level"][i], col["trend_change_pct"][i]
             alert = {
-                "account": r["account"],
-                "name": names.get(r["account"]) or r["account"],
+                "account": account,
+                "name": names.get(account) or account,
                 "kind": kind,
                 "direction": direction,
                 "as_of": as_of.isoformat(),
                 "severity": round(severity, 2),
                 "p_value": float(pv[i]),
                 "q_value": float(qv[i]),
-                "percentile": round(float(r["percentile"]), 2),
-                "change_pct": round(float(r["change_pct"]), 1) if np.isfinite(r["change_pct"]) else None,
-                "level": round(float(r["level"]), 3),
-                "baseline_level": round(float(r["baseline_level"]), 3) if np.isfinite(r["baseline_level"]) else None,
-                "onset": onset,
-                "baseline": r["model"],
-                "silent_days": int(r["silent_days"]),
-                "trend_change_pct": None if not np.isfinite(r["trend_change_pct"]) else round(float(r["trend_change_pct"]), 1),
+                "percentile": round(float(col["percentile"][i]), 2),
+                "change_pct": round(float(change), 1) if np.isfinite(change) else None,
+                "level": round(float(col["level"][i]), 3),
+                "baseline_level": round(float(baseline_level), 3) if np.isfinite(baseline_level) else None,
+                "onset": None if onset_day < 0 else day_to_date(onset_day).isoformat(),
+                "baseline": col["model"][i],
+                "silent_days": int(col["silent_days"][i]),
+                "trend_change_pct": None if not np.isfinite(trend) else round(float(trend), 1),
             }
             alert["state"] = "new"
             alert["drivers"] = []
