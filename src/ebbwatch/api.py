@@ -360,11 +360,14 @@ def _exchange(st, loader, accounts_per_part: int, shared_dir: str | None):
         yield directory
 
 
-def _on_dask(scheduler, task, items, progress):
+def _on_dask(scheduler, task, blocks, progress, block_size: int, n_accounts: int):
+    """``task`` over account ``blocks`` on the cluster; progress is counted in accounts."""
     from .engine.dask import dask_client, map_dask
 
+    in_accounts = None if progress is None else (
+        lambda done, _: progress(min(done * block_size, n_accounts), n_accounts))
     with dask_client(scheduler) as client:
-        return map_dask(client, task, items, progress=progress)
+        return map_dask(client, task, blocks, progress=in_accounts)
 
 
 def _seats(loader) -> dict:
@@ -382,9 +385,7 @@ def _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress
         task = functools.partial(score_part, directory=directory, start_day=loader.start_day, end_day=loader.end_day,
                                  normalise=loader.cfg.index.normalise, seats=_seats(loader),
                                  fleet_factor=loader.fleet_factor, masked=loader.masked, params=params)
-        block_progress = None if progress is None else (
-            lambda done, total: progress(min(done * chunk_size, len(accounts)), len(accounts)))
-        return concat_accounts(_on_dask(scheduler, task, blocks, block_progress), accounts)
+        return concat_accounts(_on_dask(scheduler, task, blocks, progress, chunk_size, len(accounts)), accounts)
 
 
 def export_index(output: str, *, as_of=None, history_days: int | None = None, accounts_per_part: int = 10_000,
@@ -711,9 +712,7 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
                 task = functools.partial(replay_part, directory=directory, start_day=loader.start_day,
                                          end_day=loader.end_day, normalise=cfg.index.normalise, seats=_seats(loader),
                                          **replay)
-                block_progress = None if progress is None else (
-                    lambda done, total: progress(min(done * chunk_size, len(accounts)), len(accounts)))
-                results = _on_dask(scheduler, task, blocks, block_progress)
+                results = _on_dask(scheduler, task, blocks, progress, chunk_size, len(accounts))
         else:
             from .engine import run_local
             from .tasks import replay_block
