@@ -14,6 +14,7 @@ from typing import Callable
 import numpy as np
 
 from . import store as store_mod
+from .alerts import EPOCH, day_to_date
 from .config import Config, load_config
 from .errors import InputError, UsageError
 from .frames import FileResult, Reject
@@ -308,7 +309,7 @@ class PanelLoader:
 
     def fit_fleet(self, accounts):
         from .baseline.counts import pooled_dispersion
-        from .series import dense_matrix, fleet_factor
+        from .series import dense_matrix, fleet_factor, missing_before_first_activity
 
         step = max(1, len(accounts) // FLEET_SAMPLE_ACCOUNTS)
         sample = list(accounts)[::step]
@@ -317,7 +318,7 @@ class PanelLoader:
         counts = dense_matrix(idx, day, value, len(sample), self.start_day, n_days)
         self.fleet_factor, self.masked = fleet_factor(counts)
         # The same fleet-wide count dispersion for every chunk (see backtest.replay_fleet_factors).
-        started = np.where(np.cumsum(counts > 0, axis=1) > 0, counts, np.nan)
+        started = missing_before_first_activity(counts)
         started[:, self.masked] = np.nan
         self.count_dispersion = pooled_dispersion(started, window=self.cfg.scan.window_days)
         return self
@@ -340,14 +341,6 @@ def _blocks(accounts: list[str], size: int) -> list[tuple[int, list[str]]]:
     return list(enumerate(chunked(list(accounts), size)))
 
 
-def _day_number(day: date) -> int:
-    return (day - date(1970, 1, 1)).days
-
-
-def _day_of(number: int) -> date:
-    return date(1970, 1, 1) + timedelta(days=int(number))
-
-
 @contextmanager
 def _exchange(st, loader, accounts_per_part: int, shared_dir: str | None):
     """The store's index for ``loader``'s window, exported as Parquet blocks into a fresh folder
@@ -355,7 +348,7 @@ def _exchange(st, loader, accounts_per_part: int, shared_dir: str | None):
     import tempfile
 
     with tempfile.TemporaryDirectory(prefix="ebbwatch-exchange-", dir=shared_dir) as directory:
-        st.export_index_parts(directory, loader.weights, _day_of(loader.start_day), _day_of(loader.end_day),
+        st.export_index_parts(directory, loader.weights, day_to_date(loader.start_day), day_to_date(loader.end_day),
                               accounts_per_part)
         yield directory
 
@@ -404,9 +397,9 @@ def export_index(output: str, *, as_of=None, history_days: int | None = None, ac
         if as_of is None:
             as_of = default_as_of(st.last_day(), today)
         loader = PanelLoader(st, cfg, as_of, history_days or cfg.scan.history_days)
-        info = st.export_index_parts(output, loader.weights, _day_of(loader.start_day), _day_of(loader.end_day),
+        info = st.export_index_parts(output, loader.weights, day_to_date(loader.start_day), day_to_date(loader.end_day),
                                      accounts_per_part)
-    info.update({"directory": output, "from": _day_of(loader.start_day).isoformat(), "to": as_of.isoformat(),
+    info.update({"directory": output, "from": day_to_date(loader.start_day).isoformat(), "to": as_of.isoformat(),
                  "accounts_per_part": accounts_per_part})
     return info
 
@@ -575,7 +568,6 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
     level with its percentile and tail probabilities, the changepoint, trend, silence, drivers,
     and the daily series behind them (for plotting).
     """
-    from .alerts import day_to_date
     from .detect import score_panel
 
     cfg = _config(config)
@@ -696,7 +688,7 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         accounts = st.account_ids()
         history = max((end - first_day).days + 1, cfg.scan.window_days + 14)
         loader = PanelLoader(st, cfg, end, history)
-        days = list(range(_day_number(start), _day_number(end) + 1, step))
+        days = list(range((start - EPOCH).days, (end - EPOCH).days + 1, step))
         sample = accounts[::max(1, len(accounts) // FLEET_SAMPLE_ACCOUNTS)]
         factors = replay_fleet_factors(loader(sample).counts, loader.start_day, days, history_days=history_days,
                                        params=params)

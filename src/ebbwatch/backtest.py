@@ -15,7 +15,7 @@ import pandas as pd
 from .alerts import select_alerts
 from .baseline.counts import pooled_dispersion
 from .detect import ScanParams, score_panel
-from .series import Panel, fleet_factor
+from .series import Panel, fleet_factor, missing_before_first_activity
 
 DOWN_OUTCOMES = ("churned", "contracted")
 UP_OUTCOMES = ("expanded",)
@@ -44,13 +44,6 @@ def _slice(panel: Panel, start: int, end: int, factor, masked) -> Panel:
 REPLAY_COLUMNS = ["as_of", "account", "direction", "kind", "severity"]
 
 
-def _before_first_activity_missing(counts) -> np.ndarray:
-    """Raw totals with the days before each account's first activity as NaN (not zero)."""
-    active = np.nan_to_num(counts) > 0
-    started = np.cumsum(active, axis=1) > 0
-    return np.where(started, counts, np.nan)
-
-
 def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history_days: int = 365,
                          params: ScanParams = ScanParams()) -> list:
     """Each replayed day's fleet-wide quantities, from a fleet-wide sample.
@@ -63,7 +56,7 @@ def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history
     ``baseline.counts.pooled_dispersion``).
     """
     raw = np.where(np.isnan(sample_counts), 0.0, sample_counts)
-    started = _before_first_activity_missing(sample_counts)
+    started = missing_before_first_activity(sample_counts)
     out = []
     for day in as_of_days:
         end = day - panel_start

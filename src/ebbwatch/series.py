@@ -55,6 +55,13 @@ def quiet_nanmean(array, axis):
         return total / valid.sum(axis=axis)
 
 
+def missing_before_first_activity(counts) -> np.ndarray:
+    """Raw daily totals (A, D) with the days before each account's first activity as NaN, not 0."""
+    counts = np.asarray(counts, float)
+    started = np.cumsum(np.nan_to_num(counts) > 0, axis=1) > 0
+    return np.where(started, counts, np.nan)
+
+
 def resolve_event_weights(event_names, weights: dict[str, float], exclude=()) -> dict[str, float]:
     """Each event name's weight: the first matching exact name, else the first matching glob,
     else 1; names matching an ``exclude`` glob get weight 0."""
