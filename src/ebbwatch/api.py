@@ -302,10 +302,13 @@ class PanelLoader:
         self.masked = None
         self.count_dispersion = None
 
-    def _rows(self, accounts):
-        start = date(1970, 1, 1) + timedelta(days=self.start_day)
-        end = date(1970, 1, 1) + timedelta(days=self.end_day)
-        return self.st.weighted_daily(self.weights, list(accounts), start, end)
+    def _rows(self, accounts, *, users: bool = False):
+        """``(account_index, day, value, events, users)``; ``events``/``users`` are None and
+        account-days may repeat (one row per event name) unless ``users`` is asked for."""
+        start, end = day_to_date(self.start_day), day_to_date(self.end_day)
+        if users:
+            return self.st.weighted_daily(self.weights, list(accounts), start, end)
+        return (*self.st.index_rows(self.weights, list(accounts), start, end), None, None)
 
     def fit_fleet(self, accounts):
         from .baseline.counts import pooled_dispersion
@@ -326,7 +329,7 @@ class PanelLoader:
     def __call__(self, accounts):
         from .series import build_panel
 
-        idx, day, value, events, users = self._rows(accounts)
+        idx, day, value, events, users = self._rows(accounts, users=self.cfg.index.normalise == "active_users")
         seats = [self.seats.get(a) for a in accounts]
         return build_panel(idx, day, value, events, users, accounts=accounts, start_day=self.start_day,
                            end_day=self.end_day, normalise=self.cfg.index.normalise,

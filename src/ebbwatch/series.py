@@ -105,12 +105,17 @@ class Panel:
 
 
 def dense_matrix(account_index, day, value, n_accounts: int, start_day: int, n_days: int) -> np.ndarray:
-    """Scatter (account, day, value) rows into a zero-filled (A, D) float64 matrix."""
-    out = np.zeros((n_accounts, n_days))
-    col = np.asarray(day) - start_day
+    """Sum (account, day, value) rows into a zero-filled (A, D) float64 matrix; rows outside the
+    days are dropped and repeated account-days add up."""
+    col = np.asarray(day, np.int64) - start_day
+    account_index = np.asarray(account_index, np.int64)
     keep = (col >= 0) & (col < n_days)
-    np.add.at(out, (np.asarray(account_index)[keep], col[keep]), np.asarray(value)[keep])
-    return out
+    if not keep.all():
+        account_index, col, value = account_index[keep], col[keep], np.asarray(value)[keep]
+    # bincount over the flat cell index: one pass, several times faster than np.add.at.
+    flat = np.bincount(account_index * n_days + col, weights=np.asarray(value, float),
+                       minlength=n_accounts * n_days)
+    return flat.reshape(n_accounts, n_days)
 
 
 def build_panel(
@@ -122,6 +127,8 @@ def build_panel(
     ``normalise``: ``none``, ``seats`` (divide by the account's seats) or ``active_users``
     (divide by the day's distinct users).  ``fleet_factor`` / ``masked`` (D,) come from
     :func:`fleet_factor` computed over the whole fleet; they default to 1 / nothing masked.
+    ``value`` rows of one account-day add up; ``users`` (one row per account-day) is needed only
+    for ``active_users`` and ``events`` is not used.
     """
     n_days = end_day - start_day + 1
     n_accounts = len(accounts)
@@ -131,6 +138,8 @@ def build_panel(
         s = np.where(np.isfinite(s) & (s > 0), s, 1.0)
         values = counts / s[:, None]
     elif normalise == "active_users":
+        if users is None:
+            raise ValueError("normalise='active_users' needs each account-day's users")
         active = dense_matrix(account_index, day, users, n_accounts, start_day, n_days)
         with np.errstate(invalid="ignore", divide="ignore"):
             values = np.where(active > 0, counts / np.maximum(active, 1), 0.0)

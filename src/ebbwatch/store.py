@@ -663,6 +663,34 @@ class Store:
             self.con.execute("DROP TABLE IF EXISTS account_blocks")
         return {"accounts": int(n_accounts), "parts": int(n_parts), "rows": int(rows)}
 
+    def index_rows(self, event_weights: dict[str, float], accounts: list[str], start_day, end_day):
+        """Weighted event counts of ``accounts`` in days [start, end], one row per account, day and
+        event name: ``(account_index, day, value)`` numpy arrays, ``account_index`` into
+        ``accounts``, ``day`` in days since 1970-01-01.  An account-day appears once per weighted
+        event name; the caller sums (``series.dense_matrix``).  Summing in numpy rather than a
+        ``GROUP BY`` here is about 4x faster: the grouping's hash table over millions of
+        account-days costs more than reading the rows (tests/benchmarks/scan.py).
+        """
+        weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
+        lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
+        wanted = pd.DataFrame({"account": accounts, "account_index": np.arange(len(accounts), dtype=np.int64)})
+        self.con.register("event_weights", weights)
+        self.con.register("wanted_accounts", wanted)
+        try:
+            rows = self.con.execute(
+                """SELECT w.account_index, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
+                          d.events * e.weight AS value
+                FROM daily d JOIN wanted_accounts w ON w.account = d.account
+                JOIN event_weights e ON e.event = d.event
+                WHERE d.day BETWEEN ? AND ? AND e.weight > 0 AND d.account BETWEEN ? AND ?""",
+                [start_day, end_day, lo, hi],
+            ).fetchnumpy()
+        finally:
+            self.con.unregister("event_weights")
+            self.con.unregister("wanted_accounts")
+        return (np.asarray(rows["account_index"]).astype(np.int64), np.asarray(rows["day"]).astype(np.int64),
+                np.asarray(rows["value"]).astype(np.float64))
+
     def weighted_daily(self, event_weights: dict[str, float], accounts: list[str], start_day, end_day):
         """Weighted event totals per account and day, for ``accounts`` and days in [start, end].
 
