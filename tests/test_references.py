@@ -8,7 +8,7 @@ from scipy import stats
 
 from ebbwatch.alerts import benjamini_hochberg
 from ebbwatch.baseline import LevelDistribution, nbinom_mid_p
-from ebbwatch.baseline.mixture import fit_two_gaussians
+from ebbwatch.baseline.mixture import fit_normal, fit_two_gaussians, row_quantiles
 from ebbwatch.detect.changepoint import ChangepointSearch, cusum_split
 from ebbwatch.detect.trend import mann_kendall, theil_sen
 
@@ -71,6 +71,36 @@ def test_batched_em_matches_scikit_learn_gaussian_mixture():
         np.testing.assert_allclose(w[a], gm.weights_[order], atol=5e-3)
         np.testing.assert_allclose(m[a], gm.means_[order, 0], atol=5e-3)
         np.testing.assert_allclose(v[a], gm.covariances_[order, 0, 0], rtol=1e-2)
+
+
+def test_em_and_normal_log_likelihoods_match_scipy_norm_densities():
+    """Reference: scipy.stats.norm.logpdf summed over each row's finite values, at the fitted
+    parameters (one component: the ML mean and variance; two: the weighted density sum)."""
+    rng = np.random.default_rng(5)
+    x = np.concatenate([rng.normal(0, 1, (4, 60)), rng.normal(3, 0.5, (4, 40))], axis=1)
+    x[rng.random(x.shape) < 0.15] = np.nan
+    mean, var, loglik1 = fit_normal(x)
+    w, m, v, loglik2, _ = fit_two_gaussians(x, max_iter=50, var_floor=1e-6, min_weight=0.01)
+    for a in range(4):
+        row = x[a][np.isfinite(x[a])]
+        np.testing.assert_allclose(mean[a], row.mean(), rtol=1e-12)
+        np.testing.assert_allclose(var[a], row.var(), rtol=1e-12)
+        np.testing.assert_allclose(loglik1[a], stats.norm(row.mean(), row.std()).logpdf(row).sum(), rtol=1e-10)
+        density = sum(w[a, k] * stats.norm(m[a, k], np.sqrt(v[a, k])).pdf(row) for k in range(2))
+        np.testing.assert_allclose(loglik2[a], np.log(density).sum(), rtol=1e-10)
+
+
+def test_row_quantiles_match_numpy_nanpercentile():
+    """Reference: numpy.nanpercentile (linear interpolation), row by row; an empty row gives 0."""
+    rng = np.random.default_rng(6)
+    x = rng.normal(size=(6, 37))
+    x[rng.random(x.shape) < 0.3] = np.nan
+    x[0] = np.nan
+    x[1, 1:] = np.nan
+    got = row_quantiles(x, (0.0, 0.25, 0.5, 0.75, 1.0))
+    assert np.all(got[0] == 0)
+    for a in range(1, 6):
+        np.testing.assert_allclose(got[a], np.nanpercentile(x[a], [0, 25, 50, 75, 100]), rtol=1e-12)
 
 
 def test_bic_prefers_two_components_for_two_separated_groups():
