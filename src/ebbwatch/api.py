@@ -511,15 +511,14 @@ def scan(
     return shown
 
 
-def _period_days(start_day: int, end_day: int, masked, panel_start: int) -> list:
-    """Dates from ``start_day`` to ``end_day`` (day numbers, inclusive) that are not masked."""
-    out = []
-    for day in range(start_day, end_day + 1):
-        column = day - panel_start
-        if 0 <= column < len(masked) and masked[column]:
-            continue
-        out.append(date(1970, 1, 1) + timedelta(days=day))
-    return out
+def _period_days(start_day: int, end_day: int, masked, panel_start: int) -> np.ndarray:
+    """Day numbers from ``start_day`` to ``end_day`` (inclusive) that are not masked."""
+    days = np.arange(start_day, end_day + 1)
+    column = days - panel_start
+    inside = (column >= 0) & (column < len(masked))
+    hidden = np.zeros(days.size, bool)
+    hidden[inside] = np.asarray(masked, bool)[column[inside]]
+    return days[~hidden]
 
 
 BASELINE_DRIVER_DAYS = 56

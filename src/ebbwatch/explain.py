@@ -12,11 +12,19 @@ MAX_EVENT_DRIVERS = 5
 MAX_USER_DRIVERS = 5
 
 
+def _event_weights(events: pd.Series, weights: dict) -> pd.Series:
+    """Each row's event weight (1 for a name the weights do not list), looked up once per name."""
+    codes, names = pd.factorize(events)
+    per_name = np.array([weights.get(name, 1.0) for name in names], dtype=float)
+    return pd.Series(per_name[codes] if len(names) else np.ones(len(events)), index=events.index)
+
+
 def event_drivers(event_days: pd.DataFrame, weights: dict, baseline_days, window_days) -> list[dict]:
     """Per event name: expected (from the baseline days' daily mean) vs observed in the window.
 
     ``event_days``: rows ``day, event, events`` of one account; ``baseline_days`` and
-    ``window_days``: the days (date objects) of each period, masked days already left out.
+    ``window_days``: the days of each period (of the same kind as the ``day`` column: dates or
+    day numbers), masked days already left out.
     Values are in activity-index units (event counts times their weights).  ``share`` is each
     event's part of the whole change in the index, so the shares add up to 1; the list is ranked
     by the size of each event's change.
@@ -34,14 +42,15 @@ def event_drivers_many(event_days: pd.DataFrame, weights: dict, baselines, windo
     wanted = [(i, account, days) for i, (account, days) in enumerate(baselines) if len(days)]
     if event_days.empty or not len(window_days) or not wanted:
         return found
-    place = pd.DataFrame({"place": np.repeat([i for i, _, _ in wanted], [len(d) for _, _, d in wanted]),
-                          "account": np.repeat([a for _, a, _ in wanted], [len(d) for _, _, d in wanted]),
-                          "day": [day for _, _, days in wanted for day in days]})
-    n_baseline = pd.Series([len(d) for _, _, d in wanted], index=[i for i, _, _ in wanted])
-    rows = event_days.assign(index=event_days["events"] * event_days["event"].map(lambda e: weights.get(e, 1.0)))
+    sizes = [len(d) for _, _, d in wanted]
+    place = pd.DataFrame({"place": np.repeat([i for i, _, _ in wanted], sizes),
+                          "account": np.repeat(np.array([a for _, a, _ in wanted], dtype=object), sizes),
+                          "day": np.concatenate([np.asarray(days) for _, _, days in wanted])})
+    n_baseline = pd.Series(sizes, index=[i for i, _, _ in wanted])
+    rows = event_days.assign(index=event_days["events"] * _event_weights(event_days["event"], weights))
     # Each wanted result's baseline rows, and its account's window rows.
     baseline = rows.merge(place, on=["account", "day"]).groupby(["place", "event"])["index"].sum()
-    in_window = rows[rows["day"].isin(set(window_days))]
+    in_window = rows[rows["day"].isin(np.asarray(window_days))]
     accounts = pd.DataFrame({"place": [i for i, _, _ in wanted], "account": [a for _, a, _ in wanted]})
     observed = in_window.merge(accounts, on="account").groupby(["place", "event"])["index"].sum()
     table = pd.concat({"baseline": baseline, "observed": observed}, axis=1).fillna(0.0).reset_index()
@@ -73,9 +82,9 @@ def user_drivers(user_days: pd.DataFrame, weights: dict, baseline_days, window_d
     """
     if user_days.empty or not len(window_days) or not len(baseline_days):
         return []
-    frame = user_days.assign(index=user_days["events"] * user_days["event"].map(lambda e: weights.get(e, 1.0)))
-    in_base = frame[frame["day"].isin(set(baseline_days))]
-    in_window = frame[frame["day"].isin(set(window_days))]
+    frame = user_days.assign(index=user_days["events"] * _event_weights(user_days["event"], weights))
+    in_base = frame[frame["day"].isin(np.asarray(baseline_days))]
+    in_window = frame[frame["day"].isin(np.asarray(window_days))]
     base_total = in_base["index"].sum()
     per_user_base = in_base.groupby("user")["index"].sum()
     active_days = in_base.groupby("user")["day"].nunique()

@@ -809,22 +809,24 @@ class Store:
     # -- drivers ---------------------------------------------------------------------------
     def accounts_activity(self, accounts: list[str], start_day, end_day) -> tuple[pd.DataFrame, pd.DataFrame]:
         """For several accounts at once: rows ``account, day, event, events`` and ``account,
-        day, user, event, events`` in [start_day, end_day] (days as datetime.date)."""
+        day, user, event, events`` in [start_day, end_day] (datetime.date); ``day`` in the
+        frames is days since 1970-01-01."""
         wanted = pd.DataFrame({"account": list(dict.fromkeys(accounts))})
         self.con.register("driver_accounts", wanted)
         try:
             lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
+            day = "CAST({}.day - DATE '1970-01-01' AS INTEGER) AS day"
             events = self.con.execute(
-                """SELECT d.account, d.day, d.event, d.events FROM daily d SEMI JOIN driver_accounts w ON w.account = d.account
-                WHERE d.day BETWEEN ? AND ? AND d.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).fetchall()
+                f"""SELECT d.account, {day.format("d")}, d.event, d.events FROM daily d
+                SEMI JOIN driver_accounts w ON w.account = d.account
+                WHERE d.day BETWEEN ? AND ? AND d.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).df()
             users = self.con.execute(
-                """SELECT u.account, u.day, u."user", u.event, u.events FROM user_daily u
+                f"""SELECT u.account, {day.format("u")}, u."user", u.event, u.events FROM user_daily u
                 SEMI JOIN driver_accounts w ON w.account = u.account
-                WHERE u.day BETWEEN ? AND ? AND u.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).fetchall()
+                WHERE u.day BETWEEN ? AND ? AND u.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).df()
         finally:
             self.con.unregister("driver_accounts")
-        return (pd.DataFrame(events, columns=["account", "day", "event", "events"]),
-                pd.DataFrame(users, columns=["account", "day", "user", "event", "events"]))
+        return events, users
 
     def has_account(self, account: str) -> bool:
         return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily WHERE account = ? LIMIT 1)", [account]).fetchone()[0] > 0
