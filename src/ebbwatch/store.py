@@ -84,6 +84,13 @@ def _arrow(con, query: str) -> pa.Table:
     return to_table() if to_table is not None else relation.arrow()
 
 
+def _register(con, name: str, data) -> None:
+    """``con.register`` after draining any pending result, which DuckDB 2 would refuse it over
+    (a ``fetchone`` leaves one open; see :func:`_arrow`)."""
+    con.execute("SELECT 1").fetchall()
+    con.register(name, data)
+
+
 def quote_ident(name: str) -> str:
     """A SQL identifier, double-quoted with embedded quotes doubled."""
     return '"' + name.replace('"', '""') + '"'
@@ -122,12 +129,12 @@ class Store:
             self.con.execute("COMMIT")
 
     def schema_version(self) -> int:
-        return int(self.con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0])
+        return int(self.con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchall()[0][0])
 
     # -- reference tables ------------------------------------------------------------------
     def upsert_accounts(self, frame: pd.DataFrame) -> int:
         """Insert or replace accounts (columns of ``frames.ACCOUNT_COLUMNS``)."""
-        self.con.register("incoming_accounts", frame)
+        _register(self.con, "incoming_accounts", frame)
         try:
             self.con.execute("DELETE FROM accounts WHERE account IN (SELECT account FROM incoming_accounts)")
             self.con.execute(
@@ -139,7 +146,7 @@ class Store:
 
     def replace_identities(self, frame: pd.DataFrame) -> int:
         """Replace the identity intervals of every user in ``frame``."""
-        self.con.register("incoming_identities", frame)
+        _register(self.con, "incoming_identities", frame)
         try:
             self.con.execute('DELETE FROM identities WHERE "user" IN (SELECT "user" FROM incoming_identities)')
             self.con.execute(
@@ -271,7 +278,7 @@ class Store:
     # -- events: precise path ----------------------------------------------------------------
     def stage_records(self, table: pa.Table) -> int:
         """Stage events parsed by the precise path (columns ts_us, event, user, account, id)."""
-        self.con.register("incoming_records", table)
+        _register(self.con, "incoming_records", table)
         try:
             self.con.execute(
                 """CREATE OR REPLACE TEMP TABLE staged AS
@@ -341,13 +348,13 @@ class Store:
             conditions.append("s.line_order NOT IN (SELECT line_order FROM repeat_losers)")
         candidates = con.execute(
             f"SELECT count(*) FROM {source}" + (" WHERE unattributed IS NULL" if without_account else "")
-        ).fetchone()[0]
+        ).fetchall()[0][0]
         if repeated:
             repeats = con.execute(
                 f"SELECT count(*) FROM {source} s JOIN repeat_losers r ON r.line_order = s.line_order"
                 + (" WHERE s.unattributed IS NULL" if without_account else "")
-            ).fetchone()[0]
-        if con.execute("SELECT count(*) FROM accounts WHERE timezone IS NOT NULL").fetchone()[0]:
+            ).fetchall()[0][0]
+        if con.execute("SELECT count(*) FROM accounts WHERE timezone IS NOT NULL").fetchall()[0][0]:
             day = "CAST(timezone(COALESCE(a.timezone, 'UTC'), make_timestamptz(s.ts_us)) AS DATE)"
             join = "LEFT JOIN accounts a ON a.account = s.account"
         else:
@@ -377,13 +384,13 @@ class Store:
         """
         con = self.con
         prepared = self.prepare_staged()
-        if con.execute("SELECT count(*) FROM (SELECT 1 FROM seen_ids LIMIT 1)").fetchone()[0]:
+        if con.execute("SELECT count(*) FROM (SELECT 1 FROM seen_ids LIMIT 1)").fetchall()[0][0]:
             con.execute(
                 """CREATE OR REPLACE TEMP TABLE fresh AS SELECT * FROM prepared
                 WHERE id_hash IS NULL OR id_hash NOT IN (SELECT id_hash FROM seen_ids)"""
             )
             fresh = "fresh"
-            fresh_count = con.execute("SELECT count(*) FROM fresh").fetchone()[0]
+            fresh_count = con.execute("SELECT count(*) FROM fresh").fetchall()[0][0]
         else:
             fresh = "prepared"
             fresh_count = prepared["candidates"] - prepared["repeats"]
@@ -426,7 +433,7 @@ class Store:
         """
         con = self.con
         ids = pa.table({"id_hash": pa.array(id_hash, pa.uint64()), "ts_us": pa.array(ts_us, pa.int64())})
-        con.register("claimed_ids", ids)
+        _register(con, "claimed_ids", ids)
         try:
             seen = con.execute(
                 "SELECT c.id_hash FROM claimed_ids c SEMI JOIN seen_ids s ON s.id_hash = c.id_hash"
@@ -446,7 +453,7 @@ class Store:
         if not tables:
             return None, None
         incoming = pa.concat_tables(tables)
-        self.con.register("incoming_user_daily", incoming)
+        _register(self.con, "incoming_user_daily", incoming)
         try:
             self.con.execute(
                 """CREATE OR REPLACE TEMP TABLE new_user_daily AS
@@ -458,13 +465,13 @@ class Store:
         return self._merge_new_user_daily()
 
     def _user_daily_is_empty(self) -> bool:
-        return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM user_daily LIMIT 1)").fetchone()[0] == 0
+        return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM user_daily LIMIT 1)").fetchall()[0][0] == 0
 
     def _merge_new_user_daily(self) -> tuple:
         """Fold the temp table ``new_user_daily`` into ``user_daily`` and ``daily`` (the touched
         account-days are recomputed whole).  Returns the first and last day touched."""
         con = self.con
-        touched_any = con.execute("SELECT count(*) FROM (SELECT 1 FROM new_user_daily LIMIT 1)").fetchone()[0] > 0
+        touched_any = con.execute("SELECT count(*) FROM (SELECT 1 FROM new_user_daily LIMIT 1)").fetchall()[0][0] > 0
         store_empty = self._user_daily_is_empty()
         first_day, last_day = con.execute("SELECT min(day), max(day) FROM new_user_daily").fetchone()
         if touched_any and store_empty:
@@ -551,14 +558,14 @@ class Store:
                    sum(CAST(CAST("count" AS DOUBLE) AS BIGINT)) AS events, max(CAST({users} AS BIGINT)) AS users
             FROM {source} GROUP BY ALL"""
         )
-        empty = self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily LIMIT 1)").fetchone()[0] == 0
+        empty = self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily LIMIT 1)").fetchall()[0][0] == 0
         if not empty:
             self.con.execute(
                 """DELETE FROM daily USING daily_in t
                 WHERE daily.account = t.account AND daily.day = t.day AND daily.event = t.event"""
             )
         self.con.execute("INSERT INTO daily SELECT * FROM daily_in ORDER BY account, day")
-        n = self.con.execute("SELECT count(*) FROM daily_in").fetchone()[0]
+        n = self.con.execute("SELECT count(*) FROM daily_in").fetchall()[0][0]
         self.con.execute("DROP TABLE daily_in")
         return n
 
@@ -578,7 +585,7 @@ class Store:
             "events": int(events),
             "first_day": first_day,
             "last_day": last_day,
-            "files_ingested": con.execute("SELECT count(*) FROM ingest_log").fetchone()[0],
+            "files_ingested": con.execute("SELECT count(*) FROM ingest_log").fetchall()[0][0],
             "last_ingest": None
             if last is None
             else {"file": last[0], "at": last[1].isoformat(), "events": int(last[2])},
@@ -593,7 +600,7 @@ class Store:
         query = "SELECT account, day, event, events, users FROM daily ORDER BY account, day, event"
         options = "FORMAT parquet" if fmt == "parquet" else "FORMAT csv, HEADER true"
         self.con.execute(f"COPY ({query}) TO {quote_literal(path)} ({options})").fetchall()
-        return self.con.execute("SELECT count(*) FROM daily").fetchone()[0]
+        return self.con.execute("SELECT count(*) FROM daily").fetchall()[0][0]
 
     def export_daily_rows(self) -> pd.DataFrame:
         return self.con.execute(
@@ -607,7 +614,7 @@ class Store:
         return [r[0] for r in self.con.execute("SELECT DISTINCT account FROM daily ORDER BY 1").fetchall()]
 
     def last_day(self):
-        return self.con.execute("SELECT max(day) FROM daily").fetchone()[0]
+        return self.con.execute("SELECT max(day) FROM daily").fetchall()[0][0]
 
     def export_index_parts(self, directory: str, event_weights: dict[str, float], start_day, end_day,
                            accounts_per_part: int) -> dict:
@@ -627,7 +634,7 @@ class Store:
         blocks = f"""SELECT account, CAST((row_number() OVER (ORDER BY account) - 1) // {int(accounts_per_part)}
                             AS INTEGER) AS part
                      FROM (SELECT DISTINCT account FROM daily)"""
-        self.con.register("event_weights", weights)
+        _register(self.con, "event_weights", weights)
         try:
             self.con.execute(f"CREATE OR REPLACE TEMP TABLE account_blocks AS {blocks}")
             self.con.execute(
@@ -674,8 +681,8 @@ class Store:
         weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
         lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
         wanted = pd.DataFrame({"account": accounts, "account_index": np.arange(len(accounts), dtype=np.int64)})
-        self.con.register("event_weights", weights)
-        self.con.register("wanted_accounts", wanted)
+        _register(self.con, "event_weights", weights)
+        _register(self.con, "wanted_accounts", wanted)
         try:
             rows = self.con.execute(
                 """SELECT w.account_index, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
@@ -703,8 +710,8 @@ class Store:
         # The account range lets DuckDB skip row groups when a chunk is a sorted slice of accounts.
         lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
         wanted = pd.DataFrame({"account": accounts, "account_index": np.arange(len(accounts), dtype=np.int64)})
-        self.con.register("event_weights", weights)
-        self.con.register("wanted_accounts", wanted)
+        _register(self.con, "event_weights", weights)
+        _register(self.con, "wanted_accounts", wanted)
         try:
             table = self.con.sql(
                 """SELECT w.account_index, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
@@ -762,7 +769,7 @@ class Store:
         """Replace the log rows of ``as_of`` (so recording the same day twice changes nothing)."""
         self.con.execute("DELETE FROM alert_log WHERE as_of = ?", [as_of])
         if len(rows):
-            self.con.register("incoming_alert_rows", rows)
+            _register(self.con, "incoming_alert_rows", rows)
             try:
                 self.con.execute(
                     """INSERT INTO alert_log SELECT CAST(as_of AS DATE), account, direction, kind, state,
@@ -812,7 +819,7 @@ class Store:
         day, user, event, events`` in [start_day, end_day] (datetime.date); ``day`` in the
         frames is days since 1970-01-01."""
         wanted = pd.DataFrame({"account": list(dict.fromkeys(accounts))})
-        self.con.register("driver_accounts", wanted)
+        _register(self.con, "driver_accounts", wanted)
         try:
             lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
             day = "CAST({}.day - DATE '1970-01-01' AS INTEGER) AS day"
@@ -829,19 +836,19 @@ class Store:
         return events, users
 
     def has_account(self, account: str) -> bool:
-        return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily WHERE account = ? LIMIT 1)", [account]).fetchone()[0] > 0
+        return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily WHERE account = ? LIMIT 1)", [account]).fetchall()[0][0] > 0
 
 
 def _migrate(con, path: str):
     has_meta = con.execute(
         "SELECT count(*) FROM information_schema.tables WHERE table_name = 'meta' AND table_schema = 'main'"
-    ).fetchone()[0]
+    ).fetchall()[0][0]
     if has_meta:
-        version = int(con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0])
+        version = int(con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchall()[0][0])
     else:
         other = con.execute(
             "SELECT count(*) FROM information_schema.tables WHERE table_schema = 'main'"
-        ).fetchone()[0]
+        ).fetchall()[0][0]
         if other:
             raise StoreError(
                 f"{path} is a DuckDB database but not an ebbwatch store (it has tables and no "
@@ -869,7 +876,7 @@ def scratch_store(accounts: pa.Table, identities: pa.Table) -> Store:
     stages, attributes and dates one file exactly as the real store would."""
     st = open_store(":memory:")
     for name, table in (("accounts", accounts), ("identities", identities)):
-        st.con.register("incoming_reference", table)
+        _register(st.con, "incoming_reference", table)
         try:
             st.con.execute(f"INSERT INTO {name} SELECT * FROM incoming_reference")
         finally:
@@ -883,8 +890,8 @@ def aggregate_events(events: pa.Table, duplicate_hashes: np.ndarray) -> tuple[pa
     events counted, and the first and last day."""
     con = duckdb.connect()
     try:
-        con.register("events", events)
-        con.register("duplicates", pa.table({"id_hash": pa.array(duplicate_hashes, pa.uint64())}))
+        _register(con, "events", events)
+        _register(con, "duplicates", pa.table({"id_hash": pa.array(duplicate_hashes, pa.uint64())}))
         con.execute(
             """CREATE TEMP TABLE fresh AS SELECT * FROM events e
             WHERE e.id_hash IS NULL OR e.id_hash NOT IN (SELECT id_hash FROM duplicates)"""
@@ -951,7 +958,7 @@ def open_store(path: str | None = None, *, read_only: bool = False, wait_seconds
             _migrate(con, path)
         else:
             try:
-                version = int(con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0])
+                version = int(con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchall()[0][0])
             except duckdb.Error as exc:
                 raise StoreError(f"{path} is not an ebbwatch store") from exc
             if version < SCHEMA_VERSION and os.access(path, os.W_OK):

@@ -18,28 +18,41 @@ from .silence import last_active_column, silence
 from .tail import reference_mask, rolling_window
 from .trend import step_or_ramp, trend_test
 
-def sustained_change(values, factors, breakpoints, lookback: int = 56):
-    """Of the candidate ``breakpoints`` (columns), the one where activity changed for good.
+def sustained_changes(values, factors, pair_rows, pair_breakpoints, lookback: int = 56):
+    """Per account, the candidate breakpoint where activity changed for good.
 
-    For each, the weekday-weighted level (Σ values / Σ factors) from it to the end against the
-    ``lookback`` days before it, scored as |log ratio| · sqrt(usual volume of the shorter side):
-    a step that lasts to the end beats a blip on a quiet weekend.  Returns ``(column,
-    level_before, level_after)``; ``values``/``factors`` are one account's (L,) rows.
+    ``values``/``factors`` are (A, L); candidate ``pair_breakpoints`` (columns) belong to rows
+    ``pair_rows``, grouped by row and in each row's own order.  For each candidate, the
+    weekday-weighted level (Σ values / Σ factors) from it to the end against the ``lookback``
+    days before it, scored as |log ratio| · sqrt(usual volume of the shorter side): a step that
+    lasts to the end beats a blip on a quiet weekend; ties go to the earlier candidate.  Returns
+    ``(rows, column, level_before, level_after)``, one entry per distinct row; levels are NaN
+    where no candidate had days on both sides (the column is then the row's first candidate).
     """
-    valid = np.isfinite(values)
-    v = np.where(valid, values, 0.0)
-    w = np.where(valid, factors, 0.0)
-    best, best_score, levels = breakpoints[0], -1.0, (np.nan, np.nan)
-    for b in breakpoints:
-        lo = max(0, b - lookback)
-        w_before, w_after = w[lo:b].sum(), w[b:].sum()
-        if w_before <= 0 or w_after <= 0:
-            continue
-        before, after = v[lo:b].sum() / w_before, v[b:].sum() / w_after
-        score = abs(np.log((after + 1e-3) / (before + 1e-3))) * np.sqrt(min(w_before, w_after) * max(before, after, 1e-9))
-        if score > best_score:
-            best, best_score, levels = b, score, (before, after)
-    return best, levels[0], levels[1]
+    pair_rows = np.asarray(pair_rows, np.int64)
+    b = np.asarray(pair_breakpoints, np.int64)
+    rows, first = np.unique(pair_rows, return_index=True)
+    if not rows.size:
+        return rows, b[:0], np.zeros(0), np.zeros(0)
+    valid = np.isfinite(values[rows])
+    zero = np.zeros((rows.size, 1))
+    cum_v = np.hstack([zero, np.cumsum(np.where(valid, values[rows], 0.0), axis=1)])
+    cum_w = np.hstack([zero, np.cumsum(np.where(valid, factors[rows], 0.0), axis=1)])
+    r = np.searchsorted(rows, pair_rows)
+    lo = np.maximum(0, b - lookback)
+    w_before, w_after = cum_w[r, b] - cum_w[r, lo], cum_w[r, -1] - cum_w[r, b]
+    usable = (w_before > 0) & (w_after > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        before = (cum_v[r, b] - cum_v[r, lo]) / w_before
+        after = (cum_v[r, -1] - cum_v[r, b]) / w_after
+        score = np.abs(np.log((after + 1e-3) / (before + 1e-3))) * np.sqrt(
+            np.minimum(w_before, w_after) * np.maximum(np.maximum(before, after), 1e-9))
+    score = np.where(usable, score, -1.0)
+    # Best score per row, the earliest candidate among equals.
+    order = np.lexsort((np.arange(b.size), -score, r))
+    best = order[np.searchsorted(r[order], np.arange(rows.size))]
+    found = usable[best]
+    return rows, b[best], np.where(found, before[best], np.nan), np.where(found, after[best], np.nan)
 
 
 @dataclass(frozen=True)
@@ -74,7 +87,7 @@ SCORE_COLUMNS = (
 )
 
 
-def _level_tails(values, counts, factors, first_seen, reference_end, window, params):
+def _level_tails(values, factors, first_seen, reference_end, window, params):
     """Tail probabilities of each account's last ``window``-day level against its reference
     windows of the same length: empirical in the bulk, log-normal / mixture beyond it, and a
     negative binomial on totals for low-volume accounts.
@@ -116,7 +129,6 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     """
     W = params.window_days
     values = adjust_for_fleet(panel)
-    counts = panel.counts / panel.fleet_factor[None, :]
     n_accounts, n_days = values.shape
     if n_days < W + 14:
         raise ValueError(f"need at least {W + 14} days of columns, got {n_days}")
@@ -154,14 +166,14 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         search = ChangepointSearch(penalty_factor=params.penalty_factor).fit(segment[candidates])
         offset = n_days - span
         earliest_allowed = span - params.horizon_days
-        for row, bkps in zip(candidates, search.breakpoints_):
-            recent = [b for b in bkps[:-1] if b >= earliest_allowed]
-            if not recent:
-                continue
-            onset, before, after = sustained_change(values[row, offset:], factors[row, offset:], recent)
-            onset_col[row] = offset + onset
-            reference_end[row] = min(hist_end, offset + onset)
-            level_before[row], level_after[row] = before, after
+        pairs = [(row, b) for row, bkps in zip(candidates, search.breakpoints_) for b in bkps[:-1]
+                 if b >= earliest_allowed]
+        if pairs:
+            pair_rows, pair_bkps = np.array(pairs, dtype=np.int64).T
+            rows, onset, before, after = sustained_changes(values[:, offset:], factors[:, offset:], pair_rows, pair_bkps)
+            onset_col[rows] = offset + onset
+            reference_end[rows] = np.minimum(hist_end, offset + onset)
+            level_before[rows], level_after[rows] = before, after
 
     # Trend over the last weeks (weekly levels, relative to the account's scale).
     weeks = params.trend_weeks
@@ -192,13 +204,13 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         reference_end[rows] = np.minimum(hist_end, onset_col[rows])
 
     # Level distribution of window levels over the reference history (before a recent change).
-    tails = _level_tails(values, counts, factors, first_seen, reference_end, W, params)
+    tails = _level_tails(values, factors, first_seen, reference_end, W, params)
     p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current, bic = tails
     # A change inside the window is judged on the days since it, against windows of that length.
     inside = (onset_col > n_days - W) & (onset_col <= n_days - 2) & ~stop
     for k in np.unique(n_days - onset_col[inside]):
         rows = np.flatnonzero(inside & (n_days - onset_col == k))
-        part = _level_tails(values[rows], counts[rows], factors[rows], first_seen[rows],
+        part = _level_tails(values[rows], factors[rows], first_seen[rows],
                             reference_end[rows], int(k), params)
         for target, value in zip((p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current, bic), part):
             target[rows] = value
