@@ -34,10 +34,19 @@ def fast_nanmedian_rows(array) -> np.ndarray:
     missing = np.isnan(array)
     if not missing.any():
         return np.median(array, axis=1)
-    rank = np.cumsum(missing, axis=1)
-    filled = np.where(missing, np.where(rank % 2 == 0, np.inf, -np.inf), array)
-    with np.errstate(invalid="ignore"):
-        out = np.median(filled, axis=1)
+    odd = np.logical_xor.accumulate(missing, axis=1)  # parity of the row's NaN count so far
+    filled = array.copy()
+    filled[missing & odd] = -np.inf
+    filled[missing & ~odd] = np.inf
+    # The median by an in-place partition of the copy (np.median would copy again).
+    n = filled.shape[1]
+    if n % 2:
+        filled.partition(n // 2, axis=1)
+        out = filled[:, n // 2].copy()
+    else:
+        filled.partition([n // 2 - 1, n // 2], axis=1)
+        with np.errstate(invalid="ignore"):
+            out = 0.5 * (filled[:, n // 2 - 1] + filled[:, n // 2])
     out[missing.all(axis=1) | ~np.isfinite(out)] = np.nan
     return out
 
