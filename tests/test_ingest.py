@@ -234,6 +234,35 @@ def test_fast_and_precise_paths_agree(tmp_path):
     assert s1["ingested"] == s2["ingested"] and s1["duplicates"] == s2["duplicates"]
 
 
+# Values whose JSON type matters: strings that read like numbers, booleans, objects or arrays,
+# and the non-string values themselves.  The fast path reads these fields as text, so it must
+# either agree with the precise path or leave the file to it.
+tricky_value = st.sampled_from([
+    "doc.edit", "5", "-3", "1.5", "1e5", "true", "false", "null", "{x}", "[a]", "", "a\"b", "é", "-x", "0",
+    "12345678901234567890", 5, -3, 0, 1.5, 1e5, True, False, None, {"a": 1}, [1], 12345678901234567890,
+])
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(values=st.lists(st.tuples(tricky_value, tricky_value, tricky_value, tricky_value), min_size=1, max_size=8))
+def test_property_fast_path_agrees_with_precise_path_on_typed_values(tmp_path_factory, values):
+    """Each line's event, user, account and id drawn from typed look-alikes; the same lines with
+    one broken line added (which sends the file through the precise path) give the same store."""
+    tmp = tmp_path_factory.mktemp("typed")
+    rows = [{"ts": f"2026-03-02T10:00:0{i % 10}Z", "event": e, "user": u, "account": a, "id": i_}
+            for i, (e, u, a, i_) in enumerate(values)]
+    clean = write_jsonl(tmp / "clean.jsonl", rows)
+    dirty = write_jsonl(tmp / "dirty.jsonl", rows, raw_lines=[b"{broken"])
+    s1 = ingest(str(tmp / "1.duckdb"), [clean])
+    s2 = ingest(str(tmp / "2.duckdb"), [dirty])
+    assert s2["paths"]["precise"] == 1
+    assert daily(str(tmp / "1.duckdb")) == daily(str(tmp / "2.duckdb"))
+    rejected = dict(s2["rejected"])
+    rejected["not_json"] = rejected.get("not_json", 0) - 1
+    assert {k: v for k, v in s1["rejected"].items() if v} == {k: v for k, v in rejected.items() if v}
+    assert (s1["ingested"], s1["duplicates"], s1["unattributed"]) == (s2["ingested"], s2["duplicates"], s2["unattributed"])
+
+
 event_strategy = st.builds(
     lambda day, sec, user, acct, ident: ev(
         (datetime(2026, 3, 1, tzinfo=timezone.utc) + timedelta(days=day, seconds=sec)).isoformat().replace("+00:00", "Z"),
