@@ -173,19 +173,29 @@ def build_panel(
 def _same_weekday_reference(matrix: np.ndarray, weeks: int = FLEET_LOOKBACK_WEEKS) -> np.ndarray:
     """Median of the same weekday over the previous ``weeks`` weeks, (A, D); NaN where unknown.
 
-    A median of a handful of values by sorting along the short axis (NaN sort last), much
-    faster than ``np.nanmedian`` on (weeks, A, D).
+    The ``weeks`` lagged copies are put in order by a network of elementwise compare-and-swaps
+    (NaN as +inf sorts last, as in ``np.sort``), much faster than sorting along a short axis
+    or ``np.nanmedian`` on (weeks, A, D).
     """
     n_days = matrix.shape[1]
-    lagged = np.full((weeks,) + matrix.shape, np.nan)
+    lagged = []
     for k in range(1, weeks + 1):
+        lag = np.full(matrix.shape, np.inf)
         if 7 * k < n_days:
-            lagged[k - 1, :, 7 * k:] = matrix[:, : n_days - 7 * k]
-    lagged.sort(axis=0)
-    count = np.isfinite(lagged).sum(axis=0)
-    lo = np.take_along_axis(lagged, np.maximum((count - 1) // 2, 0)[None], axis=0)[0]
-    hi = np.take_along_axis(lagged, np.maximum(count // 2, 0)[None], axis=0)[0]
-    return np.where(count > 0, 0.5 * (lo + hi), np.nan)
+            lag[:, 7 * k:] = matrix[:, : n_days - 7 * k]
+        lag[np.isnan(lag)] = np.inf
+        lagged.append(lag)
+    for i in range(weeks):
+        for j in range(weeks - 1 - i):
+            low, high = np.minimum(lagged[j], lagged[j + 1]), np.maximum(lagged[j], lagged[j + 1])
+            lagged[j], lagged[j + 1] = low, high
+    count = sum(np.isfinite(lag).astype(np.int8) for lag in lagged)
+    lo, hi = lagged[0].copy(), lagged[0].copy()
+    for k in range(1, weeks):
+        np.copyto(lo, lagged[k], where=(count - 1) // 2 == k)
+        np.copyto(hi, lagged[k], where=count // 2 == k)
+    with np.errstate(invalid="ignore"):
+        return np.where(count > 0, 0.5 * (lo + hi), np.nan)
 
 
 def shorth_location(votes: np.ndarray, coverage: float = 0.6) -> np.ndarray:
