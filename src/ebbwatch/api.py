@@ -251,6 +251,23 @@ def daily_frame(*, db: str | None = None, config=None):
 # -- scan ------------------------------------------------------------------------------------
 
 FLEET_SAMPLE_ACCOUNTS = 5_000
+FLEET_SAMPLE_RUNS = 100
+
+
+def fleet_sample(accounts: list[str]) -> tuple[list[str], list[tuple[str, str]]]:
+    """The accounts fleet-wide quantities are measured on, and their id ranges: up to
+    ``FLEET_SAMPLE_ACCOUNTS``, as ``FLEET_SAMPLE_RUNS`` runs of consecutive ids spread evenly
+    over the sorted ``accounts``.  Runs rather than every k-th id: DuckDB reads narrow ranges
+    of a table kept in account order without scanning the rest (0.08-0.17 s instead of 0.37 s
+    on the 100k-account scan benchmark), and a table in another order costs one scan either
+    way.  Runs of 50 keep the sample nearly as spread as every k-th id."""
+    accounts = list(accounts)
+    if len(accounts) <= FLEET_SAMPLE_ACCOUNTS:
+        return accounts, [(accounts[0], accounts[-1])] if accounts else []
+    size = FLEET_SAMPLE_ACCOUNTS // FLEET_SAMPLE_RUNS
+    starts = np.linspace(0, len(accounts) - size, FLEET_SAMPLE_RUNS).astype(int)
+    runs = [accounts[s:s + size] for s in starts]
+    return [a for run in runs for a in run], [(run[0], run[-1]) for run in runs]
 
 
 def _scan_params(cfg: Config):
@@ -302,23 +319,28 @@ class PanelLoader:
         self.masked = None
         self.count_dispersion = None
 
-    def _rows(self, accounts, *, users: bool = False):
+    def _rows(self, accounts, *, users: bool = False, ranges=None):
         """``(account_index, day, value, events, users)``; ``events``/``users`` are None and
-        account-days may repeat (one row per event name) unless ``users`` is asked for."""
+        account-days may repeat (one row per event name) unless ``users`` is asked for.
+        ``ranges``: id ranges holding the accounts (``Store.index_rows``)."""
         start, end = day_to_date(self.start_day), day_to_date(self.end_day)
         if users:
             return self.st.weighted_daily(self.weights, list(accounts), start, end)
-        return (*self.st.index_rows(self.weights, list(accounts), start, end), None, None)
+        return (*self.st.index_rows(self.weights, list(accounts), start, end, ranges), None, None)
+
+    def sample_counts(self, accounts) -> np.ndarray:
+        """Raw weighted totals (S, D) of the fleet sample (:func:`fleet_sample`) of ``accounts``."""
+        from .series import dense_matrix
+
+        sample, ranges = fleet_sample(accounts)
+        idx, day, value, _, _ = self._rows(sample, ranges=ranges)
+        return dense_matrix(idx, day, value, len(sample), self.start_day, self.end_day - self.start_day + 1)
 
     def fit_fleet(self, accounts):
         from .baseline.counts import pooled_dispersion
-        from .series import dense_matrix, fleet_factor, missing_before_first_activity
+        from .series import fleet_factor, missing_before_first_activity
 
-        step = max(1, len(accounts) // FLEET_SAMPLE_ACCOUNTS)
-        sample = list(accounts)[::step]
-        idx, day, value, _, _ = self._rows(sample)
-        n_days = self.end_day - self.start_day + 1
-        counts = dense_matrix(idx, day, value, len(sample), self.start_day, n_days)
+        counts = self.sample_counts(accounts)
         self.fleet_factor, self.masked = fleet_factor(counts)
         # The same fleet-wide count dispersion for every chunk (see backtest.replay_fleet_factors).
         started = missing_before_first_activity(counts)
@@ -666,6 +688,7 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     from .backtest import calibrate, churn_days, evaluate, replay_fleet_factors, select_replayed, sweep
     from .engine import default_threads
     from .ingest.csvs import read_outcomes
+    from .series import missing_before_first_activity
 
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
@@ -691,8 +714,8 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         history = max((end - first_day).days + 1, cfg.scan.window_days + 14)
         loader = PanelLoader(st, cfg, end, history)
         days = list(range((start - EPOCH).days, (end - EPOCH).days + 1, step))
-        sample = accounts[::max(1, len(accounts) // FLEET_SAMPLE_ACCOUNTS)]
-        factors = replay_fleet_factors(loader(sample).counts, loader.start_day, days, history_days=history_days,
+        sample_counts = missing_before_first_activity(loader.sample_counts(accounts))
+        factors = replay_fleet_factors(sample_counts, loader.start_day, days, history_days=history_days,
                                        params=params)
         never = np.iinfo(np.int64).max
         churn = {a: int(c) for a, c in zip(accounts, churn_days(accounts, outcome_frame)) if c != never}

@@ -680,27 +680,32 @@ class Store:
             self.con.execute("DROP TABLE IF EXISTS account_blocks")
         return {"accounts": int(n_accounts), "parts": int(n_parts), "rows": int(rows)}
 
-    def index_rows(self, event_weights: dict[str, float], accounts: list[str], start_day, end_day):
+    def index_rows(self, event_weights: dict[str, float], accounts: list[str], start_day, end_day,
+                   account_ranges: list[tuple[str, str]] | None = None):
         """Weighted event counts of ``accounts`` in days [start, end], one row per account, day and
         event name: ``(account_index, day, value)`` numpy arrays, ``account_index`` into
         ``accounts``, ``day`` in days since 1970-01-01.  An account-day appears once per weighted
         event name; the caller sums (``series.dense_matrix``).  Summing in numpy rather than a
         ``GROUP BY`` here is about 4x faster: the grouping's hash table over millions of
         account-days costs more than reading the rows (tests/benchmarks/scan.py).
+        ``account_ranges``: ``(first, last)`` id ranges that hold all of ``accounts`` (default:
+        smallest to largest); the filter lets DuckDB skip row groups of a table in account order.
         """
         weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
-        lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
+        if account_ranges is None:
+            account_ranges = [(min(accounts), max(accounts)) if accounts else ("", "")]
+        in_ranges = " OR ".join(["d.account BETWEEN ? AND ?"] * len(account_ranges))
         wanted = pd.DataFrame({"account": accounts, "account_index": np.arange(len(accounts), dtype=np.int64)})
         _register(self.con, "event_weights", weights)
         _register(self.con, "wanted_accounts", wanted)
         try:
             rows = self.con.execute(
-                """SELECT w.account_index, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
+                f"""SELECT w.account_index, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day,
                           d.events * e.weight AS value
                 FROM daily d JOIN wanted_accounts w ON w.account = d.account
                 JOIN event_weights e ON e.event = d.event
-                WHERE d.day BETWEEN ? AND ? AND e.weight > 0 AND d.account BETWEEN ? AND ?""",
-                [start_day, end_day, lo, hi],
+                WHERE d.day BETWEEN ? AND ? AND e.weight > 0 AND ({in_ranges})""",
+                [start_day, end_day, *[bound for pair in account_ranges for bound in pair]],
             ).fetchnumpy()
         finally:
             self.con.unregister("event_weights")
