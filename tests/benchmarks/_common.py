@@ -22,4 +22,8 @@ def run_measured(code: str) -> dict:
     out = subprocess.run([sys.executable, "-c", wrapper], capture_output=True, text=True)
     if out.returncode != 0:
         raise RuntimeError(out.stderr[-3000:])
-    return json.loads(out.stdout.strip().splitlines()[-1])
+    last = out.stdout.strip().splitlines()[-1] if out.stdout.strip() else ""
+    try:
+        return json.loads(last)
+    except json.JSONDecodeError as exc:
+        raise RuntimeError(f"the child's last line is not its JSON result: {last[:300]!r}") from exc

@@ -28,13 +28,12 @@ def silence(values, reference_end, weekdays, first_seen):
     last_active = last_active_column(values)
     in_reference = (idx[None, :] < np.asarray(reference_end)[:, None]) & (idx[None, :] >= np.asarray(first_seen)[:, None]) & valid
     quiet = in_reference & (values == 0)
-    log_q = np.zeros((n_accounts, 7))
     weekdays = np.asarray(weekdays)
-    for d in range(7):
-        on_day = weekdays == d
-        n = in_reference[:, on_day].sum(axis=1)
-        z = quiet[:, on_day].sum(axis=1)
-        log_q[:, d] = np.log((z + 0.5) / (n + 1.0))
+    # Days and quiet days per weekday, (A, 7), as products with the columns' weekday indicator.
+    on_day = (weekdays[:, None] == np.arange(7)[None, :]).astype(float)
+    n = in_reference.astype(float) @ on_day
+    z = quiet.astype(float) @ on_day
+    log_q = np.log((z + 0.5) / (n + 1.0))
     after_last = idx[None, :] > last_active[:, None]
     silent_cols = after_last & valid
     silent_days = silent_cols.sum(axis=1)

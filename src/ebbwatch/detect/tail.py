@@ -6,8 +6,11 @@ import numpy as np
 
 
 def _rolling_sum(matrix, window):
-    csum = np.concatenate([np.zeros((matrix.shape[0], 1)), np.cumsum(matrix, axis=1)], axis=1)
-    return csum[:, window:] - csum[:, :-window]
+    """Sums of every ``window`` consecutive columns, (A, D − window + 1), from one cumulative sum."""
+    csum = np.cumsum(matrix, axis=1)
+    out = csum[:, window - 1:].copy()
+    out[:, 1:] -= csum[:, :-window]
+    return out
 
 
 def rolling_window(values, window: int, expected=None, min_valid: int | None = None):
@@ -27,7 +30,7 @@ def rolling_window(values, window: int, expected=None, min_valid: int | None = N
     sums = _rolling_sum(np.where(valid, values, 0.0), window)
     weights = _rolling_sum(np.where(valid, expected, 0.0), window)
     full_weights = _rolling_sum(np.asarray(expected, float), window)
-    counts = _rolling_sum(valid.astype(float), window)
+    counts = _rolling_sum(valid.view(np.int8) if window < 128 else valid.astype(np.int32), window)
     with np.errstate(invalid="ignore", divide="ignore"):
         levels = np.where((counts >= min_valid) & (weights > 0), sums / weights, np.nan)
     return levels, levels * full_weights
