@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..series import fast_nanmedian_rows, quiet_nanmean
+from ..series import fast_nanmedian_rows
 from ._base import Estimator, check_matrix
 
 
@@ -47,8 +47,10 @@ class WeekdayProfile(Estimator):
         if n_weeks:
             offset = n_days - 7 * n_weeks  # align weeks to end at the last column
             weeks = values[:, offset:].reshape(n_accounts, n_weeks, 7)
-            valid_days = np.isfinite(weeks).sum(axis=2)
-            week_mean = quiet_nanmean(weeks, axis=2)
+            valid = np.isfinite(weeks)
+            valid_days = valid.sum(axis=2)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                week_mean = np.where(valid, weeks, 0.0).sum(axis=2) / valid_days
             usable = (valid_days >= self.min_days_per_week) & (week_mean > 0)
             with np.errstate(invalid="ignore", divide="ignore"):
                 share = np.where(usable[:, :, None], weeks / week_mean[:, :, None], np.nan)

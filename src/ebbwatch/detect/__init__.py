@@ -139,7 +139,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     enough = n_history >= params.min_history_days
 
     profile = WeekdayProfile().fit(values[:, :hist_end], int(weekdays[0]))
-    z = values / profile.factors_[:, weekdays]
+    factors = profile.factors_[:, weekdays]
+    z = values / factors
     scale = quiet_nanmean(z[:, :hist_end], axis=1)
     scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)
     u = np.log(z / scale[:, None] + params.log_offset)
@@ -161,7 +162,6 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     level_before = np.full(n_accounts, np.nan)
     level_after = np.full(n_accounts, np.nan)
     reference_end = np.full(n_accounts, hist_end)
-    factors = profile.factors_[:, weekdays]
     if candidates.size:
         search = ChangepointSearch(penalty_factor=params.penalty_factor).fit(segment[candidates])
         offset = n_days - span
