@@ -86,7 +86,7 @@ def main():
     parser.add_argument("--accounts", type=int, default=100_000)
     parser.add_argument("--days", type=int, default=730)
     parser.add_argument("--chunk", type=int, default=10_000)
-    parser.add_argument("--loop-sample", type=int, default=1000)
+    parser.add_argument("--loop-sample", type=int, default=3000)
     parser.add_argument("--repeat", type=int, default=3, help="scan and loop runs, alternated (medians compared)")
     parser.add_argument("--dir", help="keep the generated files here (default: a temp directory)")
     args = parser.parse_args()
