@@ -263,11 +263,11 @@ def fleet_sample(accounts: list[str]) -> tuple[list[str], list[tuple[str, str]]]
     way.  Runs of 50 keep the sample nearly as spread as every k-th id."""
     accounts = list(accounts)
     if len(accounts) <= FLEET_SAMPLE_ACCOUNTS:
-        return accounts, [(accounts[0], accounts[-1])] if accounts else []
+        return accounts, [(min(accounts), max(accounts))] if accounts else []
     size = FLEET_SAMPLE_ACCOUNTS // FLEET_SAMPLE_RUNS
     starts = np.linspace(0, len(accounts) - size, FLEET_SAMPLE_RUNS).astype(int)
     runs = [accounts[s:s + size] for s in starts]
-    return [a for run in runs for a in run], [(run[0], run[-1]) for run in runs]
+    return [a for run in runs for a in run], [(min(run), max(run)) for run in runs]
 
 
 def _scan_params(cfg: Config):
