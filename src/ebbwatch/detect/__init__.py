@@ -31,7 +31,7 @@ def sustained_changes(values, factors, pair_rows, pair_breakpoints, lookback: in
     """
     pair_rows = np.asarray(pair_rows, np.int64)
     b = np.asarray(pair_breakpoints, np.int64)
-    rows, first = np.unique(pair_rows, return_index=True)
+    rows = np.unique(pair_rows)
     if not rows.size:
         return rows, b[:0], np.zeros(0), np.zeros(0)
     valid = np.isfinite(values[rows])

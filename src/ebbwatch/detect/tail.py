@@ -30,7 +30,7 @@ def rolling_window(values, window: int, expected=None, min_valid: int | None = N
     sums = _rolling_sum(np.where(valid, values, 0.0), window)
     weights = _rolling_sum(np.where(valid, expected, 0.0), window)
     full_weights = _rolling_sum(np.asarray(expected, float), window)
-    counts = _rolling_sum(valid.view(np.int8) if window < 128 else valid.astype(np.int32), window)
+    counts = _rolling_sum(valid.view(np.int8), window)  # cumsum accumulates int8 in the platform int
     with np.errstate(invalid="ignore", divide="ignore"):
         levels = np.where((counts >= min_valid) & (weights > 0), sums / weights, np.nan)
     return levels, levels * full_weights
