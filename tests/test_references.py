@@ -123,6 +123,21 @@ def test_changepoints_on_ruptures_pw_constant(seed):
     assert hausdorff(truth, found) <= 5
 
 
+def test_changepoint_search_matches_ruptures_public_api():
+    """Reference: ruptures' public ``KernelCPD(kernel="linear").fit(x).predict(pen=...)`` on
+    noisy steps, ramps and flat rows, which the search's direct call of its C core must match."""
+    rng = np.random.default_rng(11)
+    rows = [rpt.pw_constant(182, 1, k, noise_std=s, seed=seed)[0][:, 0]
+            for seed, (k, s) in enumerate([(0, 1.0), (1, 0.5), (2, 2.0), (3, 1.0), (1, 0.1)])]
+    rows += [np.linspace(0, 3, 182) + rng.normal(0, 0.3, 182), np.zeros(182), rng.normal(0, 1, 182)]
+    signal = np.array(rows)
+    search = ChangepointSearch(penalty_factor=3.0, min_size=2).fit(signal)
+    for row, sigma, found in zip(signal, search.sigma_, search.breakpoints_):
+        expected = rpt.KernelCPD(kernel="linear", min_size=2, jump=1).fit(row.reshape(-1, 1)).predict(
+            pen=3.0 * sigma**2 * np.log(182))
+        assert found == expected
+
+
 def test_nile_change_after_1898():
     """Reference: statsmodels.datasets.nile; Cobb (1978) places the change near 1898, the new
     level starting in 1899 (index 28)."""
