@@ -306,3 +306,30 @@ def test_property_any_split_any_order_any_redelivery(tmp_path_factory, rows, cut
             seen.add(f.read_bytes())
             distinct.extend(part)
     assert daily(store) == python_count(distinct)
+
+
+def test_first_value_is_text_reads_only_the_head(tmp_path):
+    from ebbwatch.ingest.readers import first_value_is_text
+
+    text = tmp_path / "text.jsonl.gz"
+    with gzip.open(text, "wb") as handle:
+        handle.write(b"not json\n[1]\n" + json.dumps({"ts": "2026-03-01T00:00:00Z"}).encode() + b"\n")
+    number = write_jsonl(tmp_path / "number.jsonl", [{"ts": 1_772_500_000}])
+    # One line longer than the head: never read whole, and no object found in it.
+    long = tmp_path / "long.jsonl"
+    long.write_bytes(b'{"ts": "2026-03-01T00:00:00Z", "pad": "' + b"x" * 200_000 + b'"}\n')
+    assert first_value_is_text(str(text), "ts") is True
+    assert first_value_is_text(str(number), "ts") is False
+    assert first_value_is_text(str(long), "ts") is False
+    assert first_value_is_text(str(tmp_path / "missing.jsonl"), "ts") is False
+
+
+def test_number_times_first_then_text_times_stay_on_the_fast_path(tmp_path):
+    rows = [ev(1_772_500_000 + i, user="u", account="a-1", id=f"n{i}") for i in range(5)]
+    rows += [ev(f"2026-03-0{1 + i}T10:00:00Z", user="u", account="a-1", id=f"t{i}") for i in range(5)]
+    first_text = list(reversed(rows))
+    s1 = ingest(str(tmp_path / "1.duckdb"), [write_jsonl(tmp_path / "a.jsonl", rows)])
+    s2 = ingest(str(tmp_path / "2.duckdb"), [write_jsonl(tmp_path / "b.jsonl", first_text)])
+    assert s1["paths"]["fast"] == 1 and s2["paths"]["fast"] == 1
+    assert s1["ingested"] == s2["ingested"] == 10
+    assert daily(str(tmp_path / "1.duckdb")) == daily(str(tmp_path / "2.duckdb"))

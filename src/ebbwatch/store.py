@@ -195,13 +195,17 @@ class Store:
 
     # -- events: fast path -----------------------------------------------------------------
     def stage_jsonl_fast(self, path: str, fields, ts_format: str, max_line_bytes: int,
-                         earliest_us: int, latest_us: int) -> int | None:
+                         earliest_us: int, latest_us: int, ts_text: bool = False) -> int | None:
         """Parse a JSON-lines file with DuckDB's native reader into the temp table ``staged``.
 
         One pass converts every row and flags the ones the fast path is not sure of (a wrong
         type, an unusual timestamp, an out-of-range time); a parse error or any flagged row
         returns ``None``, and the caller sends the whole file through the precise path.  Lines
         over the size limit are caught by the caller (DuckDB's reader does not enforce it).
+        ``ts_text``: the times are expected to be RFC 3339 strings (``ts_format`` rfc3339, or auto
+        with a string time on the first line): the time is then read as text too, and a time
+        that is not such a string (a number's text cannot look like one) is flagged; a file
+        with flagged rows is then read again the general way (it may mix strings and numbers).
         Returns the number of events staged.
         """
         names = [fields.ts, fields.event, fields.user, fields.account, fields.id]
@@ -212,7 +216,10 @@ class Store:
         # file with such a value takes the precise path, which knows.
         if len(set(names)) < len(names):
             return None  # one key for two fields: leave the file to the precise path
-        spec = ", ".join(f"{quote_literal(n)}: '{'JSON' if n == fields.ts else 'VARCHAR'}'" for n in names)
+        # Text times skip a JSON value and two extractions per line (1.15 -> 0.95 s of staging on
+        # the ingest benchmark's 2M lines).
+        ts_type = "VARCHAR" if ts_text else "JSON"
+        spec = ", ".join(f"{quote_literal(n)}: '{ts_type if n == fields.ts else 'VARCHAR'}'" for n in names)
         ts, ev, us, ac, idc = (quote_ident(n) for n in names)
 
         def text(col):
@@ -243,7 +250,9 @@ class Store:
             return f"NOT {may_be_non_string(col, integers_too=False)}"
 
         string_ok = f"{is_string(ts)} AND regexp_full_match({unquote(ts)}, {quote_literal(FAST_TS_PATTERN)})"
-        if ts_format == "rfc3339":
+        if ts_text:
+            ts_ok = f"regexp_full_match({ts}, {quote_literal(FAST_TS_PATTERN)})"
+        elif ts_format == "rfc3339":
             ts_ok = string_ok
         elif ts_format in ("epoch_s", "epoch_ms"):
             ts_ok = is_number(ts)
@@ -261,12 +270,16 @@ class Store:
               f"AND {ev} <> '' AND NOT {may_be_non_string(ev, integers_too=True)} "
               f"AND {us} <> '' AND {id_ok(us)} "
               f"AND ({ac} IS NULL OR {id_ok(ac)}) AND ({idc} IS NULL OR {id_ok(idc)})")
+        if ts_text:
+            time_us = f"CASE WHEN COALESCE({ok}, false) THEN epoch_us(TRY_CAST({ts} AS TIMESTAMPTZ)) END"
+        else:
+            time_us = (f"CASE WHEN NOT COALESCE({ok}, false) THEN NULL "
+                       f"WHEN {is_string(ts)} THEN epoch_us(TRY_CAST({unquote(ts)} AS TIMESTAMPTZ)) "
+                       f"ELSE {numeric_us} END")
         try:
             self.con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE staged AS
-                SELECT CASE WHEN NOT COALESCE({ok}, false) THEN NULL
-                            WHEN {is_string(ts)} THEN epoch_us(TRY_CAST({unquote(ts)} AS TIMESTAMPTZ))
-                            ELSE {numeric_us} END AS ts_us,
+                SELECT {time_us} AS ts_us,
                        {ev} AS event, {us} AS "user", nullif({ac}, '') AS account, nullif({idc}, '') AS id
                 FROM read_json(?, format='newline_delimited', columns={{{spec}}})""",
                 [path],
@@ -279,6 +292,8 @@ class Store:
         ).fetchone()
         if doubtful:
             self.con.execute("DROP TABLE staged")
+            if ts_text and ts_format == "auto":  # perhaps text and number times mixed: read the general way
+                return self.stage_jsonl_fast(path, fields, ts_format, max_line_bytes, earliest_us, latest_us)
             return None
         return rows
 
@@ -404,8 +419,8 @@ class Store:
         else:
             fresh = "prepared"
             fresh_count = prepared["candidates"] - prepared["repeats"]
-        con.execute(f"INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh} WHERE id_hash IS NOT NULL")
         grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
+        con.execute(f"INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh} WHERE id_hash IS NOT NULL")
         if self._user_daily_is_empty():
             # A first load (a backfill) has nothing to merge with: group straight into the table.
             con.execute(f"INSERT INTO user_daily {grouped}")

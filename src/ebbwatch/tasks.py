@@ -19,7 +19,7 @@ from . import store as store_mod
 from .errors import InputError
 from .frames import FileResult, Reject
 from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
-from .ingest.readers import iter_lines, scan_file
+from .ingest.readers import first_value_is_text, iter_lines, scan_file
 from .series import Panel, build_panel
 
 # Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
@@ -64,11 +64,12 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     # Hashing (and measuring the longest line) runs in a thread beside the fast-path parse:
     # both release the GIL.  Staging writes only temporary tables, so a fast-path parse error
     # cannot touch the store.
+    ts_text = rules.ts_format == "rfc3339" or (rules.ts_format == "auto" and first_value_is_text(path, fields.ts))
     with ThreadPoolExecutor(max_workers=1) as pool:
         scanning = pool.submit(scan_file, path)
         try:
             staged = st.stage_jsonl_fast(path, fields, rules.ts_format, rules.max_line_bytes,
-                                         rules.earliest_us, rules.latest_us)
+                                         rules.earliest_us, rules.latest_us, ts_text=ts_text)
         finally:
             digest, longest_line, deepest = scanning.result()
     reason = skip_reason(digest) if skip_reason else None

@@ -124,6 +124,31 @@ def scan_file(path: str) -> tuple[str, int, int]:
     return digest.hexdigest(), longest.result(), longest.deepest
 
 
+def first_value_is_text(path: str, field: str, peek_bytes: int = 1 << 16) -> bool:
+    """Whether the first JSON object in the first ``peek_bytes`` of the (decompressed) file has
+    a string under ``field``; False when none is found there or the file cannot be read (the
+    caller then takes the general route).  The fast path reads a file whose times are strings
+    as text, skipping a JSON value per line."""
+    import json
+
+    try:
+        with (gzip.open if is_gzip(path) else open)(path, "rb") as handle:
+            head = handle.read(peek_bytes)
+    except (EOFError, OSError, zlib.error):
+        return False
+    lines = head.split(b"\n")
+    if len(head) == peek_bytes:
+        lines = lines[:-1]  # the last piece may be cut short
+    for raw in lines:
+        try:
+            value = json.loads(raw)
+        except ValueError:
+            continue
+        if isinstance(value, dict):
+            return isinstance(value.get(field), str)
+    return False
+
+
 def sha256_of(path: str) -> str:
     return scan_file(path)[0]
 
