@@ -103,3 +103,38 @@ def test_version_1_store_migrates_to_2_keeping_its_data(db, monkeypatch):
         assert st.schema_version() == store_mod.SCHEMA_VERSION >= 2
         assert st.con.execute("SELECT account FROM accounts").fetchall() == [("a-1",)]
         assert st.con.execute("SELECT count(*) FROM alert_log").fetchone()[0] == 0
+
+
+def test_event_period_sums_match_the_frame_route(db):
+    """The store's grouped totals for the drivers equal explain.event_period_sums on the rows
+    (several events, a weight of 0 and of 2, masked days, one account asked for twice)."""
+    import numpy as np
+    import pandas as pd
+
+    from ebbwatch.explain import drivers_from_sums, event_period_sums
+
+    rng = np.random.default_rng(3)
+    rows = pd.DataFrame([(a, d, e, int(rng.integers(1, 9))) for a in ("a-1", "a-2", "a-3")
+                         for d in range(20_000, 20_060) for e in ("edit", "view", "noise")
+                         if rng.random() < 0.7] + [("a-2", 20_045, "rare", 3)],
+                        columns=["account", "day", "event", "events"])
+    # "rare" falls inside the days read but outside a-2's periods: no row for it there.
+    weights = {"edit": 1.0, "view": 2.0, "noise": 0.0, "rare": 1.0}
+    with store_mod.open_store(db) as st:
+        st.con.register("rows_in", rows)
+        st.con.execute("""INSERT INTO daily SELECT account, DATE '1970-01-01' + CAST(day AS INTEGER), event, events, NULL
+                          FROM rows_in""")
+        st.con.unregister("rows_in")
+        masked = [20_010, 20_055]
+        window = (20_053, 20_059)
+        periods = [("a-1", 20_020, 20_050), ("a-2", 20_000, 20_030), ("a-1", 20_040, 20_052), ("a-9", 20_000, 20_050)]
+        targets = pd.DataFrame({"place": range(len(periods)), "account": [p[0] for p in periods],
+                                "first": [p[1] for p in periods], "last": [p[2] for p in periods]})
+        from_store = st.event_period_sums(weights, targets, window, masked)
+    keep = lambda first, last: [d for d in range(first, last + 1) if d not in masked]  # noqa: E731
+    baselines = [(a, keep(first, last)) for a, first, last in periods]
+    from_rows = event_period_sums(rows, weights, baselines, keep(*window))
+    from_rows = from_rows[from_rows["event"] != "noise"].reset_index(drop=True)
+    pd.testing.assert_frame_equal(from_store.reset_index(drop=True), from_rows, check_dtype=False)
+    sizes = [len(days) for _, days in baselines]
+    assert drivers_from_sums(from_store, weights, sizes, 6) == drivers_from_sums(from_rows, weights, sizes, 6)

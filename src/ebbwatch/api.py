@@ -549,19 +549,27 @@ BASELINE_DRIVER_DAYS = 56
 def _find_drivers(st, loader, targets, as_of, window_days, max_events=None) -> list[list[dict]]:
     """Drivers for each ``(account, reference_end_day, direction)`` in ``targets``: the window is
     the last ``window_days`` days, the baseline the 8 weeks before the reference history ends,
-    masked days left out of both; all accounts' rows are read in two queries."""
-    from .explain import event_drivers_many, user_drivers
+    masked days left out of both; event totals are summed in the store, and user rows (where
+    the store has them) read in one query."""
+    import pandas as pd
+
+    from .explain import drivers_from_sums, user_drivers
 
     end = (as_of - date(1970, 1, 1)).days
     first_needed = max(min(ref for _, ref, _ in targets) - BASELINE_DRIVER_DAYS, loader.start_day)
     accounts = [account for account, _, _ in targets]
-    events, users = st.accounts_activity(accounts, date(1970, 1, 1) + timedelta(days=first_needed), as_of)
-    users_by = dict(list(users.groupby("account")))
     window = _period_days(end - window_days + 1, end, loader.masked, loader.start_day)
-    baselines = [(account, _period_days(max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day),
-                                        reference_end - 1, loader.masked, loader.start_day))
-                 for account, reference_end, _ in targets]
-    found = [drivers[:max_events] for drivers in event_drivers_many(events, loader.weights, baselines, window)]
+    baseline_first = [max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day) for _, reference_end, _ in targets]
+    baselines = [(account, _period_days(first, reference_end - 1, loader.masked, loader.start_day))
+                 for first, (account, reference_end, _) in zip(baseline_first, targets)]
+    periods = pd.DataFrame({"place": np.arange(len(targets)), "account": accounts, "first": baseline_first,
+                            "last": [reference_end - 1 for _, reference_end, _ in targets]})
+    masked_days = loader.start_day + np.flatnonzero(loader.masked)
+    sums = st.event_period_sums(loader.weights, periods, (end - window_days + 1, end), masked_days)
+    found = [drivers[:max_events] for drivers in
+             drivers_from_sums(sums, loader.weights, [len(days) for _, days in baselines], len(window))]
+    users = st.accounts_user_activity(accounts, date(1970, 1, 1) + timedelta(days=first_needed), as_of)
+    users_by = dict(list(users.groupby("account")))
     for drivers, (account, baseline), (_, _, direction) in zip(found, baselines, targets):
         if account in users_by:
             drivers += user_drivers(users_by[account], loader.weights, baseline, window, direction)

@@ -38,15 +38,22 @@ def event_drivers_many(event_days: pd.DataFrame, weights: dict, baselines, windo
     ``event_days``: rows ``account, day, event, events``; ``baselines``: ``(account,
     baseline_days)`` pairs, one per wanted result (in that order); ``window_days`` is shared.
     """
-    found = [[] for _ in baselines]
+    sums = event_period_sums(event_days, weights, baselines, window_days)
+    return drivers_from_sums(sums, weights, [len(days) for _, days in baselines], len(window_days))
+
+
+def event_period_sums(event_days: pd.DataFrame, weights: dict, baselines, window_days) -> pd.DataFrame:
+    """Index totals per wanted result and event name: rows ``place, event, baseline, observed``
+    (``place`` indexes ``baselines``; see :func:`event_drivers_many` for the arguments).  The
+    scan gets the same table from the store (``Store.event_period_sums``) without the rows."""
+    columns = ["place", "event", "baseline", "observed"]
     wanted = [(i, account, days) for i, (account, days) in enumerate(baselines) if len(days)]
     if event_days.empty or not len(window_days) or not wanted:
-        return found
+        return pd.DataFrame(columns=columns)
     sizes = [len(d) for _, _, d in wanted]
     place = pd.DataFrame({"place": np.repeat([i for i, _, _ in wanted], sizes),
                           "account": np.repeat(np.array([a for _, a, _ in wanted], dtype=object), sizes),
                           "day": np.concatenate([np.asarray(days) for _, _, days in wanted])})
-    n_baseline = pd.Series(sizes, index=[i for i, _, _ in wanted])
     rows = event_days.assign(index=event_days["events"] * _event_weights(event_days["event"], weights))
     # Each wanted result's baseline rows, and its account's window rows.
     baseline = rows.merge(place, on=["account", "day"]).groupby(["place", "event"])["index"].sum()
@@ -54,7 +61,19 @@ def event_drivers_many(event_days: pd.DataFrame, weights: dict, baselines, windo
     accounts = pd.DataFrame({"place": [i for i, _, _ in wanted], "account": [a for _, a, _ in wanted]})
     observed = in_window.merge(accounts, on="account").groupby(["place", "event"])["index"].sum()
     table = pd.concat({"baseline": baseline, "observed": observed}, axis=1).fillna(0.0).reset_index()
-    table["expected"] = table["baseline"] / n_baseline.reindex(table["place"]).to_numpy() * len(window_days)
+    return table[columns]
+
+
+def drivers_from_sums(sums: pd.DataFrame, weights: dict, baseline_sizes, window_size: int) -> list[list[dict]]:
+    """Drivers (see :func:`event_drivers`) from period totals ``place, event, baseline,
+    observed``; ``baseline_sizes[place]`` is the number of baseline days (a place with none
+    gets no drivers), ``window_size`` the window's."""
+    found = [[] for _ in baseline_sizes]
+    sizes = np.asarray(baseline_sizes, dtype=float)
+    table = sums[sizes[sums["place"].to_numpy(int)] > 0] if len(sums) else sums
+    if not len(table) or not window_size:
+        return found
+    table = table.assign(expected=table["baseline"].to_numpy(float) / sizes[table["place"].to_numpy(int)] * window_size)
     table["change"] = table["observed"] - table["expected"]
     total = table.groupby("place")["change"].transform("sum")
     table = table.assign(total=total, size=-table["change"].abs()).sort_values(["place", "size", "event"])

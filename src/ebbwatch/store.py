@@ -844,26 +844,63 @@ class Store:
         return {a: (u, r) for a, u, r in rows}
 
     # -- drivers ---------------------------------------------------------------------------
-    def accounts_activity(self, accounts: list[str], start_day, end_day) -> tuple[pd.DataFrame, pd.DataFrame]:
-        """For several accounts at once: rows ``account, day, event, events`` and ``account,
-        day, user, event, events`` in [start_day, end_day] (datetime.date); ``day`` in the
-        frames is days since 1970-01-01."""
+    def event_period_sums(self, event_weights: dict[str, float], targets: pd.DataFrame, window_days,
+                          excluded_days) -> pd.DataFrame:
+        """Weighted event totals per target and event name over two periods, summed here so that
+        only the totals leave the store (the scan's drivers: 0.6 s to read ~0.7M rows for ~5,000
+        alerts, against one grouped pass).
+
+        ``targets``: ``place, account, first, last`` (baseline days, in days since 1970-01-01);
+        ``window_days``: ``(first, last)`` shared by all; ``excluded_days``: day numbers left
+        out of both.  Returns rows ``place, event, baseline, observed`` (see
+        ``explain.event_period_sums``) for the events with weight above 0.
+        """
+        columns = ["place", "event", "baseline", "observed"]
+        if not len(targets):
+            return pd.DataFrame(columns=columns)
+        weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
+        targets = targets[["place", "account", "first", "last"]].astype({"place": "int64", "first": "int32", "last": "int32"})
+        first_day = int(min(targets["first"].min(), window_days[0]))
+        last_day = int(max(targets["last"].max(), window_days[1]))
+        lo, hi = min(targets["account"]), max(targets["account"])
+        _register(self.con, "event_weights", weights)
+        _register(self.con, "driver_targets", targets)
+        try:
+            return self.con.execute(
+                """WITH rows AS (
+                    SELECT t.place, d.event, CAST(d.day - DATE '1970-01-01' AS INTEGER) AS day_number,
+                           d.events * e.weight AS value, t."first", t."last"
+                    FROM daily d JOIN driver_targets t ON t.account = d.account
+                    JOIN event_weights e ON e.event = d.event
+                    WHERE e.weight > 0 AND d.account BETWEEN ? AND ?
+                      AND d.day BETWEEN DATE '1970-01-01' + CAST(? AS INTEGER) AND DATE '1970-01-01' + CAST(? AS INTEGER))
+                SELECT place, event,
+                       COALESCE(sum(value) FILTER (WHERE day_number BETWEEN "first" AND "last"), 0) AS baseline,
+                       COALESCE(sum(value) FILTER (WHERE day_number BETWEEN ? AND ?), 0) AS observed
+                FROM rows WHERE NOT list_contains(CAST(? AS INTEGER[]), day_number)
+                GROUP BY ALL
+                HAVING count(*) FILTER (WHERE day_number BETWEEN "first" AND "last" OR day_number BETWEEN ? AND ?) > 0
+                ORDER BY place, event""",
+                [lo, hi, first_day, last_day, int(window_days[0]), int(window_days[1]),
+                 [int(d) for d in excluded_days], int(window_days[0]), int(window_days[1])],
+            ).df()[columns]
+        finally:
+            self.con.unregister("event_weights")
+            self.con.unregister("driver_targets")
+
+    def accounts_user_activity(self, accounts: list[str], start_day, end_day) -> pd.DataFrame:
+        """Rows ``account, day, user, event, events`` of ``accounts`` in [start_day, end_day]
+        (datetime.date); ``day`` in the frame is days since 1970-01-01."""
         wanted = pd.DataFrame({"account": list(dict.fromkeys(accounts))})
+        lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
         _register(self.con, "driver_accounts", wanted)
         try:
-            lo, hi = (min(accounts), max(accounts)) if accounts else ("", "")
-            day = "CAST({}.day - DATE '1970-01-01' AS INTEGER) AS day"
-            events = self.con.execute(
-                f"""SELECT d.account, {day.format("d")}, d.event, d.events FROM daily d
-                SEMI JOIN driver_accounts w ON w.account = d.account
-                WHERE d.day BETWEEN ? AND ? AND d.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).df()
-            users = self.con.execute(
-                f"""SELECT u.account, {day.format("u")}, u."user", u.event, u.events FROM user_daily u
-                SEMI JOIN driver_accounts w ON w.account = u.account
+            return self.con.execute(
+                """SELECT u.account, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day, u."user", u.event, u.events
+                FROM user_daily u SEMI JOIN driver_accounts w ON w.account = u.account
                 WHERE u.day BETWEEN ? AND ? AND u.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).df()
         finally:
             self.con.unregister("driver_accounts")
-        return events, users
 
     def has_account(self, account: str) -> bool:
         return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily WHERE account = ? LIMIT 1)", [account]).fetchall()[0][0] > 0
