@@ -137,3 +137,29 @@ def test_false_alerts_do_not_grow_with_the_fleet():
     _, small = quiet_fleet(n=100, seed=8)
     _, large = quiet_fleet(n=400, seed=8)
     assert len(judge(large)[1]) <= max(2, len(judge(small)[1]) * 2)
+
+
+def test_rolling_window_matches_a_direct_sum_and_its_weekly_shortcut():
+    """Levels and totals of every window against a plain per-window sum (the definition in
+    ``detect.tail.rolling_window``), with weekday factors repeated every 7 days; ``period=7``
+    must give the same numbers."""
+    import numpy as np
+
+    from ebbwatch.detect.tail import rolling_window
+
+    rng = np.random.default_rng(8)
+    values = rng.poisson(4.0, (5, 40)).astype(float)
+    values[rng.random(values.shape) < 0.2] = np.nan
+    factors = rng.uniform(0.5, 1.5, (5, 7))[:, np.arange(40) % 7]
+    for window in (3, 7, 9):
+        levels, totals = rolling_window(values, window, factors)
+        fast_levels, fast_totals = rolling_window(values, window, factors, period=7)
+        np.testing.assert_allclose(fast_levels, levels, rtol=1e-12)
+        np.testing.assert_allclose(fast_totals, totals, rtol=1e-12)
+        for a in range(5):
+            for j in range(40 - window + 1):
+                v, f = values[a, j:j + window], factors[a, j:j + window]
+                ok = np.isfinite(v)
+                expected = v[ok].sum() / f[ok].sum() if ok.sum() >= (window + 1) // 2 else np.nan
+                np.testing.assert_allclose(levels[a, j], expected, rtol=1e-12)
+                np.testing.assert_allclose(totals[a, j], expected * f.sum(), rtol=1e-12)

@@ -95,7 +95,7 @@ def _level_tails(values, factors, first_seen, reference_end, window, params):
     Returns ``(p_low, p_high, percentile, baseline_level, model, n_reference, low_volume,
     current, bic)``, each (A,) but ``bic`` (A, 2): one peak, two peaks (inf where not fitted).
     """
-    levels, totals = rolling_window(values, window, factors)
+    levels, totals = rolling_window(values, window, factors, period=7)
     n_windows = levels.shape[1]
     in_reference = reference_mask(n_windows, window, first_seen, reference_end) & np.isfinite(levels)
     n_reference = in_reference.sum(axis=1)
@@ -180,7 +180,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     p_trend = np.ones(n_accounts)
     trend_change = np.full(n_accounts, np.nan)
     if n_days >= 7 * weeks:
-        weekly = rolling_window(values[:, -7 * weeks:], 7, factors[:, -7 * weeks:])[0][:, ::7] / scale[:, None]
+        weekly = rolling_window(values[:, -7 * weeks:], 7, factors[:, -7 * weeks:], period=7)[0][:, ::7] / scale[:, None]
         complete = np.isfinite(weekly).all(axis=1)
         if complete.any():
             down, _, rel = trend_test(weekly[complete])

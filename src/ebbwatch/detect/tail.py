@@ -8,12 +8,13 @@ import numpy as np
 def _rolling_sum(matrix, window):
     """Sums of every ``window`` consecutive columns, (A, D − window + 1), from one cumulative sum."""
     csum = np.cumsum(matrix, axis=1)
-    out = csum[:, window - 1:].copy()
-    out[:, 1:] -= csum[:, :-window]
+    out = np.empty((csum.shape[0], csum.shape[1] - window + 1), csum.dtype)
+    out[:, 0] = csum[:, window - 1]
+    np.subtract(csum[:, window:], csum[:, :-window], out=out[:, 1:])
     return out
 
 
-def rolling_window(values, window: int, expected=None, min_valid: int | None = None):
+def rolling_window(values, window: int, expected=None, min_valid: int | None = None, period: int | None = None):
     """Levels and totals of every ``window``-day window, (A, D − window + 1).
 
     Column ``j`` covers days ``j … j + window − 1``.  The level is the ratio estimator
@@ -21,7 +22,9 @@ def rolling_window(values, window: int, expected=None, min_valid: int | None = N
     day's weekday factor (default 1): a quiet weekend day weighs as little as it usually counts,
     and a masked day drops out of both sums.  The total is the level times the window's usual
     volume (``Σ expected`` over all its days).  A window with fewer than ``min_valid`` valid days
-    (default half the window, rounded up) is NaN.  Returns ``(levels, totals)``.
+    (default half the window, rounded up) is NaN.  ``period``: ``expected`` repeats every
+    ``period`` columns (weekday factors: 7), so the windows' usual volume is summed over one
+    period's windows and repeated.  Returns ``(levels, totals)``.
     """
     values = np.asarray(values, float)
     expected = np.ones_like(values) if expected is None else np.broadcast_to(expected, values.shape)
@@ -29,7 +32,12 @@ def rolling_window(values, window: int, expected=None, min_valid: int | None = N
     valid = np.isfinite(values)
     sums = _rolling_sum(np.where(valid, values, 0.0), window)
     weights = _rolling_sum(np.where(valid, expected, 0.0), window)
-    full_weights = _rolling_sum(np.asarray(expected, float), window)
+    n_windows = values.shape[1] - window + 1
+    if period and n_windows > period:
+        one_period = _rolling_sum(np.asarray(expected[:, :period + window - 1], float), window)
+        full_weights = np.tile(one_period, (1, -(-n_windows // period)))[:, :n_windows]
+    else:
+        full_weights = _rolling_sum(np.asarray(expected, float), window)
     counts = _rolling_sum(valid.view(np.int8), window)  # cumsum accumulates int8 in the platform int
     with np.errstate(invalid="ignore", divide="ignore"):
         levels = np.where((counts >= min_valid) & (weights > 0), sums / weights, np.nan)
