@@ -29,10 +29,12 @@ def silence(values, reference_end, weekdays, first_seen):
     in_reference = (idx[None, :] < np.asarray(reference_end)[:, None]) & (idx[None, :] >= np.asarray(first_seen)[:, None]) & valid
     quiet = in_reference & (values == 0)
     weekdays = np.asarray(weekdays)
-    # Days and quiet days per weekday, (A, 7), as products with the columns' weekday indicator.
-    on_day = (weekdays[:, None] == np.arange(7)[None, :]).astype(float)
-    n = in_reference.astype(float) @ on_day
-    z = quiet.astype(float) @ on_day
+    # Days and quiet days per weekday, (A, 7).  Counted per weekday's columns rather than as a
+    # product with a weekday indicator: a float matrix product starts OpenBLAS's threads, which
+    # then spin beside the scan's own (about 1.5 s of CPU on the 100k-account scan benchmark).
+    columns = [weekdays == w for w in range(7)]
+    n = np.stack([in_reference[:, c].sum(axis=1) for c in columns], axis=1)
+    z = np.stack([quiet[:, c].sum(axis=1) for c in columns], axis=1)
     log_q = np.log((z + 0.5) / (n + 1.0))
     after_last = idx[None, :] > last_active[:, None]
     silent_cols = after_last & valid

@@ -68,7 +68,8 @@ def _single_regressor_sse(y, x):
     yc = y - y.mean(axis=1, keepdims=True)
     xc = x - x.mean(axis=1, keepdims=True)
     sxx = (xc**2).sum(axis=1)  # (K,)
-    sxy = yc @ xc.T  # (A, K)
+    # einsum's own loop, not a BLAS product: OpenBLAS's threads would spin beside the scan's.
+    sxy = np.einsum("al,kl->ak", yc, xc)  # (A, K)
     syy = (yc**2).sum(axis=1, keepdims=True)
     with np.errstate(all="ignore"):
         return syy - np.where(sxx > 0, sxy**2 / np.where(sxx > 0, sxx, 1.0), 0.0)
