@@ -64,7 +64,7 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     # Hashing (and measuring the longest line) runs in a thread beside the fast-path parse:
     # both release the GIL.  Staging writes only temporary tables, so a fast-path parse error
     # cannot touch the store.
-    ts_text = rules.ts_format == "rfc3339" or (rules.ts_format == "auto" and first_value_is_text(path, fields.ts))
+    ts_text = rules.ts_format == "auto" and first_value_is_text(path, fields.ts)
     with ThreadPoolExecutor(max_workers=1) as pool:
         scanning = pool.submit(scan_file, path)
         try:
