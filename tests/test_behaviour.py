@@ -7,7 +7,7 @@ import numpy as np
 from ebbwatch.alerts import select_alerts
 from ebbwatch.datasets import make_fleet
 from ebbwatch.detect import SCORE_COLUMNS, ScanParams, score_panel
-from ebbwatch.series import build_panel, fleet_factor
+from ebbwatch.series import build_panel, fleet_factor, with_fleet
 
 AS_OF = date(2026, 3, 31)
 
@@ -163,3 +163,22 @@ def test_rolling_window_matches_a_direct_sum_and_its_weekly_shortcut():
                 expected = v[ok].sum() / f[ok].sum() if ok.sum() >= (window + 1) // 2 else np.nan
                 np.testing.assert_allclose(levels[a, j], expected, rtol=1e-12)
                 np.testing.assert_allclose(totals[a, j], expected * f.sum(), rtol=1e-12)
+
+
+def test_fleet_applied_after_reading_equals_fleet_applied_while_building():
+    """A block read before the fleet fit (``with_fleet`` afterwards) is the block built with it."""
+    fleet = make_fleet(40, 120, as_of=AS_OF, seed=3)
+    totals = fleet.counts.sum(axis=2).astype(float)
+    end = (AS_OF - date(1970, 1, 1)).days
+    start = end - totals.shape[1] + 1
+    a, d = np.nonzero(totals)
+    factor, masked = fleet_factor(totals)
+    masked = masked.copy()
+    masked[[10, 50]] = True  # make sure some days are masked
+    args = (a, start + d, totals[a, d], totals[a, d], totals[a, d])
+    kw = dict(accounts=[f"a{i}" for i in range(totals.shape[0])], start_day=start, end_day=end)
+    direct = build_panel(*args, **kw, fleet_factor=factor, masked=masked)
+    later = with_fleet(build_panel(*args, **kw), factor, masked)
+    for field in ("values", "counts", "first_seen", "masked", "fleet_factor"):
+        np.testing.assert_array_equal(getattr(direct, field), getattr(later, field))
+    assert np.isnan(later.values[:, [10, 50]]).all()

@@ -58,6 +58,27 @@ def test_chunk_size_never_changes_a_score(fleet_store):
     pd.testing.assert_frame_equal(whole.drop(columns="drivers"), pieces.drop(columns="drivers"))
 
 
+def test_fleet_fit_beside_the_first_reads_scores_as_a_fit_before_them(fleet_store):
+    """The scan reads its first chunks while the fleet fit runs on a cursor of its own; every
+    score must equal the plain order: fit the fleet, then read and score."""
+    from datetime import date
+
+    from ebbwatch import api, store
+    from ebbwatch.detect import score_panel
+
+    fleet, db = fleet_store
+    scanned = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=50, threads=2)
+    cfg = api._config(None)
+    with store.open_store(db, read_only=True) as st:
+        accounts = st.account_ids()
+        loader = api.PanelLoader(st, cfg, date.fromisoformat(str(fleet.as_of)), cfg.scan.history_days)
+        loader.fit_fleet(accounts)
+        plain = score_panel(loader(accounts), api._fleet_params(cfg, loader))
+    pd.testing.assert_frame_equal(scanned.attrs["scores"].drop(columns="weekday_factors"),
+                                  plain.drop(columns="weekday_factors"))
+    assert scanned.attrs["masked"].any()  # the gap day is masked on both routes
+
+
 def test_default_as_of_is_the_last_complete_day(fleet_store):
     fleet, db = fleet_store
     alerts = ebbwatch.scan(db=db, max_alerts=5)

@@ -4,6 +4,7 @@ config into plain arguments; the CLI is a thin shell over these functions."""
 from __future__ import annotations
 
 import json
+import threading
 import time
 from contextlib import contextmanager
 from dataclasses import replace
@@ -283,6 +284,14 @@ def _fleet_params(cfg: Config, loader):
     return replace(_scan_params(cfg), pooled_count_dispersion=loader.count_dispersion)
 
 
+def _score_chunk(panel, *, cfg: Config, loader):
+    """``score_panel`` on a block from ``loader.read``, once the fleet-wide quantities are in."""
+    from .detect import score_panel
+
+    panel = loader.with_fleet(panel)
+    return score_panel(panel, _fleet_params(cfg, loader))
+
+
 def default_as_of(last_day: date | None, today: date | None = None) -> date:
     """The last complete day: the store's last day, unless that is today (still filling)."""
     today = today or datetime.now(timezone.utc).date()
@@ -318,29 +327,62 @@ class PanelLoader:
         self.fleet_factor = None
         self.masked = None
         self.count_dispersion = None
+        self._fleet_pending = None
+        self._fleet_lock = threading.Lock()
 
-    def _rows(self, accounts, *, users: bool = False, ranges=None):
+    def _rows(self, accounts, *, users: bool = False, ranges=None, st=None):
         """``(account_index, day, value, events, users)``; ``events``/``users`` are None and
         account-days may repeat (one row per event name) unless ``users`` is asked for.
-        ``ranges``: id ranges holding the accounts (``Store.index_rows``)."""
+        ``ranges``: id ranges holding the accounts (``Store.index_rows``); ``st``: the store
+        handle to read through (default the loader's own)."""
+        st = st or self.st
         start, end = day_to_date(self.start_day), day_to_date(self.end_day)
         if users:
-            return self.st.weighted_daily(self.weights, list(accounts), start, end)
-        return (*self.st.index_rows(self.weights, list(accounts), start, end, ranges), None, None)
+            return st.weighted_daily(self.weights, list(accounts), start, end)
+        return (*st.index_rows(self.weights, list(accounts), start, end, ranges), None, None)
 
-    def sample_counts(self, accounts) -> np.ndarray:
+    def sample_counts(self, accounts, st=None) -> np.ndarray:
         """Raw weighted totals (S, D) of the fleet sample (:func:`fleet_sample`) of ``accounts``."""
         from .series import dense_matrix
 
         sample, ranges = fleet_sample(accounts)
-        idx, day, value, _, _ = self._rows(sample, ranges=ranges)
+        idx, day, value, _, _ = self._rows(sample, ranges=ranges, st=st)
         return dense_matrix(idx, day, value, len(sample), self.start_day, self.end_day - self.start_day + 1)
 
-    def fit_fleet(self, accounts):
+    def fit_fleet_in_background(self, accounts):
+        """Start :meth:`fit_fleet` in a thread of its own, on a cursor of the store, so the first
+        chunks are read meanwhile; building a chunk (``__call__``) waits for it.  Call
+        :meth:`wait_for_fleet` when done, whatever happened (it closes the thread and cursor)."""
+        from concurrent.futures import ThreadPoolExecutor
+
+        cursor = self.st.cursor()
+        pool = ThreadPoolExecutor(1, thread_name_prefix="ebbwatch-fleet")
+        self._fleet_pending = (pool.submit(self.fit_fleet, accounts, cursor), pool, cursor)
+        return self
+
+    def wait_for_fleet(self):
+        """Wait for a :meth:`fit_fleet_in_background` (re-raising its error); no-op otherwise."""
+        pending = self._fleet_pending
+        if pending is None:
+            return self
+        future, pool, cursor = pending
+        try:
+            future.result()  # every caller waits (chunks are scored in several threads)
+        finally:
+            with self._fleet_lock:
+                if self._fleet_pending is pending:
+                    self._fleet_pending = None
+                    pool.shutdown()
+                    cursor.close()
+        return self
+
+    def fit_fleet(self, accounts, st=None):
+        """Measure the fleet-wide quantities (factor, gap mask, count dispersion) on the fleet
+        sample of ``accounts``, read through ``st`` (default the loader's store)."""
         from .baseline.counts import pooled_dispersion
         from .series import fleet_factor, missing_before_first_activity
 
-        counts = self.sample_counts(accounts)
+        counts = self.sample_counts(accounts, st)
         self.fleet_factor, self.masked = fleet_factor(counts)
         # The same fleet-wide count dispersion for every chunk (see backtest.replay_fleet_factors).
         started = missing_before_first_activity(counts)
@@ -348,15 +390,27 @@ class PanelLoader:
         self.count_dispersion = pooled_dispersion(started, window=self.cfg.scan.window_days)
         return self
 
-    def __call__(self, accounts):
+    def read(self, accounts):
+        """The block's :class:`series.Panel` without the fleet-wide factor and gap mask, which
+        :meth:`with_fleet` adds (so a block can be read while the fleet fit runs)."""
         from .series import build_panel
 
         idx, day, value, events, users = self._rows(accounts, users=self.cfg.index.normalise == "active_users")
         seats = [self.seats.get(a) for a in accounts]
         return build_panel(idx, day, value, events, users, accounts=accounts, start_day=self.start_day,
                            end_day=self.end_day, normalise=self.cfg.index.normalise,
-                           seats=np.array([np.nan if s is None else s for s in seats], float),
-                           fleet_factor=self.fleet_factor, masked=self.masked)
+                           seats=np.array([np.nan if s is None else s for s in seats], float))
+
+    def with_fleet(self, panel):
+        """A panel from :meth:`read` with the fleet factor and gap mask applied (waiting for a
+        fit in the background first)."""
+        from .series import with_fleet
+
+        self.wait_for_fleet()
+        return with_fleet(panel, self.fleet_factor, self.masked)
+
+    def __call__(self, accounts):
+        return self.with_fleet(self.read(accounts))
 
 
 def _blocks(accounts: list[str], size: int) -> list[tuple[int, list[str]]]:
@@ -480,13 +534,20 @@ def scan(
         accounts = st.account_ids()
         if not accounts:
             raise InputError("the store has no accounts yet; ingest events or --daily first")
-        loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days).fit_fleet(accounts)
-        params = _fleet_params(cfg, loader)
+        loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days)
         if engine == "dask":
-            scores = _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress, shared_dir)
+            loader.fit_fleet(accounts)
+            scores = _score_on_dask(st, loader, accounts, _fleet_params(cfg, loader), chunk_size, scheduler,
+                                    progress, shared_dir)
         else:
-            parts = run_local(accounts, loader, functools.partial(score_panel, params=params), chunk_size=chunk_size,
-                              progress=progress, threads=threads or default_threads())
+            # The fleet fit (about 1 s on 100k accounts) overlaps the reading of the first
+            # chunks; each chunk's scoring waits for it (_score_chunk).
+            loader.fit_fleet_in_background(accounts)
+            try:
+                parts = run_local(accounts, loader.read, functools.partial(_score_chunk, cfg=cfg, loader=loader),
+                                  chunk_size=chunk_size, progress=progress, threads=threads or default_threads())
+            finally:
+                loader.wait_for_fleet()
             scores = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
         alerts = select_alerts(
             scores, as_of=as_of, names=loader.names, window_days=cfg.scan.window_days, fdr=cfg.scan.fdr,

@@ -7,7 +7,7 @@ integers since 1970-01-01 (1970-01-01 was a Thursday, so weekday = (day + 3) % 7
 from __future__ import annotations
 
 import fnmatch
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -168,6 +168,17 @@ def build_panel(
     counts[hide] = np.nan
     return Panel(list(accounts), start_day, values, counts, first_seen, np.asarray(masked, bool),
                  np.asarray(fleet_factor, float))
+
+
+def with_fleet(panel: Panel, fleet_factor, masked) -> Panel:
+    """``panel`` (built without them) with the fleet factor and gap mask (D,) applied: masked
+    days become NaN in ``values`` and ``counts`` (in place), as :func:`build_panel` would
+    have made them.  Lets a block be read before the fleet-wide quantities are known."""
+    masked = np.asarray(masked, bool)
+    if masked.any():
+        panel.values[:, masked] = np.nan
+        panel.counts[:, masked] = np.nan
+    return replace(panel, masked=masked, fleet_factor=np.asarray(fleet_factor, float))
 
 
 def _same_weekday_reference(matrix: np.ndarray, weeks: int = FLEET_LOOKBACK_WEEKS) -> np.ndarray:

@@ -117,6 +117,14 @@ class Store:
     def __exit__(self, *exc):
         self.close()
 
+    def cursor(self) -> "Store":
+        """Another handle on the same open database, for one other thread: a DuckDB connection
+        must not be used by two threads at once, its cursors may (each is a connection of its own
+        to the same database).  Close it before the store."""
+        con = self.con.cursor()
+        con.execute("SET TimeZone = 'UTC'")
+        return Store(con, self.path)
+
     @contextmanager
     def transaction(self):
         self.con.execute("BEGIN TRANSACTION")
