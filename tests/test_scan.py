@@ -1,6 +1,7 @@
 """The scan end to end: daily input → store → scan, through the API and the CLI."""
 
 import json
+import re
 
 import pandas as pd
 import pytest
@@ -96,6 +97,17 @@ def test_cli_jsonl_has_the_documented_keys_and_one_line_messages(fleet_store):
         assert all(k in record for k in REQUIRED) and record["schema"] == 1
         assert "\n" not in record["message"] and record["message"].endswith(".")
     assert result.stderr == ""  # no terminal: no progress, and the summary line is for tables only
+
+
+def test_messages_with_drivers_never_show_a_missing_value(fleet_store):
+    """An alert without an onset (a surge, say) or a change says nothing of it: pandas keeps a
+    missing value in a text column as NaN, which once reached the chat message as 'since nan'."""
+    fleet, db = fleet_store
+    alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
+    assert alerts["onset"].isna().any() and alerts["onset"].notna().any()
+    for message, onset in zip(alerts["message"], alerts["onset"]):
+        assert not re.search(r"\bnan\b", message, re.IGNORECASE), message
+        assert ("since" in message) == isinstance(onset, str)
 
 
 def test_cli_table_kind_filter_and_fail_on_alert(fleet_store):

@@ -647,8 +647,13 @@ def _add_drivers(st, loader, scores, alerts, as_of, window_days):
     targets = [(a, int(reference_end[a]), d) for a, d in zip(alerts["account"], alerts["direction"])]
     driver_lists = _find_drivers(st, loader, targets, as_of, window_days, max_events=5)
     alerts["drivers"] = driver_lists
-    alerts["message"] = [alert_message(alert, window_days, drivers_phrase(found, plain_text))
-                         for alert, found in zip(alerts.to_dict(orient="records"), driver_lists)]
+    # Records from column lists: DataFrame.to_dict("records") boxes every cell (~0.15 s for
+    # ~5,000 alerts).  Missing values become None, as alert_message expects.
+    fields = ("account", "name", "kind", "direction", "change_pct", "onset", "silent_days",
+              "trend_change_pct", "percentile", "severity")
+    columns = [[None if v is None or v != v else v for v in alerts[name].tolist()] for name in fields]
+    alerts["message"] = [alert_message(dict(zip(fields, values)), window_days, drivers_phrase(found, plain_text))
+                         for values, found in zip(zip(*columns), driver_lists)]
 
 
 # -- explain, snooze, alert history -----------------------------------------------------------
