@@ -52,10 +52,14 @@ class WeekdayProfile(Estimator):
             with np.errstate(invalid="ignore", divide="ignore"):
                 week_mean = np.where(valid, weeks, 0.0).sum(axis=2) / valid_days
             usable = (valid_days >= self.min_days_per_week) & (week_mean > 0)
+            # Each day's share of its week, laid out weekday-major (A, 7, W) as it is computed,
+            # so the medians over weeks run on contiguous rows without another copy.
+            share = np.empty((n_accounts, 7, n_weeks))
             with np.errstate(invalid="ignore", divide="ignore"):
-                share = np.where(usable[:, :, None], weeks / week_mean[:, :, None], np.nan)
-            by_day = np.moveaxis(share, 1, 2).reshape(n_accounts * 7, n_weeks)
-            raw = fast_nanmedian_rows(by_day).reshape(n_accounts, 7)  # by column position
+                np.divide(weeks.transpose(0, 2, 1), week_mean[:, None, :], out=share)
+            share[np.broadcast_to(~usable[:, None, :], share.shape)] = np.nan
+            by_day = share.reshape(n_accounts * 7, n_weeks)
+            raw = fast_nanmedian_rows(by_day, overwrite_input=True).reshape(n_accounts, 7)  # by column position
             weeks_used = usable.sum(axis=1)
             raw = np.where(np.isfinite(raw), raw, 1.0)
             mean = raw.mean(axis=1, keepdims=True)
