@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from ..series import fast_nanmedian_rows, quiet_nanmean
+from ..series import fast_nanmedian_rows
 from ._base import Estimator, check_matrix
 from .mixture import bic, fit_normal, fit_two_gaussians
 
@@ -61,12 +61,15 @@ class LevelDistribution(Estimator):
         if sample.shape[1]:
             # Overlapping windows: every ceil(window/2)-th one gives the median as well.
             median = np.nan_to_num(fast_nanmedian_rows(sample[:, :: max(1, (self.window + 1) // 2)]))
-            positive_mean = np.nan_to_num(quiet_nanmean(np.where(sample > 0, sample, np.nan), axis=1))
+            positive = sample > 0  # NaN is not
+            with np.errstate(invalid="ignore", divide="ignore"):
+                positive_mean = np.nan_to_num(np.where(positive, sample, 0.0).sum(axis=1) / positive.sum(axis=1))
         else:
             median = positive_mean = np.zeros(n_accounts)
         scale = np.where(median > 0, median, positive_mean)
         self.offset_ = np.maximum(self.offset_share * scale, 1e-9)
-        logs = np.log(sample + self.offset_[:, None])
+        logs = np.add(sample, self.offset_[:, None])
+        np.log(logs, out=logs)
         self.n_ = np.isfinite(sample).sum(axis=1)
         self.sample_ = sample  # kept (not copied) for the empirical tail; NaN = not in it
         self.median_ = np.where(self.n_ > 0, median, np.nan)

@@ -21,7 +21,12 @@ def fit_normal(x, var_floor: float = 1e-4):
     values, valid, n = _masked(np.asarray(x, float))
     n_safe = np.maximum(n, 1)
     mean = values.sum(axis=1) / n_safe
-    squares = np.where(valid, (values - mean[:, None]) ** 2, 0.0).sum(axis=1)
+    # Squared deviations in the scratch copy itself (the same numbers as
+    # ``np.where(valid, (values - mean) ** 2, 0)``, without two more (A, N) temporaries).
+    deviations = np.subtract(values, mean[:, None], out=values)
+    np.square(deviations, out=deviations)
+    deviations[~valid] = 0.0
+    squares = deviations.sum(axis=1)
     var = np.maximum(squares / n_safe, var_floor)
     # Σ log N(x; mean, var) over the valid values, in closed form from the sum of squares.
     loglik = -0.5 * (n * (LOG_2PI + np.log(var)) + squares / var)

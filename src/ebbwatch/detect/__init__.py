@@ -143,11 +143,14 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     z = values / factors
     scale = quiet_nanmean(z[:, :hist_end], axis=1)
     scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)
-    u = np.log(z / scale[:, None] + params.log_offset)
+    u = np.divide(z, scale[:, None])  # log(z / scale + offset), in one array
+    u += params.log_offset
+    np.log(u, out=u)
 
     # Silence is judged against the history up to the last activity, not against itself.
     last_active = last_active_column(values)
-    silent_days, p_silence, last_active = silence(values, np.minimum(hist_end, last_active + 1), weekdays, first_seen)
+    silent_days, p_silence, last_active = silence(values, np.minimum(hist_end, last_active + 1), weekdays, first_seen,
+                                                  last_active=last_active)
     dormant = silent_days >= params.dormant_days
     p_stop = np.where(silent_days >= 2, p_silence, 1.0)
 

@@ -12,20 +12,21 @@ def last_active_column(values) -> np.ndarray:
     return np.where(active.any(axis=1), n_days - 1 - active[:, ::-1].argmax(axis=1), -1)
 
 
-def silence(values, reference_end, weekdays, first_seen):
+def silence(values, reference_end, weekdays, first_seen, last_active=None):
     """Days of silence and their probability under the account's own quiet days.
 
     ``values`` (A, D), NaN = masked/missing (masked days neither break nor extend a silence).
     For each weekday, q = (quiet days + ½) / (days + 1) over the reference history
     (columns before ``reference_end``); the chance of the current silence is the product of q over
     its days, as if days were independent.  Returns ``(silent_days (A,), p_silence (A,),
-    last_active (A,) column or -1)``.
+    last_active (A,) column or -1)``; ``last_active`` may be given when already known
+    (:func:`last_active_column`).
     """
     values = np.asarray(values, float)
     n_accounts, n_days = values.shape
     valid = np.isfinite(values)
     idx = np.arange(n_days)
-    last_active = last_active_column(values)
+    last_active = last_active_column(values) if last_active is None else np.asarray(last_active)
     in_reference = (idx[None, :] < np.asarray(reference_end)[:, None]) & (idx[None, :] >= np.asarray(first_seen)[:, None]) & valid
     quiet = in_reference & (values == 0)
     weekdays = np.asarray(weekdays)
