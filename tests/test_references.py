@@ -123,19 +123,31 @@ def test_changepoints_on_ruptures_pw_constant(seed):
     assert hausdorff(truth, found) <= 5
 
 
-def test_changepoint_search_matches_ruptures_public_api():
+@pytest.mark.parametrize("route", ["ctypes", "cython"])
+def test_changepoint_search_matches_ruptures_public_api(route, monkeypatch):
     """Reference: ruptures' public ``KernelCPD(kernel="linear").fit(x).predict(pen=...)`` on
-    noisy steps, ramps and flat rows, which the search's direct call of its C core must match."""
+    noisy steps, ramps, flat rows, sparse counts and several minimum sizes, which both direct
+    routes to its C core (through ctypes, without the GIL, and through its Cython wrapper) must
+    match exactly."""
+    from ebbwatch.detect import changepoint
+
+    if route == "ctypes":
+        assert changepoint._ctypes_pelt_l2() is not None  # ruptures 1.1 exports the C function
+    else:
+        monkeypatch.setattr(changepoint, "_ctypes_pelt_l2", lambda: None)
+    monkeypatch.setattr(changepoint, "_SEARCH_ROWS", None)
     rng = np.random.default_rng(11)
     rows = [rpt.pw_constant(182, 1, k, noise_std=s, seed=seed)[0][:, 0]
             for seed, (k, s) in enumerate([(0, 1.0), (1, 0.5), (2, 2.0), (3, 1.0), (1, 0.1)])]
     rows += [np.linspace(0, 3, 182) + rng.normal(0, 0.3, 182), np.zeros(182), rng.normal(0, 1, 182)]
+    rows += [np.log(rng.poisson(lam, 182) + 0.1) for lam in (0.05, 0.3, 2.0, 20.0)]  # sparse to busy
     signal = np.array(rows)
-    search = ChangepointSearch(penalty_factor=3.0, min_size=2).fit(signal)
-    for row, sigma, found in zip(signal, search.sigma_, search.breakpoints_):
-        expected = rpt.KernelCPD(kernel="linear", min_size=2, jump=1).fit(row.reshape(-1, 1)).predict(
-            pen=3.0 * sigma**2 * np.log(182))
-        assert found == expected
+    for min_size in (1, 2, 5):
+        search = ChangepointSearch(penalty_factor=3.0, min_size=min_size).fit(signal)
+        for row, sigma, found in zip(signal, search.sigma_, search.breakpoints_):
+            expected = rpt.KernelCPD(kernel="linear", min_size=min_size, jump=1).fit(row.reshape(-1, 1)).predict(
+                pen=3.0 * sigma**2 * np.log(182))
+            assert found == expected
 
 
 def test_nile_change_after_1898():

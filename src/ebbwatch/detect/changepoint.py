@@ -3,6 +3,8 @@ on the accounts the screen picks."""
 
 from __future__ import annotations
 
+import ctypes
+
 import numpy as np
 
 from ..baseline._base import Estimator, check_matrix
@@ -38,33 +40,111 @@ def fill_gaps(u) -> np.ndarray:
     return np.where(np.isfinite(filled), filled, 0.0)
 
 
-def _pelt_l2_search():
-    """``search(signal (n, 1) float64 C-contiguous, penalty, min_size) -> breakpoints``.
+def _breakpoints_from_path(path, n: int) -> list[int]:
+    """Walk PELT's back-pointer ``path`` (n + 1 entries) from the end into segment ends."""
+    breakpoints, end = [], n
+    while end > 0:
+        breakpoints.append(end)
+        end = path[end]
+    return breakpoints[::-1]
+
+
+class _KernelGeneric(ctypes.Structure):
+    _fields_ = [("name", ctypes.c_char_p)]
+
+
+class _KernelLinear(ctypes.Structure):
+    _fields_ = [("base", ctypes.POINTER(_KernelGeneric))]
+
+
+def _ctypes_pelt_l2():
+    """ruptures' C function ``ekcpd_pelt_compute`` with the linear kernel, called through
+    ctypes, or None where it cannot be had.
+
+    ruptures' ``KernelCPD(kernel="linear")`` reaches the same C code through a Cython wrapper
+    that holds the GIL for the whole search: with two chunks scored in threads, one thread's
+    searches (about a sixth of a chunk's time) stopped the other at every numpy call.  ctypes
+    releases the GIL while the C code runs.  The function's signature is ruptures 1.1's
+    (``ekcpd_pelt_computation.h``); other versions use the Cython core.
+    """
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        from ruptures.detection._detection import ekcpd
+
+        if not version("ruptures").startswith("1.1."):
+            return None
+    except (ImportError, PackageNotFoundError):
+        return None
+    try:
+        compute = ctypes.CDLL(ekcpd.__file__).ekcpd_pelt_compute
+    except (OSError, AttributeError):
+        return None
+    compute.argtypes = [ctypes.c_void_p, ctypes.c_int, ctypes.c_int, ctypes.c_double, ctypes.c_int,
+                        ctypes.c_void_p, ctypes.c_void_p]
+    compute.restype = None
+    base = _KernelGeneric(b"linear")
+    kernel = _KernelLinear(ctypes.pointer(base))
+    kernel_address = ctypes.addressof(kernel)
+
+    def search_rows(signal, penalties, min_size):
+        """Breakpoints of each row of ``signal`` (A, n) float64 C-contiguous."""
+        n = signal.shape[1]
+        path = np.zeros(n + 1, dtype=np.intc)
+        path_address = path.ctypes.data
+        row_bytes = signal.strides[0]
+        first = signal.ctypes.data
+        found = []
+        for i, penalty in enumerate(penalties.tolist()):
+            compute(first + i * row_bytes, n, 1, penalty, min_size, kernel_address, path_address)
+            found.append(_breakpoints_from_path(path.tolist(), n))
+        return found
+
+    search_rows.keep_alive = (base, kernel)  # the C code reads them through raw pointers
+    return search_rows
+
+
+def _pelt_l2_rows():
+    """``search_rows(signal (A, n) float64 C-contiguous, penalties (A,), min_size) -> breakpoints``.
 
     ruptures' ``KernelCPD(kernel="linear").fit(x).predict(pen=...)`` builds a cost object, copies
-    and checks the signal, then calls its C core ``ekcpd_pelt_L2`` and walks the returned path
-    back into breakpoints.  On a few thousand short rows per chunk the wrapper costs about a
-    third of the time (0.12 against 0.084 ms a 182-day row, tests/benchmarks/scan.py machine),
-    all of it holding the GIL, so the core is called directly when ruptures still has it, and
-    the public API otherwise; tests/test_references.py checks both give the same breakpoints.
+    and checks the signal, then calls its C core and walks the returned path back into
+    breakpoints.  On a few thousand short rows per chunk that wrapper costs about a third of the
+    time (0.12 against 0.084 ms a 182-day row) and holds the GIL throughout, so the C function
+    is called directly (:func:`_ctypes_pelt_l2`), else through ruptures' Cython core, else the
+    public API; tests/test_references.py checks every route against the public API.
     """
+    direct = _ctypes_pelt_l2()
+    if direct is not None:
+        return direct
     try:
         from ruptures.detection._detection.ekcpd import ekcpd_pelt_L2
     except ImportError:  # a ruptures without that module: the public API, same breakpoints
         import ruptures as rpt
 
-        def search(signal, penalty, min_size):
-            return rpt.KernelCPD(kernel="linear", min_size=min_size, jump=1).fit(signal).predict(pen=penalty)
-        return search
+        def search(row, penalty, min_size):
+            return rpt.KernelCPD(kernel="linear", min_size=min_size, jump=1).fit(row).predict(pen=penalty)
+    else:
+        def search(row, penalty, min_size):
+            return _breakpoints_from_path(ekcpd_pelt_L2(row, penalty, min_size), row.shape[0])
 
-    def search(signal, penalty, min_size):
-        path = ekcpd_pelt_L2(signal, penalty, min_size)
-        breakpoints, end = [], signal.shape[0]
-        while end > 0:
-            breakpoints.append(end)
-            end = path[end]
-        return breakpoints[::-1]
-    return search
+    def search_rows(signal, penalties, min_size):
+        return [search(np.ascontiguousarray(row.reshape(-1, 1)), float(penalty), min_size)
+                for row, penalty in zip(signal, penalties)]
+    return search_rows
+
+
+_SEARCH_ROWS = None
+
+
+def pelt_l2_rows(signal, penalties, min_size: int) -> list[list[int]]:
+    """PELT with the L2 cost (ruptures' ``KernelCPD(kernel="linear")``, ``jump=1``) on each row
+    of ``signal`` (A, n) with its own penalty; ruptures' breakpoint lists (the last is n)."""
+    global _SEARCH_ROWS
+    if _SEARCH_ROWS is None:
+        _SEARCH_ROWS = _pelt_l2_rows()
+    signal = np.ascontiguousarray(signal, dtype=np.float64)
+    return _SEARCH_ROWS(signal, np.asarray(penalties, np.float64), int(min_size))
 
 
 def cusum_split(u, first: int, last: int, sigma):
@@ -125,9 +205,7 @@ class ChangepointSearch(Estimator):
         if n < 2 * self.min_size:
             breakpoints = [[n] for _ in range(filled.shape[0])]
         else:
-            search, log_n = _pelt_l2_search(), np.log(n)
-            breakpoints = [search(np.ascontiguousarray(row.reshape(-1, 1)), float(self.penalty_factor * s * s * log_n),
-                                  self.min_size) for row, s in zip(filled, sigma)]
+            breakpoints = pelt_l2_rows(filled, self.penalty_factor * sigma * sigma * np.log(n), self.min_size)
         self.breakpoints_ = breakpoints
         self.sigma_ = sigma
         return self
