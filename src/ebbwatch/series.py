@@ -198,15 +198,21 @@ def _same_weekday_reference(matrix: np.ndarray, weeks: int = FLEET_LOOKBACK_WEEK
             lag[:, 7 * k:] = matrix[:, : n_days - 7 * k]
         lag[np.isnan(lag)] = np.inf
         lagged.append(lag)
+    spare = np.empty_like(lagged[0])  # the swaps write into buffers, not fresh arrays
     for i in range(weeks):
         for j in range(weeks - 1 - i):
-            low, high = np.minimum(lagged[j], lagged[j + 1]), np.maximum(lagged[j], lagged[j + 1])
-            lagged[j], lagged[j + 1] = low, high
-    count = sum(np.isfinite(lag).astype(np.int8) for lag in lagged)
-    lo, hi = lagged[0].copy(), lagged[0].copy()
+            low, high = lagged[j], lagged[j + 1]
+            np.minimum(low, high, out=spare)
+            np.maximum(low, high, out=high)
+            lagged[j], spare = spare, low
+    count = np.isfinite(lagged[0]).astype(np.int8)
+    for lag in lagged[1:]:
+        count += np.isfinite(lag)
+    lower_rank, upper_rank = (count - 1) // 2, count // 2
+    lo, hi = lagged[0].copy(), lagged[0]
     for k in range(1, weeks):
-        np.copyto(lo, lagged[k], where=(count - 1) // 2 == k)
-        np.copyto(hi, lagged[k], where=count // 2 == k)
+        np.copyto(lo, lagged[k], where=lower_rank == k)
+        np.copyto(hi, lagged[k], where=upper_rank == k)
     with np.errstate(invalid="ignore"):
         return np.where(count > 0, 0.5 * (lo + hi), np.nan)
 

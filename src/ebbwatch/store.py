@@ -731,8 +731,10 @@ class Store:
         finally:
             self.con.unregister("event_weights")
             self.con.unregister("wanted_accounts")
-        return (np.asarray(rows["account_index"]).astype(np.int64), np.asarray(rows["day"]).astype(np.int64),
-                np.asarray(rows["value"]).astype(np.float64))
+        # np.asarray converts only what is not already of the type (astype would copy ~30 MB
+        # arrays on a 10,000-account chunk).
+        return (np.asarray(rows["account_index"], dtype=np.int64), np.asarray(rows["day"], dtype=np.int64),
+                np.asarray(rows["value"], dtype=np.float64))
 
     def weighted_daily(self, event_weights: dict[str, float], accounts: list[str], start_day, end_day):
         """Weighted event totals per account and day, for ``accounts`` and days in [start, end].
