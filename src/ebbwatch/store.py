@@ -251,9 +251,14 @@ class Store:
 
         def may_be_non_string(col, integers_too: bool):
             """Whether ``col``'s text could have been a number, boolean, object or array.
-            Integers are accepted as ids either way, with the same text, so only events flag them."""
+            Integers are accepted as ids either way, with the same text, so only events flag them.
+            Only a text starting with t, f, [, {, - or a digit can be one, so the regular
+            expressions run on those alone (ids and names mostly start with a letter)."""
             flagged = f"regexp_full_match({col}, {non_string_text})"
-            return flagged if integers_too else f"({flagged} AND NOT regexp_full_match({col}, '-?[0-9]{{1,19}}'))"
+            if not integers_too:
+                flagged = f"({flagged} AND NOT regexp_full_match({col}, '-?[0-9]{{1,19}}'))"
+            first = f"ascii({col})"
+            return f"(CASE WHEN {first} IN (116, 102, 91, 123, 45) OR {first} BETWEEN 48 AND 57 THEN {flagged} ELSE false END)"
 
         def id_ok(col):
             return f"NOT {may_be_non_string(col, integers_too=False)}"
