@@ -291,7 +291,8 @@ class Store:
             self.con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE staged AS
                 SELECT {time_us} AS ts_us,
-                       {ev} AS event, {us} AS "user", nullif({ac}, '') AS account, nullif({idc}, '') AS id
+                       {ev} AS event, {us} AS "user", nullif({ac}, '') AS account,
+                       CASE WHEN {idc} <> '' THEN hash({idc}) END AS id_hash
                 FROM read_json(?, format='newline_delimited', columns={{{spec}}})""",
                 [path],
             )
@@ -313,12 +314,13 @@ class Store:
 
     # -- events: precise path ----------------------------------------------------------------
     def stage_records(self, table: pa.Table) -> int:
-        """Stage events parsed by the precise path (columns ts_us, event, user, account, id)."""
+        """Stage events parsed by the precise path (columns ts_us, event, user, account, id);
+        ids are kept as their 64-bit hash, as the fast path keeps them."""
         _register(self.con, "incoming_records", table)
         try:
             self.con.execute(
                 """CREATE OR REPLACE TEMP TABLE staged AS
-                SELECT ts_us, event, "user", account, id FROM incoming_records"""
+                SELECT ts_us, event, "user", account, CASE WHEN id <> '' THEN hash(id) END AS id_hash FROM incoming_records"""
             )
         finally:
             self.con.unregister("incoming_records")
@@ -331,7 +333,9 @@ class Store:
         Leaves the view ``prepared`` (``id_hash``, ``ts_us``, ``account``, ``day`` in the
         account's time zone, ``event``, ``user``): the attributed events, each id's first
         delivery only.  The staged table's row order is the file's line order (DuckDB preserves
-        insertion order), so "first delivery wins" means the lowest row number.  Steps with
+        insertion order), so "first delivery wins" means the lowest row number.  Ids are
+        compared by their 64-bit hash (staged as ``id_hash``), as across files (``seen_ids``):
+        two different ids in one file collide with probability about n² / 2⁶⁵.  Steps with
         nothing to do (no event without an account, no repeated id, no account time zone) are
         skipped: they are the common case and the costly part.  Returns ``candidates`` (attributed
         events), ``repeats`` (later deliveries of an id within the file) and ``unattributed``
@@ -339,7 +343,7 @@ class Store:
         """
         con = self.con
         without_account, repeated = con.execute(
-            "SELECT count_if(account IS NULL), count(id) - count(DISTINCT hash(id)) FILTER (WHERE id IS NOT NULL) FROM staged"
+            "SELECT count_if(account IS NULL), count(id_hash) - count(DISTINCT id_hash) FROM staged"
         ).fetchone()
         if repeated:
             # Only now is the line order needed ("first delivery wins").
@@ -353,7 +357,7 @@ class Store:
         if without_account:
             con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE attributed AS
-                SELECT s.ts_us, s.event, s."user", s.id,{" s.line_order," if repeated else ""}
+                SELECT s.ts_us, s.event, s."user", s.id_hash,{" s.line_order," if repeated else ""}
                        COALESCE(s.account, i.account) AS account,
                        CASE WHEN s.account IS NULL AND i.account IS NULL THEN
                             CASE WHEN k."user" IS NULL THEN 'unknown_user' ELSE 'no_identity_at_time' END
@@ -375,11 +379,10 @@ class Store:
         conditions = ["s.unattributed IS NULL"] if without_account else []
         repeats = 0
         if repeated:
-            # (Repeats were counted by hash: a collision only sends us down this exact path.)
             con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE repeat_losers AS
-                SELECT line_order FROM {source} WHERE id IS NOT NULL
-                QUALIFY row_number() OVER (PARTITION BY id ORDER BY line_order) > 1"""
+                SELECT line_order FROM {source} WHERE id_hash IS NOT NULL
+                QUALIFY row_number() OVER (PARTITION BY id_hash ORDER BY line_order) > 1"""
             )
             conditions.append("s.line_order NOT IN (SELECT line_order FROM repeat_losers)")
         candidates = con.execute(
@@ -397,7 +400,7 @@ class Store:
             day, join = "CAST(make_timestamp(s.ts_us) AS DATE)", ""
         con.execute(
             f"""CREATE OR REPLACE TEMP VIEW prepared AS
-            SELECT CASE WHEN s.id IS NOT NULL THEN hash(s.id) END AS id_hash, s.ts_us, s.account, {day} AS day, s.event, s."user"
+            SELECT s.id_hash, s.ts_us, s.account, {day} AS day, s.event, s."user"
             FROM {source} s {join} WHERE {" AND ".join(conditions) or "true"}"""
         )
         return {"candidates": candidates, "repeats": repeats, "unattributed": unattributed}
