@@ -182,3 +182,18 @@ def test_fleet_applied_after_reading_equals_fleet_applied_while_building():
     for field in ("values", "counts", "first_seen", "masked", "fleet_factor"):
         np.testing.assert_array_equal(getattr(direct, field), getattr(later, field))
     assert np.isnan(later.values[:, [10, 50]]).all()
+
+
+def test_a_loader_without_fleet_quantities_leaves_the_panel_as_built():
+    """Blocks read for the backtest (which divides by its own fleet factors) keep the plain
+    factor 1 and no masked day when no fleet fit was made."""
+    fleet = make_fleet(10, 60, as_of=AS_OF, seed=4)
+    totals = fleet.counts.sum(axis=2).astype(float)
+    end = (AS_OF - date(1970, 1, 1)).days
+    a, d = np.nonzero(totals)
+    panel = build_panel(a, end - 59 + d, totals[a, d], totals[a, d], totals[a, d],
+                        accounts=[f"a{i}" for i in range(10)], start_day=end - 59, end_day=end)
+    same = with_fleet(panel, None, None)
+    np.testing.assert_array_equal(same.fleet_factor, np.ones(60))
+    np.testing.assert_array_equal(same.masked, np.zeros(60, bool))
+    np.testing.assert_array_equal(same.values, panel.values)

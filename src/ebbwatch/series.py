@@ -175,8 +175,10 @@ def build_panel(
 def with_fleet(panel: Panel, fleet_factor, masked) -> Panel:
     """``panel`` (built without them) with the fleet factor and gap mask (D,) applied: masked
     days become NaN in ``values`` and ``counts`` (in place), as :func:`build_panel` would
-    have made them.  Lets a block be read before the fleet-wide quantities are known."""
-    masked = np.asarray(masked, bool)
+    have made them.  Lets a block be read before the fleet-wide quantities are known.  None
+    leaves the panel's own (1 / nothing masked)."""
+    fleet_factor = panel.fleet_factor if fleet_factor is None else fleet_factor
+    masked = np.asarray(panel.masked if masked is None else masked, bool)
     if masked.any():
         panel.values[:, masked] = np.nan
         panel.counts[:, masked] = np.nan

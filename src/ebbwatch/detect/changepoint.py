@@ -141,9 +141,13 @@ def pelt_l2_rows(signal, penalties, min_size: int) -> list[list[int]]:
     """PELT with the L2 cost (ruptures' ``KernelCPD(kernel="linear")``, ``jump=1``) on each row
     of ``signal`` (A, n) with its own penalty; ruptures' breakpoint lists (the last is n)."""
     global _SEARCH_ROWS
+    signal = np.ascontiguousarray(signal, dtype=np.float64)
+    if signal.ndim != 2 or min_size < 1:
+        raise ValueError(f"expected an (A, n) signal and min_size >= 1, got shape {signal.shape} and {min_size}")
+    if signal.shape[1] < 2 * min_size:  # no room for a change (the C code assumes there is)
+        return [[signal.shape[1]] for _ in range(signal.shape[0])]
     if _SEARCH_ROWS is None:
         _SEARCH_ROWS = _pelt_l2_rows()
-    signal = np.ascontiguousarray(signal, dtype=np.float64)
     return _SEARCH_ROWS(signal, np.asarray(penalties, np.float64), int(min_size))
 
 
