@@ -562,7 +562,7 @@ def scan(
         if record:
             with st.transaction():
                 st.record_alert_day(as_of, lifecycle)
-    state_of = {(r.account, r.direction): r.state for r in lifecycle.itertuples()}
+    state_of = dict(zip(zip(lifecycle["account"].tolist(), lifecycle["direction"].tolist()), lifecycle["state"].tolist()))
     alerts["state"] = [state_of.get((a, d), "new") for a, d in zip(alerts["account"], alerts["direction"])]
     hidden = alerts["account"].isin(list(snoozed))
     wanted = ~hidden if show == "all" else ~hidden & alerts["state"].isin(["new", "escalated"])
