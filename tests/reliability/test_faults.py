@@ -16,6 +16,8 @@ from datetime import datetime, timedelta, timezone
 import duckdb
 import pytest
 from click.testing import CliRunner
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import ebbwatch
 from ebbwatch.cli import main
@@ -228,3 +230,20 @@ def test_html_report_keeps_hostile_values_inert(hostile_store, tmp_path):
     assert CliRunner().invoke(main, ["report", "--db", hostile_store, "--html", str(path)]).exit_code == 0
     text = path.read_text()
     assert "<script>" not in text and "&lt;script&gt;" in text
+
+
+@settings(max_examples=300, deadline=None)
+@given(text=st.text(alphabet=st.characters(codec="utf-8"), max_size=40)
+       | st.text(alphabet="ab@<>|!\n\r\t\x00\x1b\x7f\u2028\u2029\u200b\xa0 ", max_size=20))
+def test_plain_text_shortcut_changes_nothing(text):
+    """plain_text returns most names untouched without running its substitutions; for any text
+    it must equal the substitutions alone (and keep the promises: one line, no live mention)."""
+    import re
+
+    from ebbwatch.textsafe import plain_text
+
+    reference = re.sub("@(?!\u200b)", "@\u200b", re.sub(r"[\x00-\x1f\x7f\u2028\u2029]", " ", text)
+                       .replace("<", "\u2039").replace(">", "\u203a"))
+    got = plain_text(text)
+    assert got == reference
+    assert "\n" not in got and "<" not in got and not re.search("@(?!\u200b)", got)
