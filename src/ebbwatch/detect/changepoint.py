@@ -45,7 +45,7 @@ def _breakpoints_from_path(path, n: int) -> list[int]:
     breakpoints, end = [], n
     while end > 0:
         breakpoints.append(end)
-        end = path[end]
+        end = int(path[end])
     return breakpoints[::-1]
 
 
@@ -97,7 +97,7 @@ def _ctypes_pelt_l2():
         found = []
         for i, penalty in enumerate(penalties.tolist()):
             compute(first + i * row_bytes, n, 1, penalty, min_size, kernel_address, path_address)
-            found.append(_breakpoints_from_path(path.tolist(), n))
+            found.append(_breakpoints_from_path(path, n))
         return found
 
     search_rows.keep_alive = (base, kernel)  # the C code reads them through raw pointers
