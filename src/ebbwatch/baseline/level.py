@@ -140,14 +140,16 @@ class LevelDistribution(Estimator):
         percentile = 100.0 * (below + 0.5 * ties) / n
         return percentile, at_or_below, self.n_ - below
 
-    def tails(self, level, resolution: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    def tails(self, level, resolution: float | None = None, counts=None) -> tuple[np.ndarray, np.ndarray]:
         """Tail probabilities: empirical in the bulk, parametric beyond the sample's resolution.
 
         The empirical tail is used where at least ``resolution`` reference windows (default: one
         window's worth, ``window``, since neighbouring windows overlap) are as extreme.
+        ``counts``: ``(n_at_or_below, n_at_or_above)`` from :meth:`empirical` for the same
+        ``level``, when the caller has them already.
         """
         resolution = self.window if resolution is None else resolution
-        _, n_low, n_high = self.empirical(level)
+        n_low, n_high = self.empirical(level)[1:] if counts is None else counts
         p_low, p_high = self.parametric_tails(level)
         if self.model == "lognormal" or self.model == "mixture":
             return p_low, p_high

@@ -102,15 +102,18 @@ def _level_tails(values, factors, first_seen, reference_end, window, params):
     sample = np.where(in_reference, levels, np.nan)
     current = np.nan_to_num(levels[:, -1])
     level = LevelDistribution(model=params.level_model, window=window).fit(sample, current)
-    p_low, p_high = level.tails(current)
     percentile, n_low, n_high = level.empirical(current)
+    p_low, p_high = level.tails(current, counts=(n_low, n_high))
     baseline_level = level.median()
     model = level.model_.astype(object)
-    total_sample = np.where(in_reference, totals, np.nan)
-    usual_total = quiet_nanmean(total_sample, axis=1) * 7.0 / window
+    # The mean reference total: totals are finite wherever levels are, so the reference
+    # windows are exactly the valid ones (the mean of np.where(in_reference, totals, nan)).
+    with np.errstate(invalid="ignore", divide="ignore"):
+        usual_total = np.where(in_reference, totals, 0.0).sum(axis=1) / n_reference * 7.0 / window
     low_volume = np.nan_to_num(usual_total) < params.low_volume_events
     if low_volume.any():
-        count_model = WindowCountModel(window=window, pooled=params.pooled_count_dispersion).fit(total_sample[low_volume])
+        total_sample = np.where(in_reference[low_volume], totals[low_volume], np.nan)
+        count_model = WindowCountModel(window=window, pooled=params.pooled_count_dispersion).fit(total_sample)
         nb_low, nb_high = count_model.tails(np.nan_to_num(totals[low_volume, -1]))
         n = np.maximum(n_reference[low_volume], 1)
         p_low[low_volume] = np.where(n_low[low_volume] >= window, n_low[low_volume] / n, nb_low)
