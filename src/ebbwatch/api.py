@@ -351,7 +351,7 @@ class PanelLoader:
 
     def fit_fleet_in_background(self, accounts):
         """Start :meth:`fit_fleet` in a thread of its own, on a cursor of the store, so the first
-        chunks are read meanwhile; building a chunk (``__call__``) waits for it.  Call
+        chunks are read meanwhile; :meth:`with_fleet` (and ``__call__``) wait for it.  Call
         :meth:`wait_for_fleet` when done, whatever happened (it closes the thread and cursor)."""
         from concurrent.futures import ThreadPoolExecutor
 
@@ -516,7 +516,6 @@ def scan(
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
     from .alerts import advance_lifecycle, select_alerts
-    from .detect import score_panel
     import functools
 
     import pandas as pd
