@@ -138,18 +138,25 @@ def select_alerts(
     return alerts.reset_index(drop=True)
 
 
+def _given(value):
+    """``value``, or None when it is missing (None, or the NaN a DataFrame keeps instead)."""
+    return None if value is None or value != value else value
+
+
 def alert_message(alert: dict, window_days: int, drivers: str = "") -> str:
     """One plain sentence for a chat channel; data values are made safe for plain text.
-    ``drivers``: a short clause naming what moved (already made plain)."""
+    ``drivers``: a short clause naming what moved (already made plain).  A missing change,
+    onset or trend may be None or NaN (a row read back from the alerts frame)."""
     who = plain_text(alert["name"])
     if alert["name"] != alert["account"]:
         who = f"{who} ({plain_text(alert['account'])})"
-    change = alert["change_pct"]
-    since = f" since {alert['onset']}" if alert["onset"] else ""
+    change = _given(alert["change_pct"])
+    onset = _given(alert["onset"])
+    since = f" since {onset}" if onset else ""
     if alert["kind"] == "stop":
         text = f"{who}: no activity for {alert['silent_days']} days{since}, unusual for this account"
     elif alert["kind"] == "slide":
-        slid = alert.get("trend_change_pct")
+        slid = _given(alert.get("trend_change_pct"))
         amount = f"{abs(change):.0f}%" if change is not None else "steadily"
         text = f"{who}: activity has slid {amount} below its usual level{since}"
         if slid is not None:

@@ -4,7 +4,6 @@ config into plain arguments; the CLI is a thin shell over these functions."""
 from __future__ import annotations
 
 import json
-import threading
 import time
 from contextlib import contextmanager
 from dataclasses import replace
@@ -327,8 +326,7 @@ class PanelLoader:
         self.fleet_factor = None
         self.masked = None
         self.count_dispersion = None
-        self._fleet_pending = None
-        self._fleet_lock = threading.Lock()
+        self._fleet_fit = None  # a Future while the fit runs in the background
 
     def _rows(self, accounts, *, users: bool = False, ranges=None, st=None):
         """``(account_index, day, value, events, users)``; ``events``/``users`` are None and
@@ -350,30 +348,28 @@ class PanelLoader:
         return dense_matrix(idx, day, value, len(sample), self.start_day, self.end_day - self.start_day + 1)
 
     def fit_fleet_in_background(self, accounts):
-        """Start :meth:`fit_fleet` in a thread of its own, on a cursor of the store, so the first
-        chunks are read meanwhile; :meth:`with_fleet` (and ``__call__``) wait for it.  Call
-        :meth:`wait_for_fleet` when done, whatever happened (it closes the thread and cursor)."""
+        """Start :meth:`fit_fleet` in a thread of its own, on a cursor of the store (closed when
+        the fit ends), so the first chunks are read meanwhile; :meth:`with_fleet` (and
+        ``__call__``) wait for it.  Wait with :meth:`wait_for_fleet` before closing the store."""
         from concurrent.futures import ThreadPoolExecutor
 
         cursor = self.st.cursor()
+
+        def fit():
+            try:
+                self.fit_fleet(accounts, cursor)
+            finally:
+                cursor.close()
+
         pool = ThreadPoolExecutor(1, thread_name_prefix="ebbwatch-fleet")
-        self._fleet_pending = (pool.submit(self.fit_fleet, accounts, cursor), pool, cursor)
+        self._fleet_fit = pool.submit(fit)
+        pool.shutdown(wait=False)  # the fit still runs; the thread ends with it
         return self
 
     def wait_for_fleet(self):
         """Wait for a :meth:`fit_fleet_in_background` (re-raising its error); no-op otherwise."""
-        pending = self._fleet_pending
-        if pending is None:
-            return self
-        future, pool, cursor = pending
-        try:
-            future.result()  # every caller waits (chunks are scored in several threads)
-        finally:
-            with self._fleet_lock:
-                if self._fleet_pending is pending:
-                    self._fleet_pending = None
-                    pool.shutdown()
-                    cursor.close()
+        if self._fleet_fit is not None:
+            self._fleet_fit.result()
         return self
 
     def fit_fleet(self, accounts, st=None):
@@ -647,10 +643,10 @@ def _add_drivers(st, loader, scores, alerts, as_of, window_days):
     driver_lists = _find_drivers(st, loader, targets, as_of, window_days, max_events=5)
     alerts["drivers"] = driver_lists
     # Records from column lists: DataFrame.to_dict("records") boxes every cell (~0.15 s for
-    # ~5,000 alerts).  Missing values become None, as alert_message expects.
+    # ~5,000 alerts).
     fields = ("account", "name", "kind", "direction", "change_pct", "onset", "silent_days",
               "trend_change_pct", "percentile", "severity")
-    columns = [[None if v is None or v != v else v for v in alerts[name].tolist()] for name in fields]
+    columns = [alerts[name].tolist() for name in fields]
     alerts["message"] = [alert_message(dict(zip(fields, values)), window_days, drivers_phrase(found, plain_text))
                          for values, found in zip(zip(*columns), driver_lists)]
 

@@ -71,6 +71,11 @@ FAST_TS_PATTERN = (
 )
 
 
+def _id_hash(column: str) -> str:
+    """SQL for an event id's 64-bit hash (NULL without an id), the same on both staging paths."""
+    return f"CASE WHEN {column} <> '' THEN hash({column}) END"
+
+
 def _arrow(con, query: str, params=None) -> pa.Table:
     """A query's rows as one Arrow table (``params`` bound to its ``?``).
 
@@ -292,7 +297,7 @@ class Store:
                 f"""CREATE OR REPLACE TEMP TABLE staged AS
                 SELECT {time_us} AS ts_us,
                        {ev} AS event, {us} AS "user", nullif({ac}, '') AS account,
-                       CASE WHEN {idc} <> '' THEN hash({idc}) END AS id_hash
+                       {_id_hash(idc)} AS id_hash
                 FROM read_json(?, format='newline_delimited', columns={{{spec}}})""",
                 [path],
             )
@@ -319,8 +324,8 @@ class Store:
         _register(self.con, "incoming_records", table)
         try:
             self.con.execute(
-                """CREATE OR REPLACE TEMP TABLE staged AS
-                SELECT ts_us, event, "user", account, CASE WHEN id <> '' THEN hash(id) END AS id_hash FROM incoming_records"""
+                f"""CREATE OR REPLACE TEMP TABLE staged AS
+                SELECT ts_us, event, "user", account, {_id_hash("id")} AS id_hash FROM incoming_records"""
             )
         finally:
             self.con.unregister("incoming_records")
