@@ -263,6 +263,32 @@ def test_property_fast_path_agrees_with_precise_path_on_typed_values(tmp_path_fa
     assert (s1["ingested"], s1["duplicates"], s1["unattributed"]) == (s2["ingested"], s2["duplicates"], s2["unattributed"])
 
 
+# Every JSON type other than a string, in every text field, whatever its first character
+# (t, f, a digit, -, [, {): the fast path must notice it and leave the file to the precise path,
+# which rejects the line as a wrong type.  Strings starting with nearby bytes stay on the fast path.
+@pytest.mark.parametrize("field", ["event", "user", "account", "id"])
+@pytest.mark.parametrize("value", [True, False, 7, -7, 0.5, [1], {"a": 1}])
+def test_fast_path_leaves_non_string_values_to_the_precise_path(tmp_path, db, field, value):
+    line = ev("2026-03-02T10:00:00Z", id="e-1")
+    line[field] = value
+    f = write_jsonl(tmp_path / "e.jsonl", [ev("2026-03-02T09:00:00Z"), line])
+    s = ingest(db, [f])
+    integer_key = field != "event" and isinstance(value, int) and not isinstance(value, bool)
+    if integer_key:  # an integer user, account or id is accepted as its text on both paths
+        assert s["paths"] == {"fast": 1, "precise": 0} and s["ingested"] == 2
+    else:
+        assert s["paths"] == {"fast": 0, "precise": 1}
+        assert s["rejected"] == {"wrong_type": 1} and s["ingested"] == 1
+
+
+@pytest.mark.parametrize("text", ["Zeta", "\\x", "]x", "|x", "ux", "gx", "sx", "ex", ":x", "~", "é"])
+def test_fast_path_keeps_strings_that_only_start_near_non_string_texts(tmp_path, db, text):
+    f = write_jsonl(tmp_path / "e.jsonl", [ev("2026-03-02T10:00:00Z", event=text, user=text, account=text, id=text)])
+    s = ingest(db, [f])
+    assert s["paths"] == {"fast": 1, "precise": 0} and s["ingested"] == 1
+    assert daily(db) == {(text, "2026-03-02", text): (1, 1)}
+
+
 event_strategy = st.builds(
     lambda day, sec, user, acct, ident: ev(
         (datetime(2026, 3, 1, tzinfo=timezone.utc) + timedelta(days=day, seconds=sec)).isoformat().replace("+00:00", "Z"),

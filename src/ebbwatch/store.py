@@ -258,12 +258,17 @@ class Store:
             """Whether ``col``'s text could have been a number, boolean, object or array.
             Integers are accepted as ids either way, with the same text, so only events flag them.
             Only a text starting with t, f, [, {, - or a digit can be one, so the regular
-            expressions run on those alone (ids and names mostly start with a letter)."""
+            expressions run on those alone (ids and names mostly start with a letter).  The first
+            byte is tested by comparing the whole text with one-character strings (bytewise:
+            ``col < ':'`` holds exactly when the first byte is below ':', which takes in '-', the
+            digits and some punctuation the regex then clears): on the ingest benchmark's four
+            text columns 0.02 s against 0.11-0.13 s for ``ascii()``, which decodes a code point."""
             flagged = f"regexp_full_match({col}, {non_string_text})"
             if not integers_too:
                 flagged = f"({flagged} AND NOT regexp_full_match({col}, '-?[0-9]{{1,19}}'))"
-            first = f"ascii({col})"
-            return f"(CASE WHEN {first} IN (116, 102, 91, 123, 45) OR {first} BETWEEN 48 AND 57 THEN {flagged} ELSE false END)"
+            first_byte_may_start_non_string = " OR ".join(
+                [f"{col} < ':'"] + [f"({col} >= '{c}' AND {col} < '{chr(ord(c) + 1)}')" for c in "[{tf"])
+            return f"(CASE WHEN {first_byte_may_start_non_string} THEN {flagged} ELSE false END)"
 
         def id_ok(col):
             return f"NOT {may_be_non_string(col, integers_too=False)}"
