@@ -99,6 +99,18 @@ def test_dedupe_window_forgets_old_ids(tmp_path, db):
     assert (s["ingested"], s["duplicates"]) == (1, 1)
 
 
+def test_dedupe_window_edge_within_one_file(tmp_path, db):
+    # One file spanning more than the window: ids exactly 30 days before its newest id are kept,
+    # one second older are forgotten, as if every id had been recorded and the window applied.
+    a = write_jsonl(tmp_path / "a.jsonl", [ev("2026-01-30T09:59:59Z", id="past"), ev("2026-01-30T10:00:00Z", id="edge"),
+                                          ev("2026-03-01T10:00:00Z", id="newest"), ev("2026-03-01T11:00:00Z")])
+    b = write_jsonl(tmp_path / "b.jsonl", [ev("2026-01-30T09:59:59Z", id="past"), ev("2026-01-30T10:00:00Z", id="edge"),
+                                          ev("2026-03-01T10:00:00Z", id="newest")])
+    ingest(db, [a])
+    s = ingest(db, [b])
+    assert (s["ingested"], s["duplicates"]) == (1, 2)
+
+
 def test_bad_lines_go_to_rejects_with_line_and_reason(tmp_path, db):
     good = ev("2026-03-02T10:00:00Z")
     f = write_jsonl(tmp_path / "mixed.jsonl", [good], raw_lines=[

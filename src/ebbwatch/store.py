@@ -443,7 +443,16 @@ class Store:
         else:
             fresh = "prepared"
             fresh_count = prepared["candidates"] - prepared["repeats"]
-        con.execute(f"INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh} WHERE id_hash IS NOT NULL")
+        # Only ids the window keeps are written: forget_old_ids would drop the others at once
+        # (a 60-day backfill would otherwise write every id and delete half of them again).
+        con.execute(
+            f"""INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh}
+            WHERE id_hash IS NOT NULL AND make_timestamptz(ts_us) >= (
+                SELECT max(ts) - to_days(CAST(? AS INTEGER)) FROM (
+                    SELECT max(ts) AS ts FROM seen_ids
+                    UNION ALL SELECT make_timestamptz(max(ts_us)) FROM {fresh} WHERE id_hash IS NOT NULL))""",
+            [int(dedupe_window_days)],
+        )
         grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
         if self._user_daily_is_empty():
             # A first load (a backfill) has nothing to merge with: group straight into the table.
