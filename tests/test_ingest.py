@@ -371,3 +371,22 @@ def test_number_times_first_then_text_times_stay_on_the_fast_path(tmp_path):
     assert s1["paths"]["fast"] == 1 and s2["paths"]["fast"] == 1
     assert s1["ingested"] == s2["ingested"] == 10
     assert daily(str(tmp_path / "1.duckdb")) == daily(str(tmp_path / "2.duckdb"))
+
+
+def test_content_hashes_match_published_values(tmp_path):
+    from ebbwatch.ingest.readers import scan_file
+
+    empty = tmp_path / "empty.jsonl"
+    empty.write_bytes(b"")
+    # XXH3-128 of no bytes, seed 0: 99aa06d3014798d86001c324468d497f (xxHash's xxhsum; value from memory).
+    assert scan_file(str(empty))[0] == ["xxh3-128:99aa06d3014798d86001c324468d497f"]
+    abc = tmp_path / "abc.jsonl"
+    abc.write_bytes(b"abc")
+    # SHA-256("abc"): FIPS 180-2, appendix B.1.
+    digests, longest, _ = scan_file(str(abc), legacy=True)
+    assert digests[1] == "sha256:ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+    assert longest == 3
+    # A gzip file is hashed as stored (its compressed bytes), so a re-compressed copy is new.
+    gz = tmp_path / "abc.jsonl.gz"
+    gz.write_bytes(gzip.compress(b"abc"))
+    assert scan_file(str(gz))[0] != scan_file(str(abc))[0] and scan_file(str(gz))[1] == 3

@@ -138,3 +138,31 @@ def test_event_period_sums_match_the_frame_route(db):
     pd.testing.assert_frame_equal(from_store.reset_index(drop=True), from_rows, check_dtype=False)
     sizes = [len(days) for _, days in baselines]
     assert drivers_from_sums(from_store, weights, sizes, 6) == drivers_from_sums(from_rows, weights, sizes, 6)
+
+
+def test_version_2_store_still_recognises_files_logged_by_sha256(tmp_path, db, monkeypatch):
+    """Schema 2 logged files by SHA-256; after the move to XXH3-128 a file ingested then must
+    still be skipped when it comes again, and new files are logged under the new hash."""
+    import hashlib
+    from datetime import datetime, timezone
+
+    import ebbwatch
+
+    old = tmp_path / "old.jsonl"
+    old.write_text('{"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "acc"}\n')
+    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", 2)
+    with store_mod.open_store(db) as st:
+        st.con.execute("INSERT INTO ingest_log (file, sha256, ingested_at, ingested) VALUES (?, ?, now(), 1)",
+                       [str(old), hashlib.sha256(old.read_bytes()).hexdigest()])
+    monkeypatch.undo()
+    now = datetime(2026, 6, 1, tzinfo=timezone.utc)
+    again = ebbwatch.ingest_files([str(old)], db=db, now=now)
+    assert again["files"] == 0 and again["skipped_files"][0]["reason"] == f"already ingested (same content as {old})"
+    new = tmp_path / "new.jsonl"
+    new.write_text('{"ts": "2026-03-03T10:00:00Z", "event": "x", "user": "u", "account": "acc"}\n')
+    assert ebbwatch.ingest_files([str(new)], db=db, now=now)["files"] == 1
+    with store_mod.open_store(db) as st:
+        assert st.schema_version() == store_mod.SCHEMA_VERSION >= 3
+        hashes = dict(st.con.execute("SELECT file, content_hash FROM ingest_log").fetchall())
+    assert hashes[str(old)] == "sha256:" + hashlib.sha256(old.read_bytes()).hexdigest()
+    assert hashes[str(new)].startswith("xxh3-128:") and len(hashes[str(new)]) == len("xxh3-128:") + 32

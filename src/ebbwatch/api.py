@@ -201,11 +201,12 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
 def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_rejects: list) -> FileResult:
     from .tasks import stage_file
 
-    def earlier_copy(digest):
-        earlier = st.already_ingested(digest)
+    def earlier_copy(digests):
+        earlier = st.already_ingested(digests)
         return None if earlier is None else f"already ingested (same content as {earlier})"
 
-    digest, result, file_rejects = stage_file(st, path, display, rules, cfg.fields, skip_reason=earlier_copy)
+    digest, result, file_rejects = stage_file(st, path, display, rules, cfg.fields, skip_reason=earlier_copy,
+                                              legacy_digest=st.has_legacy_digests())
     if result.skipped:
         return result
     with st.transaction():

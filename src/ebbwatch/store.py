@@ -27,7 +27,7 @@ import pyarrow as pa
 
 from .errors import StoreError
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 DEFAULT_PATH = "ebbwatch.duckdb"
 
 # Schema as a list of migrations: MIGRATIONS[v] takes a store at version v to v + 1.
@@ -61,6 +61,13 @@ MIGRATIONS: dict[int, list[str]] = {
                recorded_at TIMESTAMPTZ)""",
         """CREATE TABLE snoozes (account VARCHAR NOT NULL, until DATE NOT NULL, reason VARCHAR,
                created_at TIMESTAMPTZ)""",
+    ],
+    # v3: files are logged by a content hash that names its algorithm ("xxh3-128:<hex>"); the
+    # SHA-256 digests logged before keep theirs ("sha256:<hex>") and are still matched.
+    2: [
+        "ALTER TABLE ingest_log ADD COLUMN content_hash VARCHAR",
+        "UPDATE ingest_log SET content_hash = 'sha256:' || sha256",
+        "ALTER TABLE ingest_log DROP COLUMN sha256",
     ],
 }
 
@@ -178,23 +185,34 @@ class Store:
                 _arrow(self.con, "SELECT * FROM identities"))
 
     def ingested_digests(self) -> dict[str, str]:
-        """Content hash → the file first ingested with it."""
+        """Content hash (``"<algorithm>:<hex>"``) → the file first ingested with it."""
         return dict(self.con.execute(
-            "SELECT sha256, min_by(file, ingested_at) FROM ingest_log GROUP BY 1").fetchall())
+            "SELECT content_hash, min_by(file, ingested_at) FROM ingest_log GROUP BY 1").fetchall())
 
     # -- ingest log ------------------------------------------------------------------------
-    def already_ingested(self, sha256: str) -> str | None:
+    def has_legacy_digests(self) -> bool:
+        """Whether files were logged by SHA-256 (before schema 3): new files must then be
+        hashed that way too to be recognised as re-deliveries."""
+        return self.con.execute(
+            "SELECT count(*) FROM (SELECT 1 FROM ingest_log WHERE content_hash LIKE 'sha256:%' LIMIT 1)"
+        ).fetchall()[0][0] > 0
+
+    def already_ingested(self, digests: list[str]) -> str | None:
+        """The file first ingested with any of ``digests`` (one file's hashes), or None."""
         row = self.con.execute(
-            "SELECT file FROM ingest_log WHERE sha256 = ? LIMIT 1", [sha256]
+            "SELECT file FROM ingest_log WHERE list_contains(?, content_hash) ORDER BY ingested_at LIMIT 1",
+            [list(digests)],
         ).fetchone()
         return None if row is None else row[0]
 
-    def log_ingest(self, file: str, sha256: str, result, first_day, last_day):
+    def log_ingest(self, file: str, digest: str, result, first_day, last_day):
         self.con.execute(
-            "INSERT INTO ingest_log VALUES (?, ?, now(), ?, ?, ?, ?, ?, ?, ?, ?)",
+            """INSERT INTO ingest_log (file, content_hash, ingested_at, lines, ingested, duplicates, rejected,
+                                       unattributed, path_taken, first_day, last_day)
+            VALUES (?, ?, now(), ?, ?, ?, ?, ?, ?, ?, ?)""",
             [
                 file,
-                sha256,
+                digest,
                 result.lines,
                 result.ingested,
                 result.duplicates,

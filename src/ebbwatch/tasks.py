@@ -19,7 +19,7 @@ from . import store as store_mod
 from .errors import InputError
 from .frames import FileResult, Reject
 from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
-from .ingest.readers import first_value_is_text, iter_lines, scan_file
+from .ingest.readers import LEGACY_CONTENT_HASH, first_value_is_text, iter_lines, scan_file
 from .series import Panel, build_panel
 
 # Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
@@ -51,13 +51,14 @@ def precise_records(path: str, display: str, rules: LineRules, result: FileResul
     return pa.table(columns, schema=schema)
 
 
-def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reason=None):
+def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reason=None, legacy_digest=False):
     """Parse one event file into ``st``'s temp table ``staged``: DuckDB's native reader when
     every line passes its checks, else the precise parser line by line.
 
-    ``skip_reason(digest)`` may return why the file is not to be ingested (its content was
-    ingested before); then nothing is staged.  Returns ``(digest, result, rejects)``, with
-    ``result.skipped`` set for a skipped file.
+    ``skip_reason(digests)`` may return why the file is not to be ingested (its content was
+    ingested before; ``digests`` are its content hashes, see ``readers.scan_file``, SHA-256
+    too with ``legacy_digest``); then nothing is staged.  Returns ``(digest, result,
+    rejects)``, ``digest`` the hash to log, with ``result.skipped`` set for a skipped file.
     """
     result = FileResult(file=display)
     rejects: list[Reject] = []
@@ -66,13 +67,14 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     # cannot touch the store.
     ts_text = rules.ts_format == "auto" and first_value_is_text(path, fields.ts)
     with ThreadPoolExecutor(max_workers=1) as pool:
-        scanning = pool.submit(scan_file, path)
+        scanning = pool.submit(scan_file, path, legacy_digest)
         try:
             staged = st.stage_jsonl_fast(path, fields, rules.ts_format, rules.max_line_bytes,
                                          rules.earliest_us, rules.latest_us, ts_text=ts_text)
         finally:
-            digest, longest_line, deepest = scanning.result()
-    reason = skip_reason(digest) if skip_reason else None
+            digests, longest_line, deepest = scanning.result()
+    digest = digests[0]
+    reason = skip_reason(digests) if skip_reason else None
     if reason is not None:
         st.drop_staged()
         result.skipped = reason
@@ -125,9 +127,10 @@ def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.
     try:
         try:
             digest, result, rejects = stage_file(
-                st, path, display, rules, fields,
-                skip_reason=lambda d: None if d not in known_digests else
-                f"already ingested (same content as {known_digests[d]})")
+                st, path, display, rules, fields, skip_reason=lambda digests: next(
+                    (f"already ingested (same content as {known_digests[d]})" for d in digests if d in known_digests),
+                    None),
+                legacy_digest=any(d.startswith(f"{LEGACY_CONTENT_HASH}:") for d in known_digests))
         except InputError as exc:
             return ParsedFile(display, error=str(exc))
         parsed = ParsedFile(display, digest, result, rejects)

@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Iterator
 
 import numpy as np
+import xxhash
 
 from ..errors import InputError
 
@@ -93,19 +94,34 @@ class _LongestLine:
         return max(self.longest, self.current)
 
 
-def scan_file(path: str) -> tuple[str, int, int]:
-    """One pass over a file: its SHA-256 (of the bytes as stored), its longest line in bytes and
-    an upper bound of its deepest bracket nesting (of the decompressed text for gzip).  DuckDB's
-    reader enforces neither a per-line size limit nor Python's nesting limit, so the fast path
-    relies on these to send such files to the precise path."""
-    digest = hashlib.sha256()
+CONTENT_HASH = "xxh3-128"
+LEGACY_CONTENT_HASH = "sha256"
+
+
+def scan_file(path: str, legacy: bool = False) -> tuple[list[str], int, int]:
+    """One pass over a file: its content hashes (of the bytes as stored), its longest line in
+    bytes and an upper bound of its deepest bracket nesting (of the decompressed text for gzip).
+    DuckDB's reader enforces neither a per-line size limit nor Python's nesting limit, so the
+    fast path relies on these to send such files to the precise path.
+
+    The hashes are ``"xxh3-128:<hex>"`` and, with ``legacy`` (a store that logged files under
+    SHA-256 before schema 3), ``"sha256:<hex>"`` as well, so a file ingested then is still
+    recognised.  XXH3-128 rather than SHA-256: the hash only tells a re-delivered file from a
+    new one, and on the ingest benchmark's 285 MB it takes 0.012 s against 0.17 s, in a thread
+    that competes with DuckDB for the same two cores.  It is not a cryptographic hash: whoever
+    can write the input files could craft one to be skipped (they could as well remove lines).
+    """
+    hashers = [(CONTENT_HASH, xxhash.xxh3_128())]
+    if legacy:
+        hashers.append((LEGACY_CONTENT_HASH, hashlib.sha256()))
     longest = _LongestLine()
     try:
         gz = is_gzip(path)
         inflater = zlib.decompressobj(wbits=47) if gz else None
         with open(path, "rb") as handle:
             for block in iter(lambda: handle.read(1 << 20), b""):
-                digest.update(block)
+                for _, hasher in hashers:
+                    hasher.update(block)
                 if inflater is None:
                     longest.feed(block)
                     continue
@@ -121,7 +137,7 @@ def scan_file(path: str) -> tuple[str, int, int]:
         raise InputError(f"cannot read {path}: not a valid gzip file ({exc})") from exc
     except OSError as exc:
         raise InputError(f"cannot read {path}: {exc.strerror or exc}") from exc
-    return digest.hexdigest(), longest.result(), longest.deepest
+    return [f"{name}:{hasher.hexdigest()}" for name, hasher in hashers], longest.result(), longest.deepest
 
 
 def first_value_is_text(path: str, field: str, peek_bytes: int = 1 << 16) -> bool:
@@ -147,10 +163,6 @@ def first_value_is_text(path: str, field: str, peek_bytes: int = 1 << 16) -> boo
         if isinstance(value, dict):
             return isinstance(value.get(field), str)
     return False
-
-
-def sha256_of(path: str) -> str:
-    return scan_file(path)[0]
 
 
 def is_gzip(path: str) -> bool:
