@@ -139,6 +139,7 @@ def _add_to_summary(summary: dict, display: str, outcome):
 
 def _ingest_here(st, files, cfg, rules, progress, stdin):
     """Each file in turn, one transaction each: ``(name, FileResult or error, rejects)``."""
+    legacy_digest = st.has_legacy_digests()  # files this run logs use the new hash alone
     for position, item in enumerate(files, start=1):
         display = "<stdin>" if item == STDIN else item
         path = spool_stdin(stdin) if item == STDIN else item
@@ -146,7 +147,7 @@ def _ingest_here(st, files, cfg, rules, progress, stdin):
             progress(display, position, len(files))
         rejects: list[Reject] = []
         try:
-            result = _ingest_one(st, path, display, cfg, rules, rejects)
+            result = _ingest_one(st, path, display, cfg, rules, rejects, legacy_digest)
         except InputError as exc:
             yield display, str(exc), []
             continue
@@ -170,6 +171,7 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
         reference = client.scatter([accounts_table, identities_table], broadcast=True)
         parsed = client.map(parse_file, [(f, f) for f in files], rules=rules, fields=cfg.fields,
                             accounts=reference[0], identities=reference[1], known_digests=known,
+                            legacy_digest=st.has_legacy_digests(),
                             pure=False, retries=3)
         summaries = gather_in_order(
             client.map(ParsedFile.summary, parsed, pure=False, retries=3), "parsing",
@@ -198,7 +200,8 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
     return outcomes
 
 
-def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_rejects: list) -> FileResult:
+def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_rejects: list,
+                legacy_digest: bool) -> FileResult:
     from .tasks import stage_file
 
     def earlier_copy(digests):
@@ -206,7 +209,7 @@ def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_
         return None if earlier is None else f"already ingested (same content as {earlier})"
 
     digest, result, file_rejects = stage_file(st, path, display, rules, cfg.fields, skip_reason=earlier_copy,
-                                              legacy_digest=st.has_legacy_digests())
+                                              legacy_digest=legacy_digest)
     if result.skipped:
         return result
     with st.transaction():

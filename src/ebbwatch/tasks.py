@@ -19,7 +19,7 @@ from . import store as store_mod
 from .errors import InputError
 from .frames import FileResult, Reject
 from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
-from .ingest.readers import LEGACY_CONTENT_HASH, first_value_is_text, iter_lines, scan_file
+from .ingest.readers import first_value_is_text, iter_lines, scan_file
 from .series import Panel, build_panel
 
 # Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
@@ -119,9 +119,10 @@ class ParsedFile:
 
 
 def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.Table, identities: pa.Table,
-               known_digests: dict) -> ParsedFile:
+               known_digests: dict, legacy_digest: bool = False) -> ParsedFile:
     """Stage, attribute and date one event file in a scratch store holding the real store's
-    accounts and identities (one task of a Dask ingest).  ``item``: (path, name to report)."""
+    accounts and identities (one task of a Dask ingest).  ``item``: (path, name to report);
+    ``known_digests``: ``Store.ingested_digests``; ``legacy_digest``: ``Store.has_legacy_digests``."""
     path, display = item
     st = store_mod.scratch_store(accounts, identities)
     try:
@@ -130,7 +131,7 @@ def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.
                 st, path, display, rules, fields, skip_reason=lambda digests: next(
                     (f"already ingested (same content as {known_digests[d]})" for d in digests if d in known_digests),
                     None),
-                legacy_digest=any(d.startswith(f"{LEGACY_CONTENT_HASH}:") for d in known_digests))
+                legacy_digest=legacy_digest)
         except InputError as exc:
             return ParsedFile(display, error=str(exc))
         parsed = ParsedFile(display, digest, result, rejects)
