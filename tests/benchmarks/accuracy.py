@@ -1,105 +1,141 @@
-"""Accuracy on planted-truth fleets: ebbwatch scan end to end vs the hand rule vs an STL rule.
+"""Accuracy on planted-truth fleets of several independently written families.
 
-Run by hand: ``python tests/benchmarks/accuracy.py [--seeds 5] [--accounts 400]``.  Each seed's
-fleet (``ebbwatch.datasets.make_fleet``: a year of daily history, drops, stops, slides and surges
-starting 3-70 days before the as-of date, hard quiet accounts, a two-week fleet-wide holiday dip
-five weeks before and a one-day data gap two days before the as-of date) is written as daily
-aggregates, loaded with ``ebbwatch ingest --daily`` and judged with ``ebbwatch scan --format
-jsonl``, in subprocesses, as a user would.  The two comparison rules run on the same totals.
-Targets (issue 4): recall >= 0.9 on drops, stops and surges, >= 0.8 on slides, quiet accounts
-flagged <= 2%, and >= 5x fewer false alerts than the hand rule at equal or better recall.
+Run by hand: ``python tests/benchmarks/accuracy.py [--families A,B,C,D] [--seeds 3]
+[--accounts 400] [--peers hand,stl,ets,prophet,capa,kernelcpd] [--qq qq.png]``.
 
-The real labelled series (NAB, TCPD) are in ``real_series.py``.
+Each family (``fleets/``) makes its counts its own way; detection is developed on family A and
+B, C, D are held out.  Each seed's fleet is written as daily aggregates, loaded with the same
+library call as ``ebbwatch ingest --daily`` and judged with ``ebbwatch scan`` at the defaults.
+Printed per family and seed: recall per kind over planted changes in accounts of at least 5
+events a day (drops and surges at least 7 days old, stops, slides, onsets 2–6 days old), the
+same for smaller accounts, the share of quiet accounts flagged (all sizes), the calibration of
+p-values on quiet accounts, and — with ``--peers`` — every detector's recall at matched false
+rates (1% and 2% of quiet accounts) and its time per account.
+
+Targets (issue 18), on the held-out families: recall >= 0.95 on drops, stops and surges,
+>= 0.9 on slides, >= 0.7 on onsets 2–6 days old; quiet accounts flagged <= 1%; calibration
+within sampling error; above every peer on every kind at a matched 1% false rate.
 """
 
 from __future__ import annotations
 
 import argparse
-import json
-import subprocess
 import sys
 import tempfile
+import time
 from pathlib import Path
 
+import numpy as np
+
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-import numpy as np  # noqa: E402
-from rules import hand_rule, hand_z, score_flags, stl_rule  # noqa: E402
+import planted  # noqa: E402
+from fleets import DEV_FAMILY, generate  # noqa: E402
+
+REPORTED = ("drop", "stop", "slide", "surge", "onset")
 
 
-def ebbwatch_flags(fleet, workdir: Path) -> dict:
-    daily = workdir / "daily.parquet"
-    fleet.daily_frame().to_parquet(daily)
-    db = str(workdir / "store.duckdb")
-    run = lambda *args: subprocess.run([sys.executable, "-m", "ebbwatch", *args], check=True,  # noqa: E731
-                                       capture_output=True, text=True)
-    run("ingest", "--daily", str(daily), "--db", db)
-    out = run("scan", "--db", db, "--as-of", fleet.as_of.isoformat(), "--format", "jsonl", "--max-alerts", "100000")
-    flags = {}
-    for line in out.stdout.splitlines():
-        alert = json.loads(line)
-        flags[alert["account"]] = -1 if alert["direction"] == "down" else 1
-    return flags
+def line(label, result, keys=REPORTED + ("quiet",)):
+    return f"{label:<26}" + "".join(f"{planted.fmt(result[k]) if k in result else '—':>16}" for k in keys)
 
 
-def main():
-    from ebbwatch.datasets import make_fleet
+def header():
+    return f"{'':<26}" + "".join(f"{k if k != 'quiet' else 'quiet flagged':>16}" for k in REPORTED + ("quiet",))
 
+
+def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--seeds", type=int, default=5)
+    parser.add_argument("--families", default="A,B,C,D")
+    parser.add_argument("--seeds", type=int, default=3)
+    parser.add_argument("--first-seed", type=int, default=0)
     parser.add_argument("--accounts", type=int, default=400)
-    parser.add_argument("--days", type=int, default=365)
-    args = parser.parse_args()
-    totals = {name: {} for name in ("ebbwatch scan", "hand rule (7d vs 28d, |z|>3)", "STL residual rule (|z|>3)")}
-    hand_runs = []  # (z, truth) per seed, for the matched-recall comparison
-    for seed in range(args.seeds):
-        fleet = make_fleet(args.accounts, args.days, seed=seed)
-        daily_totals = fleet.counts.sum(axis=2)
-        with tempfile.TemporaryDirectory() as tmp:
-            runs = {
-                "ebbwatch scan": ebbwatch_flags(fleet, Path(tmp)),
-                "hand rule (7d vs 28d, |z|>3)": dict(zip(fleet.account_ids, hand_rule(daily_totals))),
-                "STL residual rule (|z|>3)": dict(zip(fleet.account_ids, stl_rule(daily_totals))),
-            }
-        for name, flags in runs.items():
-            for key, (hit, n) in score_flags(fleet.truth, flags).items():
-                h, m = totals[name].get(key, (0, 0))
-                totals[name][key] = (h + hit, m + n)
-        hand_runs.append((hand_z(daily_totals), fleet.truth))
-        print(f"seed {seed} done", file=sys.stderr)
-    keys = ("drop", "stop", "slide", "surge", "quiet_flagged")
-    print(f"{args.seeds} seeds x {args.accounts} accounts x {args.days} days")
-    print(f"{'method':<32}" + "".join(f"{k:>15}" for k in keys))
-    for name, result in totals.items():
-        print(f"{name:<32}" + "".join(f"{result[k][0] / result[k][1]:>9.3f} ({result[k][0]:>3})" for k in keys))
-    ours = totals["ebbwatch scan"]
-    ours_hits = sum(ours[k][0] for k in keys[:4])
-    ours_false = ours["quiet_flagged"][0]
-    hand = totals["hand rule (7d vs 28d, |z|>3)"]
-    print(f"false alerts on quiet accounts: ebbwatch {ours_false}, hand rule at |z|>3 {hand['quiet_flagged'][0]} "
-          f"(with recall {sum(hand[k][0] for k in keys[:4])} vs our {ours_hits} changed accounts caught)")
-    print("hand rule trade-off:", end="")
-    for threshold in (3.0, 2.0, 1.5, 1.0, 0.5):
-        hits = false = 0
-        for z, truth in hand_runs:
-            scored = score_flags(truth, dict(zip(truth["account"], np.where(z > threshold, 1, np.where(z < -threshold, -1, 0)))))
-            hits += sum(scored[k][0] for k in keys[:4])
-            false += scored["quiet_flagged"][0]
-        print(f"  |z|>{threshold}: {hits} caught, {false} false", end="")
-    print()
-    # The hand rule at the threshold where it first catches as many changed accounts as ebbwatch.
-    for threshold in np.arange(3.0, 0.0, -0.05):
-        hits = false = 0
-        for z, truth in hand_runs:
-            flags = dict(zip(truth["account"], np.where(z > threshold, 1, np.where(z < -threshold, -1, 0))))
-            scored = score_flags(truth, flags)
-            hits += sum(scored[k][0] for k in keys[:4])
-            false += scored["quiet_flagged"][0]
-        if hits >= ours_hits:
-            print(f"hand rule matched to our recall (|z| > {threshold:.2f}, {hits} caught): {false} false alerts, "
-                  f"{false / max(ours_false, 1):.1f}x ebbwatch's (target >= 5x)")
-            break
-    else:
-        print("the hand rule never reaches ebbwatch's recall at any |z| threshold above 0")
+    parser.add_argument("--share-changed", type=float, default=0.3)
+    parser.add_argument("--peers", default="", help="comma-separated: hand,stl,ets,prophet,capa,kernelcpd")
+    parser.add_argument("--peer-sample", type=int, default=0, help="score slow peers on this many accounts a fleet (0 = all)")
+    parser.add_argument("--qq", help="write a QQ plot of quiet accounts' p-values (PNG) here")
+    args = parser.parse_args(argv)
+    peers = [p for p in args.peers.split(",") if p]
+    families = args.families.split(",")
+    qq = {}
+    for family in families:
+        tag = "development" if family == DEV_FAMILY else "held out"
+        print(f"\n== family {family} ({tag}): {args.seeds} seeds x {args.accounts} accounts ==")
+        print(header())
+        total, total_small, matched = {}, {}, {}
+        calib_down, calib_up = [], []
+        timing = {}
+        for seed in range(args.first_seed, args.first_seed + args.seeds):
+            fleet = generate(family, args.accounts, seed, share_changed=args.share_changed)
+            with tempfile.TemporaryDirectory() as tmp:
+                started = time.perf_counter()
+                flags, scores = planted.run_ebbwatch(fleet, Path(tmp))
+                timing.setdefault("ebbwatch", []).append((time.perf_counter() - started) / len(fleet.accounts))
+            result = planted.recall(fleet.truth, flags)
+            planted.add(total, result)
+            planted.add(total_small, planted.recall(fleet.truth, flags, small=True))
+            print(line(f"seed {seed}", result))
+            cal = planted.calibration(fleet.truth, scores)
+            calib_down.append(cal["p_down"])
+            calib_up.append(cal["p_up"])
+            if peers:
+                from peers import peer_scores
+
+                judged = scores.set_index("account")
+                down = {a: -np.log10(max(p, 1e-300)) for a, p in judged["p_down"].items()}
+                up = {a: -np.log10(max(p, 1e-300)) for a, p in judged["p_up"].items()}
+                runs = {"ebbwatch": (down, up)}
+                for name in peers:
+                    started = time.perf_counter()
+                    runs[name], n_scored = peer_scores(name, fleet, sample=args.peer_sample)
+                    timing.setdefault(name, []).append((time.perf_counter() - started) / max(n_scored, 1))
+                for name, (d, u) in runs.items():
+                    for rate in (0.01, 0.02):
+                        planted.add(matched.setdefault((name, rate), {}),
+                                    planted.recall_at_false_rate(fleet.truth, d, u, rate))
+        print(line("all seeds", total))
+        print(line("accounts < 5 a day", total_small))
+        p_down, p_up = np.concatenate(calib_down), np.concatenate(calib_up)
+        qq[family] = (p_down, p_up)
+        n = p_down.size
+        cells = []
+        for alpha in planted.ALPHAS:
+            sd = np.sqrt(alpha * (1 - alpha) / max(n, 1))
+            cells.append(f"a={alpha:g}: down {np.mean(p_down < alpha):.4f} up {np.mean(p_up < alpha):.4f} (±{2 * sd:.4f})")
+        print(f"calibration on {n} judged quiet accounts, share with p < a (2 SE): " + "; ".join(cells))
+        if matched:
+            print(f"\nrecall at matched false rates (family {family}, cut on quiet accounts' scores)")
+            for rate in (0.01, 0.02):
+                print(f"  {rate:.0%} of quiet accounts flagged")
+                print("  " + header())
+                for name in ["ebbwatch"] + peers:
+                    print("  " + line(name, matched[(name, rate)]))
+            print("  ms per account: " + ", ".join(f"{k} {1000 * np.median(v):.2f}" for k, v in timing.items()))
+    if args.qq:
+        write_qq(qq, args.qq)
+
+
+def write_qq(qq: dict, path: str):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, axes = plt.subplots(1, len(qq), figsize=(4 * len(qq), 4), squeeze=False)
+    for ax, (family, (p_down, p_up)) in zip(axes[0], qq.items()):
+        for p, label in ((p_down, "down"), (p_up, "up")):
+            p = np.sort(p[np.isfinite(p)])
+            expected = (np.arange(1, p.size + 1) - 0.5) / p.size
+            ax.plot(-np.log10(expected), -np.log10(np.maximum(p, 1e-12)), ".", ms=3, label=label)
+        top = 4
+        ax.plot([0, top], [0, top], "k-", lw=0.8)
+        ax.set_xlim(0, top)
+        ax.set_ylim(0, top + 1)
+        ax.set_title(f"family {family}: quiet accounts")
+        ax.set_xlabel("expected −log10 p")
+        ax.set_ylabel("observed −log10 p")
+        ax.legend()
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    print(f"QQ plot written to {path}")
 
 
 if __name__ == "__main__":
