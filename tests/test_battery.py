@@ -7,17 +7,20 @@ import pickle
 import numpy as np
 import pytest
 
-from ebbwatch.baseline import LevelDistribution, WeekdayProfile, WindowCountModel
+from ebbwatch.baseline import WeekdayProfile
 from ebbwatch.detect.changepoint import ChangepointSearch
+from ebbwatch.detect.contrasts import WindowTests
 
 RNG = np.random.default_rng(11)
 DAILY = RNG.poisson(30, size=(6, 140)).astype(float)
-WINDOWS = RNG.lognormal(3, 0.3, size=(6, 120))
+
+
+def _fit_window_tests(model, x):
+    return model.fit(x, np.ones_like(x), np.zeros(len(x), int), np.full(len(x), 0.5))
 
 CASES = [
     (WeekdayProfile(), lambda m, x: m.fit(x, 0), DAILY, ["factors_", "weeks_"]),
-    (LevelDistribution(), lambda m, x: m.fit(x), WINDOWS, ["mu_", "sigma_", "weights_", "means_", "variances_", "bic_", "model_", "median_"]),
-    (WindowCountModel(), lambda m, x: m.fit(x), DAILY[:, :100] * 7, ["mean_", "dispersion_"]),
+    (WindowTests(reference_days=56), _fit_window_tests, DAILY, ["p_low_", "p_high_", "z_", "change_pct_", "growth_"]),
     (ChangepointSearch(), lambda m, x: m.fit(x), np.log(DAILY + 1), ["sigma_"]),
 ]
 IDS = [type(c[0]).__name__ for c in CASES]

@@ -136,9 +136,9 @@ def test_jsonl_schema_is_pinned(store):
     result = CliRunner().invoke(main, ["scan", "--db", db, "--as-of", fleet.as_of.isoformat(), "--format", "jsonl", "--all"])
     record = json.loads(result.stdout.splitlines()[0])
     assert list(record) == ["schema", "account", "name", "kind", "direction", "as_of", "severity", "p_value", "q_value",
-                            "percentile", "change_pct", "level", "baseline_level", "onset", "baseline", "state",
-                            "drivers", "message", "silent_days", "trend_change_pct"]
-    assert record["schema"] == 1
+                            "percentile", "change_pct", "window_days", "level", "baseline_level", "onset", "baseline",
+                            "state", "drivers", "message", "silent_days", "trend_change_pct"]
+    assert record["schema"] == 2
 
 
 def test_hostile_account_name_is_inert_in_message_csv_and_markdown(store):
@@ -166,7 +166,7 @@ def test_explain_command_text_json_and_plot(store, tmp_path):
     text = runner.invoke(main, ["explain", target, "--db", db, "--as-of", fleet.as_of.isoformat()])
     assert text.exit_code == 0 and "baseline" in text.stdout and "changepoint" in text.stdout
     doc = json.loads(runner.invoke(main, ["explain", target, "--db", db, "--format", "json"]).stdout)
-    assert doc["baseline"]["model"] in ("lognormal", "mixture", "negbin") and len(doc["weekday_factors"]) == 7
+    assert doc["baseline"]["model"] in ("history", "prior") and len(doc["weekday_factors"]) == 7
     assert doc["p_down"] < 1e-4 and doc["changepoint"]["onset"] is not None
     pytest.importorskip("matplotlib")
     plot = tmp_path / "chart.svg"

@@ -7,37 +7,10 @@ from ruptures.metrics import hausdorff, precision_recall
 from scipy import stats
 
 from ebbwatch.alerts import benjamini_hochberg
-from ebbwatch.baseline import LevelDistribution, nbinom_mid_p
-from ebbwatch.baseline.mixture import fit_normal, fit_two_gaussians, row_quantiles
+from ebbwatch.baseline import nbinom_mid_p
+from ebbwatch.detect.calibrate import cauchy_combination, history_tail_p, nested_min_p
 from ebbwatch.detect.changepoint import ChangepointSearch, cusum_split
 from ebbwatch.detect.trend import mann_kendall, theil_sen
-
-
-def test_lognormal_tails_match_scipy_lognorm():
-    """Reference: scipy.stats.lognorm with the same shape and scale."""
-    rng = np.random.default_rng(1)
-    sample = rng.lognormal(3.0, 0.4, size=(3, 300))
-    model = LevelDistribution(model="lognormal", window=1).fit(sample)
-    level = np.array([5.0, 20.0, 60.0])
-    low, high = model.parametric_tails(level)
-    ref = stats.lognorm(s=model.sigma_, scale=np.exp(model.mu_))
-    np.testing.assert_allclose(low, ref.cdf(level + model.offset_), rtol=1e-10)
-    np.testing.assert_allclose(high, ref.sf(level + model.offset_), rtol=1e-10)
-
-
-def test_mixture_tails_match_a_scipy_norm_mixture():
-    """Reference: the weighted sum of scipy.stats.norm CDFs at the fitted parameters."""
-    rng = np.random.default_rng(2)
-    sample = np.exp(np.concatenate([rng.normal(2, 0.1, 200), rng.normal(3.5, 0.1, 200)]))[None, :]
-    model = LevelDistribution(model="mixture", window=1).fit(sample)
-    level = np.array([np.exp(2.7)])
-    low, _ = model.parametric_tails(level)
-    x = np.log(level + model.offset_)[0]
-    ref = sum(w * stats.norm(m, np.sqrt(v)).cdf(x) for w, m, v in
-              zip(model.weights_[0], model.means_[0], model.variances_[0]))
-    assert low[0] == pytest.approx(ref, rel=1e-10)
-    # Between the two peaks the level sits near the lower component's weight: not a tail.
-    assert 0.4 < low[0] < 0.6
 
 
 def test_negative_binomial_mid_p_against_scipy_nbinom():
@@ -54,63 +27,66 @@ def test_negative_binomial_mid_p_against_scipy_nbinom():
     assert low[0] == pytest.approx(stats.poisson(7).cdf(2) + 0.5 * stats.poisson(7).pmf(3))
 
 
-def test_batched_em_matches_scikit_learn_gaussian_mixture():
-    """Reference: sklearn.mixture.GaussianMixture (full EM, tight tolerance), account by account."""
-    from sklearn.mixture import GaussianMixture
-
-    rng = np.random.default_rng(3)
-    samples = []
-    for a in range(5):
-        n1, n2 = 150 + 20 * a, 250 - 20 * a
-        samples.append(np.concatenate([rng.normal(-1 - a * 0.3, 0.5, n1), rng.normal(2 + a * 0.2, 0.8, n2)]))
-    x = np.stack(samples)
-    w, m, v, _, _ = fit_two_gaussians(x, max_iter=500, tol=1e-10, var_floor=1e-6, min_weight=0.01)
-    for a in range(5):
-        gm = GaussianMixture(2, tol=1e-10, max_iter=1000, random_state=0, reg_covar=1e-6).fit(x[a][:, None])
-        order = np.argsort(gm.means_[:, 0])
-        np.testing.assert_allclose(w[a], gm.weights_[order], atol=5e-3)
-        np.testing.assert_allclose(m[a], gm.means_[order, 0], atol=5e-3)
-        np.testing.assert_allclose(v[a], gm.covariances_[order, 0, 0], rtol=1e-2)
+def test_history_tail_p_is_the_t_tail_or_the_conformal_rank():
+    """References: scipy.stats.t for the tail (no history, and beyond the empirical anchor it is
+    never lighter than the t); the conformal p-value (r + 1) / (n + 1) of Vovk, Gammerman &
+    Shafer (2005) in the bulk."""
+    rng = np.random.default_rng(8)
+    z = np.array([-1.0, -3.0, -6.0])
+    empty = np.full((3, 0), np.nan)
+    np.testing.assert_allclose(history_tail_p(z, empty, 7.0, 5), stats.t.cdf(z, 7.0), rtol=1e-12)
+    history = rng.standard_normal((3, 400))
+    p = history_tail_p(z, history, 30.0, 5)
+    assert p[0] == pytest.approx(((history[0] <= -1.0).sum() + 1) / 401)
+    assert p[2] >= stats.t.cdf(-6.0, 30.0) and p[2] < 1e-5  # far outside: says how far
+    assert history_tail_p(-z, -history, 30.0, 5, lower=False)[0] == pytest.approx(p[0])
 
 
-def test_em_and_normal_log_likelihoods_match_scipy_norm_densities():
-    """Reference: scipy.stats.norm.logpdf summed over each row's finite values, at the fitted
-    parameters (one component: the ML mean and variance; two: the weighted density sum)."""
-    rng = np.random.default_rng(5)
-    x = np.concatenate([rng.normal(0, 1, (4, 60)), rng.normal(3, 0.5, (4, 40))], axis=1)
-    x[rng.random(x.shape) < 0.15] = np.nan
-    mean, var, loglik1 = fit_normal(x)
-    w, m, v, loglik2, _ = fit_two_gaussians(x, max_iter=50, var_floor=1e-6, min_weight=0.01)
-    for a in range(4):
-        row = x[a][np.isfinite(x[a])]
-        np.testing.assert_allclose(mean[a], row.mean(), rtol=1e-12)
-        np.testing.assert_allclose(var[a], row.var(), rtol=1e-12)
-        np.testing.assert_allclose(loglik1[a], stats.norm(row.mean(), row.std()).logpdf(row).sum(), rtol=1e-10)
-        density = sum(w[a, k] * stats.norm(m[a, k], np.sqrt(v[a, k])).pdf(row) for k in range(2))
-        np.testing.assert_allclose(loglik2[a], np.log(density).sum(), rtol=1e-10)
+def test_history_tail_p_is_uniform_on_exchangeable_draws():
+    """Reference: the uniform distribution.  A draw exchangeable with its history of 300 falls
+    below alpha with probability alpha, within binomial error: in the conformal bulk (alpha >=
+    5/301) whatever the distribution, here Student-t with 3 degrees of freedom; beyond the
+    anchor, where the t tail carries on, for data whose tail the t matches (normal draws)."""
+    rng = np.random.default_rng(9)
+    heavy = rng.standard_t(3, size=(20_000, 301))
+    p = history_tail_p(heavy[:, 0], heavy[:, 1:], 30.0, 5)
+    for alpha in (0.05, 0.1, 0.2):
+        se = np.sqrt(alpha * (1 - alpha) / len(p))
+        assert abs(np.mean(p < alpha) - alpha) < 4 * se, alpha
+    normal = rng.standard_normal((40_000, 301))
+    p = history_tail_p(normal[:, 0], normal[:, 1:], 50.0, 5, independent=True)
+    for alpha in (0.001, 0.01, 0.05):
+        se = np.sqrt(alpha * (1 - alpha) / len(p))
+        assert abs(np.mean(p < alpha) - alpha) < 4 * se, alpha
 
 
-def test_row_quantiles_match_numpy_nanpercentile():
-    """Reference: numpy.nanpercentile (linear interpolation), row by row; an empty row gives 0."""
-    rng = np.random.default_rng(6)
-    x = rng.normal(size=(6, 37))
-    x[rng.random(x.shape) < 0.3] = np.nan
-    x[0] = np.nan
-    x[1, 1:] = np.nan
-    got = row_quantiles(x, (0.0, 0.25, 0.5, 0.75, 1.0))
-    assert np.all(got[0] == 0)
-    for a in range(1, 6):
-        np.testing.assert_allclose(got[a], np.nanpercentile(x[a], [0, 25, 50, 75, 100]), rtol=1e-12)
+def test_cauchy_combination_against_scipy_cauchy():
+    """Reference: Liu & Xie (2020): the combined p is scipy.stats.cauchy's survival function at
+    the weighted mean of tan((0.5 - p) pi); one test, or equal p-values, give that p back."""
+    p = np.array([[0.01, 0.2, 0.5], [0.03, 0.2, 0.9]])
+    expected = stats.cauchy.sf(np.tan((0.5 - p) * np.pi).mean(axis=0))
+    np.testing.assert_allclose(cauchy_combination(p), expected, rtol=1e-10)
+    np.testing.assert_allclose(cauchy_combination(p[:1]), p[0], rtol=1e-10)
 
 
-def test_bic_prefers_two_components_for_two_separated_groups():
-    """Reference: ../shared/METHODS.md (checked with scikit-learn): on 300 N(0,1) + 300 N(8,1)
-    BIC is lowest at k = 2.  One group alone prefers one component."""
-    rng = np.random.default_rng(4)
-    two = np.exp(np.concatenate([rng.normal(0, 1, 300), rng.normal(8, 1, 300)]))
-    one = np.exp(rng.normal(0, 1, 600))
-    model = LevelDistribution(model="auto", window=1, offset_share=1e-9, var_floor=1e-6).fit(np.stack([two, one]))
-    assert list(model.model_) == ["mixture", "lognormal"]
+def test_nested_window_multiplicity_against_scipy_multivariate_normal():
+    """Reference: scipy.stats.multivariate_normal (Genz's integration) for the chance that the
+    smallest of the windows' z falls below -2, with the covariance of nested means of
+    independent days beside a shared reference: Cov(z_j, z_k) = (1/max(j, k) + 1/R) /
+    sqrt((1/j + 1/R)(1/k + 1/R)).  A single window needs no correction."""
+    from ebbwatch.detect.calibrate import nested_window_multiplicity
+
+    windows, reference = (1, 2, 3, 5, 7, 14, 28), 182
+    k = np.array(windows, float)
+    var = 1 / k + 1 / reference
+    cov = (1 / np.maximum.outer(k, k) + 1 / reference) / np.sqrt(np.outer(var, var))
+    exact = 1 - stats.multivariate_normal(mean=np.zeros(7), cov=cov, abseps=1e-6, releps=1e-6).cdf(np.full(7, 2.0))
+    grid, factor = nested_window_multiplicity(windows, reference)
+    got = np.interp(-2.0, grid, factor) * stats.norm.cdf(-2.0)
+    assert got == pytest.approx(exact, rel=0.05)
+    assert 1.0 < np.interp(-3.0, grid, factor) < len(windows)  # well under Bonferroni's
+    single = nested_min_p(np.array([[1e-3, 0.02]]), (7,), reference)
+    np.testing.assert_allclose(single, [1e-3, 0.02], rtol=0.05)
 
 
 @pytest.mark.parametrize("seed", range(5))

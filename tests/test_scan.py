@@ -52,8 +52,8 @@ def test_chunk_size_never_changes_a_score(fleet_store):
     fleet, db = fleet_store
     whole = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=10_000, threads=1)
     pieces = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, chunk_size=7, threads=3)
-    assert (whole.attrs["scores"]["model"] == "negbin").any()  # the pooled count model is exercised
-    assert (whole.attrs["scores"]["model"] == "mixture").any()  # and the EM
+    assert whole.attrs["scores"]["low_volume"].any()  # the count floor (pooled dispersion) is exercised
+    assert (whole.attrs["scores"]["model"] == "prior").any()  # and the fleet-wide window priors
     pd.testing.assert_frame_equal(whole.attrs["scores"].drop(columns="weekday_factors"),
                                   pieces.attrs["scores"].drop(columns="weekday_factors"))
     pd.testing.assert_frame_equal(whole.drop(columns="drivers"), pieces.drop(columns="drivers"))
@@ -94,20 +94,25 @@ def test_cli_jsonl_has_the_documented_keys_and_one_line_messages(fleet_store):
     assert len(lines) == 7
     for line in lines:
         record = json.loads(line)
-        assert all(k in record for k in REQUIRED) and record["schema"] == 1
+        assert all(k in record for k in REQUIRED) and record["schema"] == 2
         assert "\n" not in record["message"] and record["message"].endswith(".")
     assert result.stderr == ""  # no terminal: no progress, and the summary line is for tables only
 
 
 def test_messages_with_drivers_never_show_a_missing_value(fleet_store):
-    """An alert without an onset (a surge, say) or a change says nothing of it: pandas keeps a
-    missing value in a text column as NaN, which once reached the chat message as 'since nan'."""
+    """An alert without an onset or a change says nothing of it: pandas keeps a missing value in
+    a text column as NaN, which once reached the chat message as 'since nan'."""
+    from ebbwatch.alerts import alert_message
+
     fleet, db = fleet_store
     alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
-    assert alerts["onset"].isna().any() and alerts["onset"].notna().any()
+    assert alerts["onset"].notna().any()
     for message, onset in zip(alerts["message"], alerts["onset"]):
         assert not re.search(r"\bnan\b", message, re.IGNORECASE), message
         assert ("since" in message) == isinstance(onset, str)
+    record = alerts.iloc[0].to_dict() | {"onset": float("nan"), "change_pct": float("nan")}
+    message = alert_message(record, 7)
+    assert "since" not in message and not re.search(r"\bnan\b", message, re.IGNORECASE), message
 
 
 def test_cli_table_kind_filter_and_fail_on_alert(fleet_store):

@@ -12,7 +12,7 @@ from scipy import stats
 from .frames import ALERT_COLUMNS, ALERT_KINDS
 from .textsafe import plain_text
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 EPOCH = date(1970, 1, 1)
 MAX_SEVERITY = 99.0
 
@@ -78,12 +78,17 @@ def select_alerts(
     q = benjamini_hochberg(np.concatenate([judged["p_down"].to_numpy(float), judged["p_up"].to_numpy(float)]),
                            family_size=family_size)
     q_down, q_up = q[:n], q[n:]
-    change = judged["change_pct"].to_numpy(float)
+    # Each direction's change is the one its own most telling window saw (score frames from
+    # before the window tests carry one change_pct for both).
+    change_down = judged.get("change_down_pct", judged["change_pct"]).to_numpy(float)
+    change_up = judged.get("change_up_pct", judged["change_pct"]).to_numpy(float)
+    window_down = judged.get("window_down", pd.Series(window_days, index=judged.index)).to_numpy()
+    window_up = judged.get("window_up", pd.Series(window_days, index=judged.index)).to_numpy()
     trend = judged["trend_change_pct"].to_numpy(float)
     kind_down = judged["down_kind"].to_numpy(object)
-    big_drop = (change <= -min_change_pct) | ((kind_down == "slide") & (np.nan_to_num(trend) <= -min_change_pct))
+    big_drop = (change_down <= -min_change_pct) | ((kind_down == "slide") & (np.nan_to_num(trend) <= -min_change_pct))
     effect_down = np.where(kind_down == "stop", True, big_drop)
-    effect_up = change >= min_change_pct
+    effect_up = change_up >= min_change_pct
     down = (q_down <= fdr) & effect_down
     up = (q_up <= fdr) & effect_up
     both = down & up
@@ -93,7 +98,7 @@ def select_alerts(
     # Columns as plain arrays: a row lookup per alert (DataFrame.iloc) costs ~0.25 ms, which
     # adds up over thousands of alerts.
     col = {name: judged[name].to_numpy() for name in ("account", "down_kind", "onset_day", "percentile",
-                                                      "change_pct", "level", "baseline_level", "model",
+                                                      "level", "baseline_level", "model",
                                                       "silent_days", "trend_change_pct")}
     for direction, mask, qv, pv in (("down", down, q_down, judged["p_down"].to_numpy(float)),
                                     ("up", up, q_up, judged["p_up"].to_numpy(float))):
@@ -105,7 +110,9 @@ def select_alerts(
             if severity < min_severity:
                 continue
             account, onset_day = col["account"][i], col["onset_day"][i]
-            change, baseline_level, trend = col["change_pct"][i], col["baseline_level"][i], col["trend_change_pct"][i]
+            change = change_down[i] if direction == "down" else change_up[i]
+            window = int(window_down[i] if direction == "down" else window_up[i])
+            baseline_level, trend = col["baseline_level"][i], col["trend_change_pct"][i]
             alert = {
                 "account": account,
                 "name": names.get(account) or account,
@@ -123,10 +130,11 @@ def select_alerts(
                 "baseline": col["model"][i],
                 "silent_days": int(col["silent_days"][i]),
                 "trend_change_pct": None if not np.isfinite(trend) else round(float(trend), 1),
+                "window_days": window,
             }
             alert["state"] = "new"
             alert["drivers"] = []
-            alert["message"] = alert_message(alert, window_days)
+            alert["message"] = alert_message(alert, window)
             rows.append(alert)
     columns = list(ALERT_COLUMNS) + ["silent_days", "trend_change_pct"]
     alerts = pd.DataFrame(rows, columns=columns)
@@ -141,6 +149,10 @@ def select_alerts(
 def _given(value):
     """``value``, or None when it is missing (None, or the NaN a DataFrame keeps instead)."""
     return None if value is None or value != value else value
+
+
+def _last_days(days: int) -> str:
+    return "the last day" if int(days) == 1 else f"the last {int(days)} days"
 
 
 def alert_message(alert: dict, window_days: int, drivers: str = "") -> str:
@@ -163,10 +175,10 @@ def alert_message(alert: dict, window_days: int, drivers: str = "") -> str:
             text += f" (trend {slid:+.0f}% over recent weeks)"
     elif alert["kind"] == "drop":
         amount = f"{abs(change):.0f}%" if change is not None else "sharply"
-        text = f"{who}: activity down {amount} over the last {window_days} days vs its usual level{since}"
+        text = f"{who}: activity down {amount} over {_last_days(window_days)} vs its usual level{since}"
     else:
         amount = f"{change:.0f}%" if change is not None else "from almost nothing"
-        text = f"{who}: activity up {amount} over the last {window_days} days vs its usual level{since}"
+        text = f"{who}: activity up {amount} over {_last_days(window_days)} vs its usual level{since}"
     side = "below" if alert["direction"] == "down" else "above"
     share = alert["percentile"] if side == "below" else 100 - alert["percentile"]
     tail = f"; {drivers}" if drivers else ""

@@ -284,7 +284,8 @@ def _scan_params(cfg: Config):
 
 def _fleet_params(cfg: Config, loader):
     """The scan's settings with the fleet-wide quantities the loader measured."""
-    return replace(_scan_params(cfg), pooled_count_dispersion=loader.count_dispersion)
+    return replace(_scan_params(cfg), pooled_count_dispersion=loader.count_dispersion,
+                   window_priors=loader.window_priors)
 
 
 def _score_chunk(panel, *, cfg: Config, loader):
@@ -330,6 +331,7 @@ class PanelLoader:
         self.fleet_factor = None
         self.masked = None
         self.count_dispersion = None
+        self.window_priors = None
         self._fleet_fit = None  # a Future while the fit runs in the background
 
     def _rows(self, accounts, *, users: bool = False, ranges=None, st=None):
@@ -380,14 +382,18 @@ class PanelLoader:
         """Measure the fleet-wide quantities (factor, gap mask, count dispersion) on the fleet
         sample of ``accounts``, read through ``st`` (default the loader's store)."""
         from .baseline.counts import pooled_dispersion
+        from .detect import fleet_window_priors
         from .series import fleet_factor, missing_before_first_activity
 
         counts = self.sample_counts(accounts, st)
         self.fleet_factor, self.masked = fleet_factor(counts)
-        # The same fleet-wide count dispersion for every chunk (see backtest.replay_fleet_factors).
+        # The same fleet-wide count dispersion and window priors for every chunk (see
+        # backtest.replay_fleet_factors).
         started = missing_before_first_activity(counts)
         started[:, self.masked] = np.nan
         self.count_dispersion = pooled_dispersion(started, window=self.cfg.scan.window_days)
+        self.window_priors = fleet_window_priors(counts, self.fleet_factor, self.masked,
+                                                 np.arange(self.start_day, self.end_day + 1), _scan_params(self.cfg))
         return self
 
     def read(self, accounts):
@@ -649,10 +655,11 @@ def _add_drivers(st, loader, scores, alerts, as_of, window_days):
     # Records from column lists: DataFrame.to_dict("records") boxes every cell (~0.15 s for
     # ~5,000 alerts).
     fields = ("account", "name", "kind", "direction", "change_pct", "onset", "silent_days",
-              "trend_change_pct", "percentile", "severity")
+              "trend_change_pct", "percentile", "severity", "window_days")
     columns = [alerts[name].tolist() for name in fields]
-    alerts["message"] = [alert_message(dict(zip(fields, values)), window_days, drivers_phrase(found, plain_text))
-                         for values, found in zip(zip(*columns), driver_lists)]
+    records = [dict(zip(fields, values)) for values in zip(*columns)]
+    alerts["message"] = [alert_message(record, record["window_days"], drivers_phrase(found, plain_text))
+                         for record, found in zip(records, driver_lists)]
 
 
 # -- explain, snooze, alert history -----------------------------------------------------------
@@ -683,14 +690,15 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         drivers = _find_drivers(st, loader, [(account, reference_end, direction)], as_of, cfg.scan.window_days)[0]
     weekday_names = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
     f = lambda v: None if v is None or (isinstance(v, float) and not np.isfinite(v)) else float(v)  # noqa: E731
-    bic_one, bic_two = f(row["bic_lognormal"]), f(row["bic_mixture"])
-    if row["model"] == "negbin":
-        why = "low volume: a negative binomial on window totals, dispersion pooled across accounts"
-    elif bic_two is None:
-        why = "log-normal: the two-peak mixture was not needed (the level is not in either tail)"
+    points = int(row["n_reference"])
+    if row["model"] == "history":
+        why = (f"its own history: the same comparisons on {points} earlier days show how much its "
+               "activity varies when nothing in particular happens")
     else:
-        why = (f"BIC one peak {bic_one:.1f} vs two peaks {bic_two:.1f}: "
-               + ("two peaks preferred" if row["model"] == "mixture" else "one peak preferred"))
+        why = (f"mostly the fleet's typical variation: only {points} earlier days to compare with, "
+               "so its own history is weighted against the fleet's")
+    if row["low_volume"]:
+        why += "; low volume, so a drop is never more significant than a negative binomial count allows"
     days = panel.days
     return {
         "account": account,
@@ -699,13 +707,13 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         "status": row["status"],
         "masked_days_in_window": [day_to_date(x).isoformat() for x in days[-cfg.scan.window_days:]
                                   if loader.masked[int(x) - loader.start_day]],
-        "baseline": {"model": row["model"], "why": why, "bic_one_peak": bic_one, "bic_two_peaks": bic_two,
-                     "reference_windows": int(row["n_reference"]), "low_volume": bool(row["low_volume"]),
+        "baseline": {"model": row["model"], "why": why, "history_days": points,
+                     "growth_pct_year": f(row["growth_pct_year"]), "low_volume": bool(row["low_volume"]),
                      "reference_ends": day_to_date(reference_end).isoformat()},
         "weekday_factors": dict(zip(weekday_names, (round(float(v), 3) for v in row["weekday_factors"]))),
-        "recent": {"window_days": cfg.scan.window_days, "level": f(row["level"]), "usual_level": f(row["baseline_level"]),
-                   "change_pct": f(row["change_pct"]), "percentile": f(row["percentile"]),
-                   "p_low": f(row["p_level_low"]), "p_high": f(row["p_level_high"])},
+        "recent": {"window_days": int(row["window_days"]), "level": f(row["level"]),
+                   "usual_level": f(row["baseline_level"]), "change_pct": f(row["change_pct"]),
+                   "percentile": f(row["percentile"]), "p_low": f(row["p_level_low"]), "p_high": f(row["p_level_high"])},
         "changepoint": {"onset": None if row["onset_day"] < 0 else day_to_date(row["onset_day"]).isoformat(),
                         "level_before": f(row["level_before"]), "level_after": f(row["level_after"]),
                         "kind_if_down": row["down_kind"]},

@@ -14,7 +14,7 @@ import pandas as pd
 
 from .alerts import select_alerts
 from .baseline.counts import pooled_dispersion
-from .detect import ScanParams, score_panel
+from .detect import ScanParams, fleet_window_priors, score_panel
 from .series import Panel, fleet_factor, missing_before_first_activity
 
 DOWN_OUTCOMES = ("churned", "contracted")
@@ -50,7 +50,7 @@ def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history
 
     ``sample_counts`` (S, D): raw event totals of a sample of accounts over the whole history
     (NaN or 0 where none), column 0 being day ``panel_start``.  Returns per day in
-    ``as_of_days`` a tuple ``(factor, masked, count_dispersion)`` over the ``history_days``
+    ``as_of_days`` a tuple ``(factor, masked, count_dispersion, window_priors)`` over the ``history_days``
     columns ending on that day, computed only from columns up to it (the fleet factor and
     data-gap mask of ``series.fleet_factor``, the pooled dispersion of
     ``baseline.counts.pooled_dispersion``).
@@ -61,10 +61,12 @@ def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history
     for day in as_of_days:
         end = day - panel_start
         factor, masked = fleet_factor(_columns(raw, end - history_days + 1, end, 0.0))
+        window = _columns(raw, end - history_days + 1, end, 0.0)
         seen = _columns(started, end - history_days + 1, end, np.nan)
         seen[:, masked] = np.nan
-        dispersion = pooled_dispersion(seen, window=params.window_days, low_volume_events=params.low_volume_events)
-        out.append((factor, masked, dispersion))
+        dispersion = pooled_dispersion(seen, window=params.window_days)
+        priors = fleet_window_priors(window, factor, masked, np.arange(day - history_days + 1, day + 1), params)
+        out.append((factor, masked, dispersion, priors))
     return out
 
 
@@ -92,13 +94,13 @@ def replay_scores(panel: Panel, as_of_days, fleet_factors: list, *, params: Scan
     """
     churn = np.full(len(panel.accounts), np.iinfo(np.int64).max) if churn is None else np.asarray(churn)
     found, judged = [], np.zeros(len(as_of_days), dtype=np.int64)
-    for i, (day, (factor, masked, dispersion)) in enumerate(zip(as_of_days, fleet_factors)):
+    for i, (day, (factor, masked, dispersion, priors)) in enumerate(zip(as_of_days, fleet_factors)):
         end = day - panel.start_day
         part = _slice(panel, end - history_days + 1, end, factor, masked)
         keep = np.flatnonzero(churn > day)
         part = Panel([panel.accounts[k] for k in keep], part.start_day, part.values[keep], part.counts[keep],
                      part.first_seen[keep], part.masked, part.fleet_factor)
-        scores = score_panel(part, replace(params, pooled_count_dispersion=dispersion))
+        scores = score_panel(part, replace(params, pooled_count_dispersion=dispersion, window_priors=priors))
         is_judged = (scores["status"] == "judged").to_numpy()
         judged[i] = int(is_judged.sum())
         small = np.minimum(scores["p_down"].to_numpy(float), scores["p_up"].to_numpy(float)) <= fdr

@@ -16,6 +16,7 @@ ALERT_COLUMNS = (
     "q_value",
     "percentile",
     "change_pct",
+    "window_days",
     "level",
     "baseline_level",
     "onset",

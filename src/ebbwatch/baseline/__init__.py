@@ -1,7 +1,6 @@
-"""Per-account baselines: weekday profile, level distribution, count model."""
+"""Per-account baselines: weekday profile and the negative-binomial count model."""
 
-from .counts import WindowCountModel, nbinom_mid_p
-from .level import LEVEL_MODELS, LevelDistribution
+from .counts import nbinom_mid_p, pooled_dispersion
 from .weekday import WeekdayProfile
 
-__all__ = ["LEVEL_MODELS", "LevelDistribution", "WeekdayProfile", "WindowCountModel", "nbinom_mid_p"]
+__all__ = ["WeekdayProfile", "nbinom_mid_p", "pooled_dispersion"]

@@ -1,11 +1,10 @@
-"""Count model for low-volume accounts: negative binomial on window totals."""
+"""Count model for low-volume windows: negative-binomial tails and the fleet's pooled dispersion."""
 
 from __future__ import annotations
 
 import numpy as np
 from scipy import stats
 
-from ._base import Estimator, check_matrix
 
 
 def nbinom_mid_p(total, mean, dispersion):
@@ -60,58 +59,3 @@ def pooled_dispersion(counts, *, window: int = 7, low_volume_events: float = 60.
         return 0.0
     raw = np.clip((var[low] - mean[low]) / mean[low] ** 2, 0.0, 50.0)
     return float(np.median(raw))
-
-
-class WindowCountModel(Estimator):
-    """Negative binomial for each account's window totals, dispersion shrunk toward the pool.
-
-    Method-of-moments dispersion ``(var − mean) / mean²`` is unstable on short histories, so it
-    is pulled toward a pooled value, as counts are pooled in Love, Huber & Anders (2014), with
-    ``prior_windows`` windows of weight.  The pool is ``pooled`` when given (the scan passes the
-    fleet's, :func:`pooled_dispersion`), else the median over the accounts fitted together.
-
-    Parameters
-    ----------
-    window : int
-        Days per window (for the effective sample size of overlapping windows).
-    prior_windows : float
-        Weight of the pooled dispersion, in windows.
-    pooled : float or None
-        The dispersion to shrink toward; None pools over the accounts fitted together.
-    """
-
-    _parameters = ("window", "prior_windows", "pooled")
-
-    def __init__(self, window: int = 7, prior_windows: float = 8.0, pooled: float | None = None):
-        self.window = window
-        self.prior_windows = prior_windows
-        self.pooled = pooled
-
-    def fit(self, totals):
-        """``totals`` (A, N): reference window totals (NaN = not in the reference)."""
-        if self.window < 1 or self.prior_windows < 0 or (self.pooled is not None and self.pooled < 0):
-            raise ValueError("window must be >= 1, prior_windows >= 0 and pooled >= 0")
-        totals = check_matrix(totals, "totals")
-        valid = np.isfinite(totals)
-        n = valid.sum(axis=1)
-        safe = np.where(valid, totals, 0.0)
-        mean = safe.sum(axis=1) / np.maximum(n, 1)
-        var = np.where(valid, (safe - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(n - 1, 1)
-        with np.errstate(all="ignore"):
-            raw = np.where(mean > 0, (var - mean) / mean**2, 0.0)
-        raw = np.clip(raw, 0.0, 50.0)
-        fitted = n >= 2
-        if self.pooled is not None:
-            pool = float(self.pooled)
-        else:
-            pool = float(np.median(raw[fitted])) if fitted.any() else 0.0
-        n_eff = n / self.window
-        self.mean_ = mean
-        self.dispersion_ = (n_eff * raw + self.prior_windows * pool) / np.maximum(n_eff + self.prior_windows, 1e-9)
-        self.pooled_dispersion_ = pool
-        return self
-
-    def tails(self, total):
-        """Mid-p ``(p_low, p_high)`` of each account's window total (A,)."""
-        self._check_fitted("mean_")
-        return nbinom_mid_p(np.round(np.asarray(total, float)), self.mean_, self.dispersion_)

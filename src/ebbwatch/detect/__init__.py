@@ -11,11 +11,13 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..baseline import LevelDistribution, WeekdayProfile, WindowCountModel
-from ..series import Panel, adjust_for_fleet, quiet_nanmean, weekday_of
+from ..baseline import WeekdayProfile
+from ..series import Panel, adjust_for_fleet, missing_before_first_activity, quiet_nanmean, weekday_of
+from .calibrate import cauchy_combination, nested_min_p
 from .changepoint import ChangepointSearch, cusum_split, fill_gaps, robust_sigma
+from .contrasts import BASE_WINDOW, WindowPriors, WindowTests, window_priors
 from .silence import last_active_column, silence
-from .tail import reference_mask, rolling_window
+from .tail import rolling_window
 from .trend import step_or_ramp, trend_test
 
 def sustained_changes(values, factors, pair_rows, pair_breakpoints, lookback: int = 56):
@@ -59,76 +61,82 @@ def sustained_changes(values, factors, pair_rows, pair_breakpoints, lookback: in
 class ScanParams:
     """Settings of the per-account scoring (plain values; ``config.ScanConfig`` maps onto them).
 
-    Days are calendar days; ``low_volume_events`` is events per window.
+    Days are calendar days.  ``windows`` are the lengths of the recent windows tested against
+    the ``reference_days`` before them (``contrasts.WindowTests``); ``window_days`` is the
+    window of messages, drivers and the report's level.
     """
 
     window_days: int = 7
     min_history_days: int = 42
     horizon_days: int = 91
-    level_model: str = "auto"
-    low_volume_events: float = 60.0
+    windows: tuple = (1, 2, 3, 5, 7, 14, 28)
+    reference_days: int = 182
+    history_gap_days: int = 60
     cusum_threshold: float = 5.0
     penalty_factor: float = 3.0
     trend_weeks: int = 12
     dormant_days: int = 91
-    # The fleet's count dispersion (baseline.counts.pooled_dispersion); None pools per block.
+    # Fleet-wide quantities (the loader measures them on a sample): the count dispersion of
+    # small accounts (baseline.counts.pooled_dispersion) and the window tests' priors
+    # (fleet_window_priors).  None pools over the block being scored.
     pooled_count_dispersion: float | None = None
+    window_priors: WindowPriors | None = None
     log_offset: float = 0.1
     stop_p: float = 1e-3
     trend_screen_p: float = 0.01
     ramp_advantage: float = 1.0
+    profile_weeks: int = 16
 
 
 SCORE_COLUMNS = (
     "account", "status", "p_down", "p_up", "p_level_low", "p_level_high", "p_trend_down", "p_stop",
-    "percentile", "level", "baseline_level", "change_pct", "trend_change_pct", "onset_day",
-    "level_before", "level_after", "silent_days", "model", "down_kind", "n_reference", "low_volume",
-    "reference_end_day", "bic_lognormal", "bic_mixture", "weekday_factors",
+    "percentile", "level", "baseline_level", "change_pct", "change_down_pct", "change_up_pct", "window_days",
+    "window_down", "window_up", "trend_change_pct", "growth_pct_year", "onset_day", "level_before", "level_after",
+    "silent_days", "model", "down_kind", "n_reference", "low_volume", "reference_end_day", "weekday_factors",
 )
+PRIOR_SAMPLE = 1000  # accounts of the fleet sample the window priors are measured on
 
 
-def _level_tails(values, factors, first_seen, reference_end, window, params):
-    """Tail probabilities of each account's last ``window``-day level against its reference
-    windows of the same length: empirical in the bulk, log-normal / mixture beyond it, and a
-    negative binomial on totals for low-volume accounts.
-
-    Returns ``(p_low, p_high, percentile, baseline_level, model, n_reference, low_volume,
-    current, bic)``, each (A,) but ``bic`` (A, 2): one peak, two peaks (inf where not fitted).
-    """
-    levels, totals = rolling_window(values, window, factors, period=7)
-    n_windows = levels.shape[1]
-    in_reference = reference_mask(n_windows, window, first_seen, reference_end) & np.isfinite(levels)
-    n_reference = in_reference.sum(axis=1)
-    sample = np.where(in_reference, levels, np.nan)
-    current = np.nan_to_num(levels[:, -1])
-    level = LevelDistribution(model=params.level_model, window=window).fit(sample, current)
-    percentile, n_low, n_high = level.empirical(current)
-    p_low, p_high = level.tails(current, counts=(n_low, n_high))
-    baseline_level = level.median()
-    model = level.model_.astype(object)
-    # The mean reference total: totals are finite wherever levels are, so the reference
-    # windows are exactly the valid ones (the mean of np.where(in_reference, totals, nan)).
+def _half_event(panel: Panel) -> np.ndarray:
+    """Half an event in activity-index units, per account (the index may be per seat or user)."""
     with np.errstate(invalid="ignore", divide="ignore"):
-        usual_total = np.where(in_reference, totals, 0.0).sum(axis=1) / n_reference * 7.0 / window
-    low_volume = np.nan_to_num(usual_total) < params.low_volume_events
-    if low_volume.any():
-        total_sample = np.where(in_reference[low_volume], totals[low_volume], np.nan)
-        count_model = WindowCountModel(window=window, pooled=params.pooled_count_dispersion).fit(total_sample)
-        nb_low, nb_high = count_model.tails(np.nan_to_num(totals[low_volume, -1]))
-        n = np.maximum(n_reference[low_volume], 1)
-        p_low[low_volume] = np.where(n_low[low_volume] >= window, n_low[low_volume] / n, nb_low)
-        p_high[low_volume] = np.where(n_high[low_volume] >= window, n_high[low_volume] / n, nb_high)
-        model[low_volume] = "negbin"
-    return p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current, level.bic_
+        per_event = np.nansum(panel.values, axis=1) / np.nansum(panel.counts, axis=1)
+    return 0.5 * np.where(np.isfinite(per_event) & (per_event > 0), per_event, 1.0)
+
+
+def _weekday_factors(values, weekdays, hist_end: int, weeks: int):
+    """Weekday factors (A, D) from the ``weeks`` weeks before the judged window: recent enough that
+    a week shape changed months ago does not linger."""
+    first = max(0, hist_end - 7 * weeks)
+    profile = WeekdayProfile().fit(values[:, first:hist_end], int(weekdays[first]))
+    return profile, profile.factors_[:, weekdays]
+
+
+def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams = ScanParams()) -> WindowPriors:
+    """The window tests' fleet-wide priors from raw daily totals of a fleet sample (S, D) whose
+    columns are the day numbers ``days``, as the scan would see them (days before an account's
+    first activity and masked days missing, the fleet factor divided out)."""
+    counts = np.asarray(counts, float)[:PRIOR_SAMPLE] if len(counts) <= PRIOR_SAMPLE else \
+        np.asarray(counts, float)[:: max(1, len(counts) // PRIOR_SAMPLE)][:PRIOR_SAMPLE]
+    values = missing_before_first_activity(counts)
+    values[:, np.asarray(masked, bool)] = np.nan
+    values = values / np.asarray(fleet_factor, float)[None, :]
+    weekdays = weekday_of(np.asarray(days))
+    hist_end = values.shape[1] - params.window_days
+    _, factors = _weekday_factors(values, weekdays, hist_end, params.profile_weeks)
+    first = np.where(np.isfinite(values).any(axis=1), np.isfinite(values).argmax(axis=1), values.shape[1])
+    return window_priors(values, factors, first, np.full(len(values), 0.5), windows=params.windows,
+                         reference_days=params.reference_days, history_gap_days=params.history_gap_days)
 
 
 def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame:
     """Score the last column of ``panel`` (the as-of day) for every account in it.
 
     Returns a frame with ``SCORE_COLUMNS``, one row per account; ``status`` is ``judged``,
-    ``not_enough_history`` or ``dormant``.  ``p_down``/``p_up`` are
-    per-account p-values (Bonferroni over the downward tests: level, trend, silence), not yet
-    corrected across accounts.  Levels are in activity-index units per day, deseasonalised.
+    ``not_enough_history`` or ``dormant``.  ``p_down``/``p_up`` are per-account p-values, not
+    yet corrected across accounts: the window tests combined through their minimum
+    (``calibrate.nested_min_p``), with the silence test joined by the Cauchy combination when
+    the account has been silent.  Levels are in activity-index units per day, weekday-adjusted.
     """
     W = params.window_days
     values = adjust_for_fleet(panel)
@@ -141,23 +149,38 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     n_history = np.isfinite(values[:, :hist_end]).sum(axis=1)
     enough = n_history >= params.min_history_days
 
-    profile = WeekdayProfile().fit(values[:, :hist_end], int(weekdays[0]))
-    factors = profile.factors_[:, weekdays]
-    z = values / factors
-    scale = quiet_nanmean(z[:, :hist_end], axis=1)
-    scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)
-    u = np.divide(z, scale[:, None])  # log(z / scale + offset), in one array
-    u += params.log_offset
-    np.log(u, out=u)
+    profile, factors = _weekday_factors(values, weekdays, hist_end, params.profile_weeks)
+    half_event = _half_event(panel)
+    tests = WindowTests(windows=params.windows, reference_days=params.reference_days,
+                        history_gap_days=params.history_gap_days).fit(
+        values, factors, first_seen, half_event, priors=params.window_priors,
+        count_dispersion=params.pooled_count_dispersion or 0.0)
+    windows = np.asarray(tests.windows_)
+    p_level_low = nested_min_p(tests.p_low_.T, tests.windows_, params.reference_days)
+    p_level_high = nested_min_p(tests.p_high_.T, tests.windows_, params.reference_days)
+    rows = np.arange(n_accounts)
+    best_down, best_up = tests.p_low_.argmin(axis=1), tests.p_high_.argmin(axis=1)
+    change_down, change_up = tests.change_pct_[rows, best_down], tests.change_pct_[rows, best_up]
+    window_down, window_up = windows[best_down], windows[best_up]
+    enough &= np.isfinite(tests.z_[:, list(tests.windows_).index(BASE_WINDOW)])
 
     # Silence is judged against the history up to the last activity, not against itself.
     last_active = last_active_column(values)
     silent_days, p_silence, last_active = silence(values, np.minimum(hist_end, last_active + 1), weekdays, first_seen,
                                                   last_active=last_active)
     dormant = silent_days >= params.dormant_days
-    p_stop = np.where(silent_days >= 2, p_silence, 1.0)
+    silent = silent_days >= 2
+    p_stop = np.where(silent, p_silence, 1.0)
+    p_down = np.where(silent, cauchy_combination(np.vstack([p_level_low, p_stop])), p_level_low)
+    p_up = p_level_high
 
-    # Changepoint: a vectorised CUSUM screen, then the exact search on the accounts it picks.
+    # Onset and levels: a vectorised CUSUM screen, then the exact search on the accounts it picks.
+    z = values / factors
+    scale = quiet_nanmean(z[:, :hist_end], axis=1)
+    scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)
+    u = np.divide(z, scale[:, None])  # log(z / scale + offset), in one array
+    u += params.log_offset
+    np.log(u, out=u)
     span = min(n_days, params.horizon_days + 91)
     segment = u[:, -span:]
     filled = fill_gaps(segment)
@@ -176,10 +199,10 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
                  if b >= earliest_allowed]
         if pairs:
             pair_rows, pair_bkps = np.array(pairs, dtype=np.int64).T
-            rows, onset, before, after = sustained_changes(values[:, offset:], factors[:, offset:], pair_rows, pair_bkps)
-            onset_col[rows] = offset + onset
-            reference_end[rows] = np.minimum(hist_end, offset + onset)
-            level_before[rows], level_after[rows] = before, after
+            rows_cp, onset, before, after = sustained_changes(values[:, offset:], factors[:, offset:], pair_rows, pair_bkps)
+            onset_col[rows_cp] = offset + onset
+            reference_end[rows_cp] = np.minimum(hist_end, offset + onset)
+            level_before[rows_cp], level_after[rows_cp] = before, after
 
     # Trend over the last weeks (weekly levels, relative to the account's scale).
     weeks = params.trend_weeks
@@ -195,66 +218,60 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
 
     # A stop is a silence unlikely on its own.  Elsewhere, where something changed, is it a ramp
     # (a slide) rather than a step?  A ramp's start then ends the reference history.
-    stop = (silent_days >= 2) & (p_stop <= params.stop_p)
+    stop = silent & (p_stop <= params.stop_p)
     slide = np.zeros(n_accounts, bool)
     changing = np.zeros(n_accounts, bool)
     changing[candidates] = True
-    changing |= p_trend < params.trend_screen_p
+    changing |= (p_trend < params.trend_screen_p) | ((window_down >= 14) & (p_level_low < 0.01))
     maybe = np.flatnonzero(changing & ~stop & enough & ~dormant)
     if maybe.size:
         sse_step, sse_ramp, ramp_start = step_or_ramp(filled[maybe], span - params.horizon_days)
         ramp = sse_ramp < params.ramp_advantage * sse_step
-        rows = maybe[ramp]
-        slide[rows] = True
-        onset_col[rows] = n_days - span + ramp_start[ramp]
-        reference_end[rows] = np.minimum(hist_end, onset_col[rows])
+        ramp_rows = maybe[ramp]
+        slide[ramp_rows] = True
+        onset_col[ramp_rows] = n_days - span + ramp_start[ramp]
+        reference_end[ramp_rows] = np.minimum(hist_end, onset_col[ramp_rows])
 
-    # Level distribution of window levels over the reference history (before a recent change).
-    tails = _level_tails(values, factors, first_seen, reference_end, W, params)
-    p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current, bic = tails
-    # A change inside the window is judged on the days since it, against windows of that length.
-    inside = (onset_col > n_days - W) & (onset_col <= n_days - 2) & ~stop
-    for k in np.unique(n_days - onset_col[inside]):
-        rows = np.flatnonzero(inside & (n_days - onset_col == k))
-        part = _level_tails(values[rows], factors[rows], first_seen[rows],
-                            reference_end[rows], int(k), params)
-        for target, value in zip((p_low, p_high, percentile, baseline_level, model, n_reference, low_volume, current, bic), part):
-            target[rows] = value
-    enough &= n_reference >= max(params.min_history_days - W + 1, 1) // 2
-
-    p_down = np.minimum(1.0, 3.0 * np.minimum.reduce([p_low, p_trend, p_stop]))
-    p_up = np.minimum(1.0, p_high)
-    with np.errstate(all="ignore"):
-        change_pct = 100.0 * (current / baseline_level - 1.0)
-    down_kind = np.where(stop, "stop", np.where(slide, "slide", "drop")).astype(object)
+    # A stop reads as stopped: the change over the silent days, since the last activity.
+    change_down = np.where(stop, -100.0, change_down)
+    window_down = np.where(stop, np.maximum(silent_days, 1), window_down)
     onset_col = np.where(stop, last_active + 1, onset_col)
-
+    # Without a changepoint, a clear change starts where its most telling window does.
+    unexplained = (onset_col < 0) & (np.minimum(p_down, p_up) < 0.05)
+    best_window = np.where(p_down <= p_up, window_down, window_up)
+    onset_col = np.where(unexplained, n_days - best_window, onset_col)
+    down_kind = np.where(stop, "stop", np.where(slide, "slide", "drop")).astype(object)
     status = np.where(~enough, "not_enough_history", np.where(dormant, "dormant", "judged"))
     onset_day = np.where(onset_col >= 0, panel.start_day + onset_col, -1)
+    points = tests.history_points_ / 7.0
     return pd.DataFrame({
         "account": panel.accounts,
         "status": status,
         "p_down": p_down,
         "p_up": p_up,
-        "p_level_low": p_low,
-        "p_level_high": p_high,
+        "p_level_low": p_level_low,
+        "p_level_high": p_level_high,
         "p_trend_down": p_trend,
         "p_stop": p_stop,
-        "percentile": percentile,
-        "level": current,
-        "baseline_level": baseline_level,
-        "change_pct": change_pct,
+        "percentile": tests.percentile_,
+        "level": tests.level_,
+        "baseline_level": tests.baseline_,
+        "change_pct": np.where(p_down <= p_up, change_down, change_up),
+        "change_down_pct": change_down,
+        "change_up_pct": change_up,
+        "window_days": best_window.astype(np.int64),
+        "window_down": window_down.astype(np.int64),
+        "window_up": window_up.astype(np.int64),
         "trend_change_pct": trend_change,
+        "growth_pct_year": 100.0 * np.expm1(365.0 * tests.growth_),
         "onset_day": onset_day,
         "level_before": level_before,
         "level_after": level_after,
         "silent_days": silent_days,
-        "model": model,
+        "model": np.where(points >= tests.prior_windows, "history", "prior").astype(object),
         "down_kind": down_kind,
-        "n_reference": n_reference,
-        "low_volume": low_volume,
+        "n_reference": tests.history_points_,
+        "low_volume": tests.baseline_ * 7 < 2 * half_event * tests.count_floor_events,
         "reference_end_day": panel.start_day + reference_end,
-        "bic_lognormal": bic[:, 0],
-        "bic_mixture": bic[:, 1],
         "weekday_factors": list(np.round(profile.factors_, 4)),
     })

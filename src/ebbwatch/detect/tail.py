@@ -1,4 +1,4 @@
-"""Rolling window means and totals, and the reference sets the tail tests compare against."""
+"""Rolling window means and totals (weekday-weighted), for the trend's weekly levels and the report's band."""
 
 from __future__ import annotations
 
@@ -52,13 +52,3 @@ def rolling_window(values, window: int, expected=None, min_valid: int | None = N
         levels = np.divide(sums, weights, out=sums)
     levels[~keep] = np.nan
     return levels, levels * full_weights
-
-
-def reference_mask(n_windows: int, window: int, first_seen, reference_end):
-    """Which windows belong to each account's reference history, (A, n_windows) bool.
-
-    A window is in the reference when it starts on or after the account's first activity and
-    ends before ``reference_end`` (a column index, exclusive).
-    """
-    start = np.arange(n_windows)[None, :]
-    return (start >= np.asarray(first_seen)[:, None]) & (start + window <= np.asarray(reference_end)[:, None])

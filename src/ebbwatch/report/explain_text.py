@@ -14,7 +14,7 @@ def render_explanation(info: dict) -> str:
     lines = [
         f"{plain_text(info['name'])} ({plain_text(info['account'])}) as of {info['as_of']}: {info['status'].replace('_', ' ')}",
         f"  baseline       {b['model']}: {b['why']}",
-        f"                 {b['reference_windows']} reference windows, ending {b['reference_ends']}",
+        f"                 reference ends {b['reference_ends']}; steady growth {_num(b['growth_pct_year'], '{:+.0f}')}% a year",
         "  weekday        " + "  ".join(f"{d} {v:.2f}" for d, v in info["weekday_factors"].items()),
         f"  last {r['window_days']} days   level {_num(r['level'])}/day vs usual {_num(r['usual_level'])}/day "
         f"({_num(r['change_pct'], '{:+.0f}')}%), percentile {_num(r['percentile'], '{:.1f}')}, "

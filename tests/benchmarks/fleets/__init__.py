@@ -28,7 +28,7 @@ class PlantedFleet:
     ``counts`` (A, D) int64: events per account and day, column 0 is ``start`` and the last column
     ``as_of``; zero before an account's first day.  ``truth``: one row per account with
     ``TRUTH_COLUMNS``: ``kind`` (a change kind or ``quiet``), ``onset`` (first changed day, a
-    date, or None), ``age_days`` (as_of − onset, days), ``factor`` (the change's level at as_of as
+    date, or None), ``age_days`` (days changed up to as_of, the onset day and as_of included), ``factor`` (the change's level at as_of as
     a multiple of the usual level), ``usual`` (expected events a day over the eight weeks before
     the onset, or before as_of for quiet accounts), ``shape`` (a slide's shape: linear, staged or
     exponential), ``traits`` (what makes a quiet account hard, comma-separated) and ``first_day``.
@@ -73,7 +73,7 @@ def truth_frame(accounts, kind, onset_col, factor, usual, shape, traits, first_c
         "account": list(accounts),
         "kind": list(kind),
         "onset": onset,
-        "age_days": [(as_of - o).days if o is not None else -1 for o in onset],
+        "age_days": [(as_of - o).days + 1 if o is not None else -1 for o in onset],
         "factor": np.asarray(factor, float),
         "usual": np.asarray(usual, float),
         "shape": list(shape),

@@ -47,7 +47,7 @@ def _plateaus(rng, n_days, ratio):
 
 
 def generate(n_accounts: int = 400, seed: int = 0, *, n_days: int = 600, as_of: date = date(2026, 6, 30),
-             share_changed: float = 0.3, backtest: bool = False) -> PlantedFleet:
+             share_changed: float = 0.3, backtest: bool = False, holidays: bool = True) -> PlantedFleet:
     rng = np.random.default_rng(10_000 + seed)
     D = n_days
     t = np.arange(D)
@@ -99,12 +99,12 @@ def generate(n_accounts: int = 400, seed: int = 0, *, n_days: int = 600, as_of: 
 
     # Holidays: fleet-wide dips in history, regional ones for a third of the fleet.
     holiday = np.ones((n_accounts, D))
-    for _ in range(3):
+    for _ in range(3 if holidays else 0):
         length = int(rng.integers(1, 15))
         when = int(rng.integers(30, D - 21 - length))
         holiday[:, when:when + length] *= rng.uniform(0.3, 0.8)
     region = rng.random(n_accounts) < 1 / 3
-    for _ in range(2):
+    for _ in range(2 if holidays else 0):
         length = int(rng.integers(1, 15))
         when = int(rng.integers(30, D - (7 if backtest else 21) - length))
         holiday[np.ix_(region, np.arange(when, when + length))] *= rng.uniform(0.3, 0.8)
