@@ -86,6 +86,19 @@ def recall_at_false_rate(truth: pd.DataFrame, down: dict, up: dict, false_rate: 
     return result
 
 
+def ebbwatch_scores(scores: pd.DataFrame, min_change_pct: float = 30.0):
+    """ebbwatch's decision statistic per direction, as the scan decides: -log10 p where the
+    change in that direction is at least ``min_change_pct`` (a stop always), else 0 — so a cut
+    on it at any level is what a different ``[scan] fdr`` would raise.  ``(down, up)`` dicts."""
+    judged = scores[scores["status"] == "judged"].set_index("account")
+    big_down = (judged["change_down_pct"] <= -min_change_pct) | (judged["down_kind"] == "stop")
+    big_up = judged["change_up_pct"] >= min_change_pct
+    log_p = lambda p: -np.log10(np.maximum(p.to_numpy(float), 1e-300))  # noqa: E731
+    down = dict(zip(judged.index, np.where(big_down, log_p(judged["p_down"]), 0.0)))
+    up = dict(zip(judged.index, np.where(big_up, log_p(judged["p_up"]), 0.0)))
+    return down, up
+
+
 def calibration(truth: pd.DataFrame, scores: pd.DataFrame, alphas=ALPHAS) -> dict:
     """Share of judged quiet accounts with p below each alpha, per direction:
     ``{"n": judged quiet accounts, "down": [share...], "up": [share...]}``."""

@@ -69,7 +69,7 @@ class ScanParams:
     window_days: int = 7
     min_history_days: int = 42
     horizon_days: int = 91
-    windows: tuple = (1, 2, 3, 5, 7, 14, 28)
+    windows: tuple = (2, 4, 7, 14, 28)
     reference_days: int = 182
     history_gap_days: int = 60
     cusum_threshold: float = 5.0

@@ -12,6 +12,24 @@ import numpy as np
 from scipy import stats
 
 
+def tail_p(z, at_least_as_extreme, n, anchor, df, anchor_points, *, independent: bool = False) -> np.ndarray:
+    """The lower-tail p-value of :func:`history_tail_p` from its parts, each (A,): ``z`` the
+    statistic, ``at_least_as_extreme`` how many of the ``n`` history points are <= it, and
+    ``anchor`` the ``anchor_points``-th smallest history point (NaN where there is none)."""
+    z = np.asarray(z, float)
+    t_tail = stats.t.cdf(z, df)
+    usable = (n >= 2 * anchor_points) & np.isfinite(anchor)
+    p_anchor = anchor_points / (n + 1.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = p_anchor / stats.t.cdf(np.where(usable, anchor, 0.0), df)
+    if not independent:
+        ratio = np.maximum(ratio, 1.0)
+    beyond = np.minimum(t_tail * ratio, p_anchor)
+    p = np.where(usable, np.where(at_least_as_extreme < anchor_points, beyond, (at_least_as_extreme + 1.0) / (n + 1.0)),
+                 t_tail)
+    return np.where(np.isfinite(z), np.clip(p, 0.0, 1.0), 1.0)
+
+
 def history_tail_p(z, z_history, df, anchor_points, *, lower: bool = True, independent: bool = False) -> np.ndarray:
     """One-sided p-value of each account's statistic ``z`` (A,) against its own history.
 
@@ -32,37 +50,16 @@ def history_tail_p(z, z_history, df, anchor_points, *, lower: bool = True, indep
     history = np.asarray(z_history, float)
     if not lower:
         z, history = -z, -history
-    t_tail = stats.t.cdf(z, df)
     if history.shape[1] == 0:
-        return np.where(np.isfinite(z), t_tail, 1.0)
+        return tail_p(z, np.zeros(len(z)), np.zeros(len(z)), np.full(len(z), np.nan), df, anchor_points)
     valid = np.isfinite(history)
-    n = valid.sum(axis=1)
     filled = np.where(valid, history, np.inf)
     with np.errstate(invalid="ignore"):
         r = (filled <= z[:, None]).sum(axis=1)
     kth = min(anchor_points - 1, filled.shape[1] - 1)
     anchor = np.partition(filled, kth, axis=1)[:, kth]
-    usable = (n >= 2 * anchor_points) & np.isfinite(anchor)
-    p_anchor = anchor_points / (n + 1.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = p_anchor / stats.t.cdf(np.where(usable, anchor, 0.0), df)
-    if not independent:
-        ratio = np.maximum(ratio, 1.0)
-    beyond = np.minimum(t_tail * ratio, p_anchor)
-    p = np.where(usable, np.where(r < anchor_points, beyond, (r + 1.0) / (n + 1.0)), t_tail)
-    return np.where(np.isfinite(z), np.clip(p, 0.0, 1.0), 1.0)
-
-
-def history_percentile(z, z_history) -> np.ndarray:
-    """Mid-rank percentile (0–100) of ``z`` among each account's history; NaN without one."""
-    history = np.asarray(z_history, float)
-    valid = np.isfinite(history)
-    n = valid.sum(axis=1)
-    with np.errstate(invalid="ignore"):
-        below = (np.where(valid, history, np.inf) < np.asarray(z)[:, None]).sum(axis=1)
-        ties = (history == np.asarray(z)[:, None]).sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(n > 0, 100.0 * (below + 0.5 * ties) / n, np.nan)
+    return tail_p(z, r, valid.sum(axis=1), np.where(np.isfinite(anchor), anchor, np.nan), df, anchor_points,
+                  independent=independent)
 
 
 MULTIPLICITY_SAMPLES = 400_000

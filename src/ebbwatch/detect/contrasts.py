@@ -23,7 +23,7 @@ import numpy as np
 from ..baseline._base import Estimator, check_matrix
 from ..baseline.counts import nbinom_mid_p
 from ..series import fast_nanmedian_rows
-from .calibrate import history_percentile, history_tail_p
+from .calibrate import tail_p
 
 BASE_WINDOW = 7  # the window every other window's spread is pooled against (a whole week)
 
@@ -47,11 +47,17 @@ class WindowPriors:
         return self.excess[i], self.ratio[i]
 
 
-def _cumulative(matrix) -> np.ndarray:
+def _cumulative(matrix, dtype=np.float64) -> np.ndarray:
     """Row-wise cumulative sums with a leading zero column, (A, D + 1)."""
-    out = np.zeros((matrix.shape[0], matrix.shape[1] + 1))
+    out = np.zeros((matrix.shape[0], matrix.shape[1] + 1), dtype)
     np.cumsum(matrix, axis=1, out=out[:, 1:])
     return out
+
+
+def history_stride(window: int) -> int:
+    """Every how many days a window's history is sampled: neighbouring windows of k days share
+    k - 1 of them, so every third of a window's length keeps nearly all the information."""
+    return max(1, window // 3)
 
 
 class _Sums:
@@ -61,78 +67,140 @@ class _Sums:
         valid = np.isfinite(values)
         self.X = _cumulative(np.where(valid, values, 0.0))
         self.F = _cumulative(np.where(valid, factors, 0.0))
-        self.N = _cumulative(valid.astype(np.float64))
-        self.FA = _cumulative(np.asarray(factors, float))  # every day's factor, valid or not
-        n_accounts, n_days = values.shape
-        ends = np.arange(n_days + 1)
-        # The reference ending before column j starts at max(j - R, first activity).
-        starts = np.maximum(ends[None, :] - reference_days, np.asarray(first_seen)[:, None])
-        starts = np.minimum(starts, ends[None, :])
-        take = lambda m: np.take_along_axis(m, starts, axis=1)  # noqa: E731
+        self.N = _cumulative(valid, np.int32)
+        # The histories are computed in single precision (half the memory traffic; a window's
+        # count is still exact to well under an event); the judged window in double.
+        self.X32, self.F32 = self.X.astype(np.float32), self.F.astype(np.float32)
+        self.factors = factors
+        n_days = values.shape[1]
+        # The reference ending before column j is columns max(j - R, first activity) .. j - 1.
+        # The sums are zero before the first activity, so a plain lag of R columns gives the same
+        # totals; only the calendar span needs the first activity.
+        lag = min(reference_days, n_days + 1)
+        reference = lambda m: np.concatenate([m[:, :lag], m[:, lag:] - m[:, :n_days + 1 - lag]], axis=1)  # noqa: E731
         with np.errstate(invalid="ignore", divide="ignore"):
-            self.reference_level = (self.X - take(self.X)) / (self.F - take(self.F))
-        self.reference_days = self.N - take(self.N)
-        self.reference_span = ends[None, :] - starts  # calendar days, masked ones included
+            self.reference_level = (reference(self.X) / reference(self.F)).astype(np.float32)
+        self.reference_days = reference(self.N).astype(np.int16)
         self.first_seen = np.asarray(first_seen)
+        span = np.arange(n_days + 1, dtype=np.int16)[None, :] - self.first_seen.astype(np.int16)[:, None]
+        np.clip(span, 0, reference_days, out=span)
+        self.reference_span = span  # calendar days, masked ones included
 
-    def window(self, k: int, half_event, min_reference_days: int):
-        """The contrast of the k-day window ending on every column, with what it is made of."""
-        n_days = self.X.shape[1] - 1
-        end = np.arange(1, n_days + 1)
-        start = np.maximum(end - k, 0)
-        observed = self.X[:, end] - self.X[:, start]
-        weight = self.F[:, end] - self.F[:, start]
-        expected = self.reference_level[:, start] * weight
+    @staticmethod
+    def lag(span, k: int):
+        """Days between the centres of a k-day window and its reference of ``span`` days."""
+        return 0.5 * (k + span)
+
+    def history(self, k: int, last_end: int, half_event, min_reference_days: int, stride: int = 1):
+        """The contrasts of the whole k-day windows ending by column ``last_end - 1``, every
+        ``stride``-th one back from the last, (A, W) float32 with NaN where one cannot be told,
+        and the calendar span of each one's reference, (A, W)."""
+        width = max(last_end - k + 1, 0)
+        first = (width - 1) % stride if width else 0
+        ends, starts = slice(k + first, k + width, stride), slice(first, width, stride)
+        half = half_event.astype(np.float32)[:, None]
+        contrast = self.X32[:, ends] - self.X32[:, starts]
+        expected = self.F32[:, ends] - self.F32[:, starts]
+        expected *= self.reference_level[:, starts]
+        contrast += half
+        expected += half
         with np.errstate(invalid="ignore", divide="ignore"):
-            contrast = np.log((observed + half_event[:, None]) / (expected + half_event[:, None]))
-        usable = ((self.N[:, end] - self.N[:, start]) >= (k + 1) // 2) \
-            & (self.reference_days[:, start] >= min_reference_days) \
-            & (start[None, :] >= self.first_seen[:, None]) & np.isfinite(contrast)
-        contrast[~usable] = np.nan
-        lag = 0.5 * (k + self.reference_span[:, start])  # days between the two periods' centres
-        whole = self.FA[:, -1] - self.FA[:, -1 - k]
-        return {
-            "contrast": contrast, "lag": lag, "observed": observed[:, -1], "expected": expected[:, -1],
-            "reference_days": self.reference_days[:, start[-1]], "reference_level": self.reference_level[:, start[-1]],
-            "weight": weight[:, -1],
-            "complete": np.clip(weight[:, -1] / np.maximum(whole, 1e-9), 0.05, 1.0),
-        }
+            np.divide(contrast, expected, out=contrast)
+            np.log(contrast, out=contrast)
+        # (A window before the first activity has no reference days, so it is caught here too.)
+        unusable = (self.N[:, ends] - self.N[:, starts]) < (k + 1) // 2
+        unusable |= self.reference_days[:, starts] < min_reference_days
+        contrast[unusable] = np.nan
+        return contrast, self.reference_span[:, starts]
+
+    def last_window(self, k: int, half_event, min_reference_days: int):
+        """The judged window (the last k days): its contrast, lag and what it is made of, (A,)."""
+        start = self.X.shape[1] - 1 - k
+        weight = self.F[:, -1] - self.F[:, start]
+        whole = self.factors[:, start:].sum(axis=1)
+        reference_level = self.reference_level[:, start].astype(np.float64)
+        observed, expected = self.X[:, -1] - self.X[:, start], reference_level * weight
+        with np.errstate(invalid="ignore", divide="ignore"):
+            contrast = np.log((observed + half_event) / (expected + half_event))
+        usable = ((self.N[:, -1] - self.N[:, start]) >= (k + 1) // 2) & (start >= self.first_seen) \
+            & (self.reference_days[:, start] >= min_reference_days)
+        return {"observed": observed, "weight": weight, "expected": expected, "reference_level": reference_level,
+                "reference_days": self.reference_days[:, start].astype(np.float64),
+                "complete": np.clip(weight / np.maximum(whole, 1e-9), 0.05, 1.0),
+                "contrast": np.where(usable, contrast, np.nan), "lag": self.lag(self.reference_span[:, start], k)}
 
 
-def _centre_and_spread(history):
-    """Median and 1.4826 · MAD of each row (0 where the row is empty)."""
-    if history.shape[1] == 0:
-        zeros = np.zeros(history.shape[0])
-        return zeros, zeros.copy()
-    centre = np.nan_to_num(fast_nanmedian_rows(history))
-    spread = 1.4826 * np.nan_to_num(fast_nanmedian_rows(np.abs(history - centre[:, None])))
-    return centre, spread
+def _sorted_history(history):
+    """Each row sorted with its NaN last, and the count of valid values: (sorted, n)."""
+    filled = np.where(np.isnan(history), np.float32(np.inf), history)
+    filled.sort(axis=1)
+    return filled, np.isfinite(filled).sum(axis=1)
+
+
+def _order_statistic(ordered, n, q):
+    """The q-quantile (linear between order statistics) of each row's n valid sorted values; 0
+    for an empty row."""
+    if ordered.shape[1] == 0:
+        return np.zeros(len(ordered))
+    rows = np.arange(len(ordered))
+    position = q * np.maximum(n - 1, 0)
+    below = np.floor(position).astype(np.int64)
+    above = np.minimum(below + 1, np.maximum(n - 1, 0))
+    low = ordered[rows, np.minimum(below, ordered.shape[1] - 1)].astype(np.float64)
+    high = ordered[rows, np.minimum(above, ordered.shape[1] - 1)].astype(np.float64)
+    with np.errstate(invalid="ignore"):
+        return np.where(n > 0, low + (high - low) * (position - below), 0.0)
 
 
 def _block_statistics(values, factors, first_seen, half_event, p):
-    """Each window's current contrast and its growth-corrected history, for :class:`WindowTests`
-    and :func:`window_priors`."""
+    """Per window: the judged contrast (growth taken out), its sorted history and their summary,
+    for :class:`WindowTests` and :func:`window_priors`.  Windows are done one at a time, so a
+    block holds one window's (A, D) arrays at once."""
     sums = _Sums(values, factors, first_seen, p["reference_days"])
-    n_days = values.shape[1]
-    cut = max(n_days - p["history_gap_days"], 0)
-    raw = {k: sums.window(k, half_event, p["min_reference_days"]) for k in p["windows"]}
+    cut = max(values.shape[1] - p["history_gap_days"], 0)
+    half_event = np.asarray(half_event, float)
     # Steady growth or decline: the contrast grows with the distance between the two periods, so
     # it is read as a rate per day from the weekly window's history and taken out of every window.
-    base = raw[BASE_WINDOW]
+    weekly = sums.history(BASE_WINDOW, cut, half_event, p["min_reference_days"], history_stride(BASE_WINDOW))
+    contrast, span = weekly
     with np.errstate(invalid="ignore", divide="ignore"):
-        rate = fast_nanmedian_rows(base["contrast"][:, :cut] / base["lag"][:, :cut]) if cut else np.zeros(len(values))
-    points = np.isfinite(base["contrast"][:, :cut]).sum(axis=1) / BASE_WINDOW
+        rate = fast_nanmedian_rows(contrast / sums.lag(span, BASE_WINDOW)) if contrast.shape[1] else np.zeros(len(values))
+    points = np.isfinite(contrast).sum(axis=1) * history_stride(BASE_WINDOW) / BASE_WINDOW
     growth = np.nan_to_num(rate) * points / (points + p["prior_windows"])
+    del contrast, span
     out = {}
-    for k, w in raw.items():
-        residual = w["contrast"] - growth[:, None] * w["lag"]
-        history = residual[:, :cut]
-        centre, spread = _centre_and_spread(history)
-        events = np.nan_to_num(w["expected"] / (2.0 * half_event))  # half_event is half of one event
-        count_var = (1.0 / (events + 0.5)) * (1.0 + k / np.maximum(w["reference_days"], 1.0))
-        out[k] = {**w, "current": residual[:, -1], "history": history, "centre": centre, "spread": spread,
-                  "points": np.isfinite(history).sum(axis=1) / k, "count_var": count_var, "events": events}
+    for k in p["windows"]:
+        stride = history_stride(k)
+        contrast, span = weekly if k == BASE_WINDOW else sums.history(k, cut, half_event, p["min_reference_days"], stride)
+        half_growth = (0.5 * growth).astype(np.float32)[:, None]
+        contrast -= span * half_growth  # growth times the lag, 0.5 (k + span)
+        contrast -= k * half_growth
+        ordered, n = _sorted_history(contrast)
+        del contrast, span
+        q25, centre, q75 = (_order_statistic(ordered, n, q) for q in (0.25, 0.5, 0.75))
+        last = sums.last_window(k, half_event, p["min_reference_days"])
+        current = last["contrast"] - growth * last["lag"]
+        events = np.nan_to_num(last["expected"] / (2.0 * half_event))  # half_event is half of one event
+        count_var = (1.0 / (events + 0.5)) * (1.0 + k / np.maximum(last["reference_days"], 1.0))
+        out[k] = {**last, "current": current, "ordered": ordered, "n": n, "centre": centre, "stride": stride,
+                  "spread": (q75 - q25) / 1.349, "points": n * stride / k, "count_var": count_var, "events": events}
     return out, growth
+
+
+def _priors_from(by_window, windows, min_accounts: int = 20) -> WindowPriors:
+    base = by_window[BASE_WINDOW]
+    long = (base["points"] >= 20) & (base["spread"] > 0)
+    excess, ratio = [], []
+    for k in windows:
+        s = by_window[k]
+        good = long & (s["points"] >= 8)
+        if good.sum() >= min_accounts:
+            excess.append(float(np.median(np.maximum(s["spread"][good] ** 2 - s["count_var"][good], 0.0))))
+            ratio.append(float(np.median((s["spread"][good] / base["spread"][good]) ** 2)))
+        else:
+            excess.append(0.05)
+            ratio.append(1.0)
+    return WindowPriors(tuple(windows), tuple(excess), tuple(ratio))
 
 
 def window_priors(values, factors, first_seen, half_event, *, windows, reference_days=182, min_reference_days=28,
@@ -144,21 +212,9 @@ def window_priors(values, factors, first_seen, half_event, *, windows, reference
     """
     p = dict(windows=tuple(windows), reference_days=reference_days, min_reference_days=min_reference_days,
              history_gap_days=history_gap_days, prior_windows=prior_windows)
-    stats_by_window, _ = _block_statistics(np.asarray(values, float), np.asarray(factors, float),
-                                           np.asarray(first_seen), np.asarray(half_event, float), p)
-    base = stats_by_window[BASE_WINDOW]
-    long = (base["points"] >= 20) & (base["spread"] > 0)
-    excess, ratio = [], []
-    for k in p["windows"]:
-        s = stats_by_window[k]
-        good = long & (s["points"] >= 8)
-        if good.sum() >= min_accounts:
-            excess.append(float(np.median(np.maximum(s["spread"][good] ** 2 - s["count_var"][good], 0.0))))
-            ratio.append(float(np.median((s["spread"][good] / base["spread"][good]) ** 2)))
-        else:
-            excess.append(0.05)
-            ratio.append(1.0)
-    return WindowPriors(p["windows"], tuple(excess), tuple(ratio))
+    by_window, _ = _block_statistics(np.asarray(values, float), np.asarray(factors, float), np.asarray(first_seen),
+                                     np.asarray(half_event, float), p)
+    return _priors_from(by_window, p["windows"], min_accounts)
 
 
 class WindowTests(Estimator):
@@ -188,7 +244,7 @@ class WindowTests(Estimator):
     _parameters = ("windows", "reference_days", "min_reference_days", "history_gap_days", "prior_windows",
                    "ratio_prior_windows", "anchor_points", "count_floor_events")
 
-    def __init__(self, windows=(1, 2, 3, 5, 7, 14, 28), reference_days: int = 182, min_reference_days: int = 28,
+    def __init__(self, windows=(2, 4, 7, 14, 28), reference_days: int = 182, min_reference_days: int = 28,
                  history_gap_days: int = 60, prior_windows: float = 5.0, ratio_prior_windows: float = 10.0,
                  anchor_points: int = 5, count_floor_events: float = 30.0):
         self.windows = windows
@@ -234,9 +290,7 @@ class WindowTests(Estimator):
                  history_gap_days=self.history_gap_days, prior_windows=self.prior_windows)
         by_window, growth = _block_statistics(values, factors, np.asarray(first_seen), half_event, p)
         if priors is None:
-            priors = window_priors(values, factors, first_seen, half_event, windows=windows,
-                                   reference_days=self.reference_days, min_reference_days=self.min_reference_days,
-                                   history_gap_days=self.history_gap_days, prior_windows=self.prior_windows)
+            priors = _priors_from(by_window, windows)
         base = by_window[BASE_WINDOW]
         n0 = self.prior_windows
         base_excess, _ = priors.of(BASE_WINDOW)
@@ -244,6 +298,7 @@ class WindowTests(Estimator):
         shape = (values.shape[0], len(windows))
         self.p_low_, self.p_high_ = np.ones(shape), np.ones(shape)
         self.z_, self.change_pct_ = np.full(shape, np.nan), np.full(shape, np.nan)
+        rows = np.arange(values.shape[0])
         for i, k in enumerate(windows):
             s = by_window[k]
             excess, ratio = priors.of(k)
@@ -262,10 +317,19 @@ class WindowTests(Estimator):
             sd = np.sqrt(np.maximum(var, 1e-6))
             centre = weight * s["centre"]
             z = (s["current"] - centre) / sd
-            z_history = (s["history"] - centre[:, None]) / sd[:, None]
             df = np.clip(points + n0, 3.0, 50.0)
-            anchor = max(self.anchor_points, k)
-            p_low = history_tail_p(z, z_history, df, anchor, lower=True, independent=k == 1)
+            ordered, n = s["ordered"], s["n"]
+            anchor = max(self.anchor_points, -(-k // s["stride"]))  # at least one window's worth
+            with np.errstate(invalid="ignore"):
+                at_or_below = (ordered <= s["current"][:, None]).sum(axis=1)
+                at_or_above = n - (ordered < s["current"][:, None]).sum(axis=1)
+            if ordered.shape[1]:
+                last = ordered.shape[1] - 1
+                lowest = (ordered[:, min(anchor, ordered.shape[1]) - 1] - centre) / sd
+                highest = (ordered[rows, np.clip(n - anchor, 0, last)] - centre) / sd
+            else:
+                lowest = highest = np.full(len(n), np.nan)
+            p_low = tail_p(z, at_or_below, n, np.where(n >= anchor, lowest, np.nan), df, anchor, independent=k == 1)
             small = np.flatnonzero(s["events"] < self.count_floor_events)
             if small.size:
                 dispersion = np.maximum(var[small] - s["count_var"][small], count_dispersion)
@@ -273,16 +337,19 @@ class WindowTests(Estimator):
                                         dispersion)
                 p_low[small] = np.maximum(p_low[small], floor)
             self.p_low_[:, i] = p_low
-            self.p_high_[:, i] = history_tail_p(z, z_history, df, anchor, lower=False, independent=k == 1)
+            self.p_high_[:, i] = tail_p(-z, at_or_above, n, np.where(n >= anchor, -highest, np.nan), df, anchor,
+                                        independent=k == 1)
             self.z_[:, i] = z
             with np.errstate(invalid="ignore", divide="ignore"):
                 self.change_pct_[:, i] = 100.0 * (s["observed"] / s["expected"] - 1.0)
             if k == BASE_WINDOW:
-                self.percentile_ = history_percentile(z, z_history)
-                self.baseline_ = s["reference_level"]
                 with np.errstate(invalid="ignore", divide="ignore"):
+                    below = n - at_or_above
+                    self.percentile_ = np.where(n > 0, 100.0 * (below + 0.5 * (at_or_below - below)) / np.maximum(n, 1),
+                                                np.nan)
                     self.level_ = np.where(s["weight"] > 0, s["observed"] / s["weight"], np.nan)
-                self.history_points_ = np.isfinite(s["history"]).sum(axis=1)
+                self.baseline_ = s["reference_level"]
+                self.history_points_ = n * s["stride"]
         self.windows_ = windows
         self.growth_ = growth
         self.priors_ = priors
