@@ -16,6 +16,7 @@ FLEET_LOOKBACK_WEEKS = 4
 FLEET_DEADBAND = 0.05  # fleet-wide moves under ±5% are left alone (noise of the median)
 FLEET_MIN_ACCOUNTS = 8
 FLEET_MIN_REFERENCE = 3.0  # accounts whose usual day is under 3 events are too noisy to vote
+FLEET_EXCLUDE = 0.2  # days the fleet moved on by more than this (log) stay out of later references
 
 
 def weekday_of(day: np.ndarray | int):
@@ -249,16 +250,19 @@ def fleet_factor(counts: np.ndarray, *, gap_ratio: float = FLEET_GAP_RATIO,
     Each account votes with its day's count over its own median of the same weekday in the
     previous weeks; the factor is the shorth of the votes, so even a large minority of accounts
     changing moves it little, and an ordinary day's value is scaled to 1.  The references are then recomputed on counts with the factor divided out, a few
-    times, so that the weeks after a holiday are not read as a lift over holiday-depressed
-    references.  Returns ``(factor (D,), masked (D,) bool)``; a day under ``gap_ratio`` is masked.
+    times without the days the fleet moved on, so that the weeks after a holiday are not read as
+    a lift over holiday-depressed references.  Returns ``(factor (D,), masked (D,) bool)``; a day under ``gap_ratio`` is masked.
     """
     counts = np.where(np.isnan(counts), 0.0, counts)
     n_days = counts.shape[1]
     factor = np.ones(n_days)
     masked = np.zeros(n_days, dtype=bool)
     for _ in range(iterations):
-        adjusted = counts / factor[None, :]
-        adjusted[:, masked] = np.nan
+        # Days the fleet moved on are left out of the later days' references rather than divided
+        # by their factor: dividing fed every estimate's noise into the next weeks' references,
+        # and over a month the factor crept up to 1.3 on an ordinary fleet.
+        adjusted = counts.copy()
+        adjusted[:, masked | (np.abs(np.log(factor)) > FLEET_EXCLUDE)] = np.nan
         reference = _same_weekday_reference(adjusted)
         voters = reference >= FLEET_MIN_REFERENCE
         with np.errstate(all="ignore"):

@@ -177,13 +177,22 @@ def _block_statistics(values, factors, first_seen, half_event, p):
         contrast -= k * half_growth
         ordered, n = _sorted_history(contrast)
         del contrast, span
-        q25, centre, q75 = (_order_statistic(ordered, n, q) for q in (0.25, 0.5, 0.75))
+        q125, q25, q375, centre, q625, q75, q875 = (_order_statistic(ordered, n, q)
+                                                    for q in (0.125, 0.25, 0.375, 0.5, 0.625, 0.75, 0.875))
         last = sums.last_window(k, half_event, p["min_reference_days"])
         current = last["contrast"] - growth * last["lag"]
         events = np.nan_to_num(last["expected"] / (2.0 * half_event))  # half_event is half of one event
         count_var = (1.0 / (events + 0.5)) * (1.0 + k / np.maximum(last["reference_days"], 1.0))
+        spread = (q75 - q25) / 1.349
+        # Each half's own spread, in units of the whole's: a two-peaked history is wide as a
+        # whole but each tail beyond its outer peak is as narrow as that peak.
+        # (0.8313 = Φ⁻¹(0.375) − Φ⁻¹(0.125): the spread of a normal's half between those points.)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            half_low = np.where(spread > 0, (q375 - q125) / 0.8313 / spread, 1.0)
+            half_high = np.where(spread > 0, (q875 - q625) / 0.8313 / spread, 1.0)
         out[k] = {**last, "current": current, "ordered": ordered, "n": n, "centre": centre, "stride": stride,
-                  "spread": (q75 - q25) / 1.349, "points": n * stride / k, "count_var": count_var, "events": events}
+                  "spread": spread, "half_low": half_low, "half_high": half_high,
+                  "points": n * stride / k, "count_var": count_var, "events": events}
     return out, growth
 
 
@@ -314,7 +323,12 @@ class WindowTests(Estimator):
                 var = w2 * s["spread"] ** 2 + (1 - w2) * prior
                 points = s["points"] + self.ratio_prior_windows
             var = var / s["complete"]  # a window with masked days is noisier than full ones
-            sd = np.sqrt(np.maximum(var, 1e-6))
+            # A two-peaked history is wide as a whole, but beyond its outer peaks it is as narrow as
+            # they are: where both halves are narrower than the whole, the spread narrows with
+            # them (shrunk toward the whole on a short history).  One narrow half alone is skew,
+            # not two peaks, and changes nothing.
+            narrow = np.clip(1 + weight * (np.maximum(s["half_low"], s["half_high"]) - 1), 0.5, 1.0)
+            sd = np.sqrt(np.maximum(var, 1e-6)) * narrow
             centre = weight * s["centre"]
             z = (s["current"] - centre) / sd
             df = np.clip(points + n0, 3.0, 50.0)
@@ -329,7 +343,8 @@ class WindowTests(Estimator):
                 highest = (ordered[rows, np.clip(n - anchor, 0, last)] - centre) / sd
             else:
                 lowest = highest = np.full(len(n), np.nan)
-            p_low = tail_p(z, at_or_below, n, np.where(n >= anchor, lowest, np.nan), df, anchor, independent=k == 1)
+            p_low = tail_p(z, at_or_below, n, np.where(n >= anchor, lowest, np.nan), df, anchor,
+                           independent=k == 1)
             small = np.flatnonzero(s["events"] < self.count_floor_events)
             if small.size:
                 dispersion = np.maximum(var[small] - s["count_var"][small], count_dispersion)
