@@ -1,50 +1,103 @@
-"""A small version of the planted-truth accuracy benchmark (tests/benchmarks/accuracy.py), with
-thresholds a little below the benchmark's targets, so a regression in detection fails CI."""
+"""Accuracy and calibration on the planted-truth families (tests/benchmarks/fleets), small
+versions of ``tests/benchmarks/accuracy.py`` so that a regression in detection fails CI.
 
+Family A is the one detection is developed on; B, C and D are held out.  Every fleet runs end to
+end through ``ingest --daily`` and ``scan`` (the library calls the CLI makes).  Seeds here are
+not the benchmark's, so the floors are not fitted to the benchmark's fleets.
+"""
+
+from __future__ import annotations
+
+import numpy as np
 import pytest
 
-import ebbwatch
-from ebbwatch.datasets import make_fleet
+from .benchmarks import planted
+from .benchmarks.fleets import DEV_FAMILY, HELD_OUT, generate
+from .benchmarks.rules import hand_rule
 
-from .benchmarks.rules import hand_rule, score_flags
+ALPHAS = (0.001, 0.01, 0.05, 0.1)
+QUIET_SEEDS = (200, 201, 202, 203)
+
+
+def _quiet_p_values(family, tmp_path_factory):
+    """Per quiet-only fleet of the family: its judged accounts' (p_down, p_up)."""
+    runs = []
+    for seed in QUIET_SEEDS:
+        fleet = generate(family, 300, seed, share_changed=0.0)
+        _, scores = planted.run_ebbwatch(fleet, tmp_path_factory.mktemp(f"q{family}{seed}"))
+        cal = planted.calibration(fleet.truth, scores)
+        runs.append((cal["p_down"], cal["p_up"]))
+    return runs
+
+
+def _shares(runs, alpha, side):
+    """The pooled share of p below alpha, and its standard error: binomial, or from the spread
+    between fleets when larger (a fleet's accounts share its fleet-wide days, so they are not
+    independent draws)."""
+    per_fleet = np.array([np.mean(run[side] < alpha) for run in runs])
+    sizes = np.array([len(run[side]) for run in runs])
+    share = float((per_fleet * sizes).sum() / sizes.sum())
+    se = max(np.sqrt(alpha * (1 - alpha) / sizes.sum()), per_fleet.std(ddof=1) / np.sqrt(len(runs)))
+    return share, se
 
 
 @pytest.fixture(scope="module")
-def results(tmp_path_factory):
-    totals = {}
-    hand_totals = {}
-    for seed in (101, 102):
-        fleet = make_fleet(300, 365, seed=seed)
-        tmp = tmp_path_factory.mktemp(f"acc{seed}")
-        fleet.daily_frame().to_parquet(tmp / "daily.parquet")
-        db = str(tmp / "s.duckdb")
-        ebbwatch.ingest_files([], db=db, daily=str(tmp / "daily.parquet"))
-        alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=100_000)
-        flags = {a: (-1 if d == "down" else 1) for a, d in zip(alerts["account"], alerts["direction"])}
-        for key, (hit, n) in score_flags(fleet.truth, flags).items():
-            h, m = totals.get(key, (0, 0))
-            totals[key] = (h + hit, m + n)
-        hand = dict(zip(fleet.account_ids, hand_rule(fleet.counts.sum(axis=2), threshold=1.0)))
-        for key, (hit, n) in score_flags(fleet.truth, hand).items():
-            h, m = hand_totals.get(key, (0, 0))
-            hand_totals[key] = (h + hit, m + n)
-    return totals, hand_totals
+def quiet(tmp_path_factory):
+    return {family: _quiet_p_values(family, tmp_path_factory) for family in (DEV_FAMILY, *HELD_OUT)}
 
 
-@pytest.mark.parametrize("kind, floor", [("drop", 0.85), ("stop", 0.85), ("surge", 0.85), ("slide", 0.75)])
-def test_recall_per_kind(results, kind, floor):
-    hit, n = results[0][kind]
+@pytest.mark.parametrize("alpha", ALPHAS)
+@pytest.mark.parametrize("side", [0, 1], ids=["down", "up"])
+def test_p_values_are_calibrated_on_quiet_accounts_of_the_development_family(quiet, alpha, side):
+    """Reference: the uniform distribution; on quiet accounts the share with p < alpha is alpha
+    within sampling error (4 standard errors, 1,200 accounts in four fleets)."""
+    share, se = _shares(quiet[DEV_FAMILY], alpha, side)
+    assert abs(share - alpha) <= 4 * se, f"{share:.4f} against {alpha} (se {se:.4f})"
+
+
+@pytest.mark.parametrize("family", HELD_OUT)
+def test_calibration_on_held_out_families_stays_where_it_was_measured(quiet, family):
+    """Not the target.  The target is "within sampling error" on every family, and on the
+    held-out families it is missed: measured 2026-12-04 (1,180-1,190 quiet accounts each, both
+    directions), the share below alpha is 4-10 times alpha at 0.001, 0.9-3.0 times at 0.01,
+    0.54-1.37 times at 0.05 and 0.42-1.35 times at 0.1.  This pins those measurements against
+    getting worse: at most 12, 3.5, 1.6 and 1.6 times alpha, at least 0.35 times at 0.05 and 0.1."""
+    runs = quiet[family]
+    for side in (0, 1):
+        for alpha, high in ((0.001, 12.0), (0.01, 3.5), (0.05, 1.6), (0.1, 1.6)):
+            share, _ = _shares(runs, alpha, side)
+            assert share <= high * alpha, (family, side, alpha, share)
+            if alpha >= 0.05:
+                assert share >= 0.35 * alpha, (family, side, alpha, share)
+
+
+@pytest.fixture(scope="module")
+def development_runs(tmp_path_factory):
+    ours, hand = {}, {}
+    for seed in (300, 301):
+        fleet = generate(DEV_FAMILY, 400, seed)
+        flags, _ = planted.run_ebbwatch(fleet, tmp_path_factory.mktemp(f"a{seed}"))
+        planted.add(ours, planted.recall(fleet.truth, flags))
+        # The hand rule loosened to |z| > 1 (common practice's rule set to catch more).
+        rule = dict(zip(fleet.accounts, hand_rule(fleet.counts.astype(float), threshold=1.0)))
+        planted.add(hand, planted.recall(fleet.truth, rule))
+    return ours, hand
+
+
+@pytest.mark.parametrize("kind, floor", [("drop", 0.85), ("stop", 0.95), ("slide", 0.78), ("surge", 0.8)])
+def test_recall_on_the_development_family(development_runs, kind, floor):
+    """Measured 2026-12-04 on these fleets: drops 41/45, stops 48/48, slides 42/49, surges 31/36."""
+    hit, n = development_runs[0][kind]
     assert hit / n >= floor, f"{kind}: {hit}/{n}"
 
 
-def test_quiet_accounts_rarely_flagged(results):
-    hit, n = results[0]["quiet_flagged"]
-    assert hit / n <= 0.03, f"{hit}/{n}"
+def test_quiet_accounts_rarely_flagged(development_runs):
+    hit, n = development_runs[0]["quiet"]
+    assert hit / n <= 0.015, f"{hit}/{n}"
 
 
-def test_far_fewer_false_alerts_than_the_hand_rule_at_better_recall(results):
-    ours, hand = results
+def test_more_caught_and_fewer_false_alerts_than_the_hand_rule(development_runs):
+    ours, hand = development_runs
     kinds = ("drop", "stop", "slide", "surge")
-    # The hand rule at |z| > 1 (common practice's rule loosened to catch more) still catches less.
-    assert sum(ours[k][0] for k in kinds) >= sum(hand[k][0] for k in kinds)
-    assert hand["quiet_flagged"][0] >= 5 * max(ours["quiet_flagged"][0], 1)
+    assert sum(ours[k][0] for k in kinds) >= 2 * sum(hand[k][0] for k in kinds)
+    assert 2 * ours["quiet"][0] <= hand["quiet"][0]
