@@ -168,6 +168,13 @@ def test_explain_command_text_json_and_plot(store, tmp_path):
     doc = json.loads(runner.invoke(main, ["explain", target, "--db", db, "--format", "json"]).stdout)
     assert doc["baseline"]["model"] in ("history", "prior") and len(doc["weekday_factors"]) == 7
     assert doc["p_down"] < 1e-4 and doc["changepoint"]["onset"] is not None
+    # The whole history in segments: back to back, ending on the judged day, the last one the
+    # planted drop's lower level.
+    segments = doc["segments"]
+    assert segments and segments[-1]["end"] == fleet.as_of.isoformat()
+    assert all(date.fromisoformat(b["start"]) == date.fromisoformat(a["end"]) + timedelta(days=1)
+               for a, b in zip(segments, segments[1:]))
+    assert len(segments) >= 2 and segments[-1]["level"] < segments[-2]["level"]
     pytest.importorskip("matplotlib")
     plot = tmp_path / "chart.svg"
     assert runner.invoke(main, ["explain", target, "--db", db, "--plot", str(plot)]).exit_code == 0

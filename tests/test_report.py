@@ -75,6 +75,9 @@ def test_one_card_per_alert_ranked(report):
     assert len(cards) == len(alerts) > 0
     assert cards == [a.replace("&", "&amp;") for a in alerts["account"]]
     assert "not a verdict about people" in text and "personal data" in text
+    # Each card's chart draws the segments of the account's history (at least one level each).
+    for card in text.split('<div class="card ')[1:]:
+        assert '<line class="segment"' in card.split("</svg>")[0]
 
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")

@@ -672,7 +672,7 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
     level with its percentile and tail probabilities, the changepoint, trend, silence, drivers,
     and the daily series behind them (for plotting).
     """
-    from .detect import score_panel
+    from .detect import history_segments, score_panel
 
     cfg = _config(config)
     as_of = parse_day(as_of)
@@ -684,7 +684,9 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         accounts = st.account_ids()
         loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days).fit_fleet(accounts)
         panel = loader([account])
-        row = score_panel(panel, _fleet_params(cfg, loader)).iloc[0]
+        params = _fleet_params(cfg, loader)
+        row = score_panel(panel, params).iloc[0]
+        segments = history_segments(panel, params)[0]
         reference_end = int(row["reference_end_day"])
         direction = "down" if row["p_down"] <= row["p_up"] else "up"
         drivers = _find_drivers(st, loader, [(account, reference_end, direction)], as_of, cfg.scan.window_days)[0]
@@ -718,6 +720,8 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
                         "level_before": f(row["level_before"]), "level_after": f(row["level_after"]),
                         "kind_if_down": row["down_kind"]},
         "trend": {"weeks": 12, "theil_sen_change_pct": f(row["trend_change_pct"]), "mann_kendall_p_down": f(row["p_trend_down"])},
+        "segments": [{"start": day_to_date(a).isoformat(), "end": day_to_date(b).isoformat(), "level": f(level)}
+                     for a, b, level in segments],
         "silence": {"silent_days": int(row["silent_days"]), "p_silence": f(row["p_stop"])},
         "p_down": f(row["p_down"]), "p_up": f(row["p_up"]),
         "drivers": drivers,
@@ -870,6 +874,7 @@ def _lead_list(alerts, outcomes, horizon_days) -> list:
 
 def report_data(*, as_of=None, limit: int = 50, db: str | None = None, config=None, today: date | None = None) -> dict:
     """What the HTML report shows: fleet overview, and per alert a small series with its band."""
+    from .detect import history_segments
     from .detect.tail import rolling_window
     from .explain import drivers_phrase
 
@@ -891,6 +896,8 @@ def report_data(*, as_of=None, limit: int = 50, db: str | None = None, config=No
     window = cfg.scan.window_days
     cards = []
     shown_days = 120
+    all_segments = history_segments(panel, _scan_params(cfg)) if panel is not None else []
+    first_shown = loader.end_day - shown_days + 1
     for i, alert in enumerate(alerts.to_dict(orient="records")):
         values = panel.values[i] / panel.fleet_factor
         series = [None if not np.isfinite(v) else float(v) for v in values[-shown_days:]]
@@ -919,6 +926,8 @@ def report_data(*, as_of=None, limit: int = 50, db: str | None = None, config=No
             "onset": alert["onset"], "series": series, "band": band, "window": window,
             "onset_index": onset_index, "driver_words": words,
             "masked": [j for j, m in enumerate(masked[-shown_days:]) if m],
+            "segments": [(max(a, first_shown) - first_shown, b - first_shown, level)
+                         for a, b, level in all_segments[i] if b >= first_shown],
         })
     idx, _, value, _, _ = totals
     activity = np.bincount(idx, weights=value, minlength=len(all_accounts))

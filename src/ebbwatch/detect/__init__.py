@@ -14,7 +14,7 @@ import pandas as pd
 from ..baseline import WeekdayProfile
 from ..series import Panel, adjust_for_fleet, missing_before_first_activity, quiet_nanmean, weekday_of
 from .calibrate import cauchy_combination, nested_min_p
-from .changepoint import ChangepointSearch, cusum_split, fill_gaps, robust_sigma
+from .changepoint import ChangepointSearch, changepoints, cusum_split, fill_gaps, robust_sigma
 from .contrasts import BASE_WINDOW, WindowPriors, WindowTests, window_priors
 from .silence import last_active_column, silence
 from .tail import rolling_window
@@ -127,6 +127,30 @@ def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams =
     first = np.where(np.isfinite(values).any(axis=1), np.isfinite(values).argmax(axis=1), values.shape[1])
     return window_priors(values, factors, first, np.full(len(values), 0.5), windows=params.windows,
                          reference_days=params.reference_days, history_gap_days=params.history_gap_days)
+
+
+def history_segments(panel: Panel, params: ScanParams = ScanParams()) -> list[list[tuple[int, int, float]]]:
+    """Each account's whole history cut where it changed: per account, ``(first day, last day,
+    level)`` tuples (day numbers; level in activity-index units a day, weekday-adjusted), from
+    its first activity to the last column.  The cuts are ``changepoint.changepoints`` on the
+    log of the weekday-adjusted series, as the scan's onset search sees it."""
+    values = adjust_for_fleet(panel)
+    weekdays = weekday_of(panel.days)
+    _, factors = _weekday_factors(values, weekdays, panel.n_days - params.window_days, params.profile_weeks)
+    z = values / factors
+    out = []
+    for row, first in zip(z, panel.first_seen):
+        first = int(first)
+        if first >= len(row):
+            out.append([])
+            continue
+        scale = np.nanmean(row[first:]) if np.isfinite(row[first:]).any() else 1.0
+        scale = scale if np.isfinite(scale) and scale > 0 else 1.0
+        cuts = [first] + [first + c for c in changepoints(np.log(row[first:] / scale + params.log_offset))] + [len(row)]
+        out.append([(panel.start_day + a, panel.start_day + b - 1,
+                     float(np.nanmean(row[a:b])) if np.isfinite(row[a:b]).any() else float("nan"))
+                    for a, b in zip(cuts[:-1], cuts[1:])])
+    return out
 
 
 def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame:

@@ -21,6 +21,8 @@ def render_explanation(info: dict) -> str:
         f"P(this low) {_num(r['p_low'])}, P(this high) {_num(r['p_high'])}",
         "  changepoint    " + (f"onset {cp['onset']}, level {_num(cp['level_before'])} -> {_num(cp['level_after'])}/day"
                                if cp["onset"] else "none in the last 13 weeks"),
+        "  segments       " + ("; ".join(f"{s['start']} to {s['end']} at {_num(s['level'])}/day" for s in info["segments"])
+                               or "-"),
         f"  trend          Theil-Sen {_num(tr['theil_sen_change_pct'], '{:+.0f}')}% over {tr['weeks']} weeks, "
         f"Mann-Kendall P(falling by chance) {_num(tr['mann_kendall_p_down'])}",
         f"  silence        {si['silent_days']} day(s) since last activity (P {_num(si['p_silence'])})",

@@ -15,6 +15,7 @@ SERIES = "#0f5c6e"
 BAND = "#dfe7ec"
 WINDOW = "#c7a34a"
 ONSET = "#5b3f8c"
+SEGMENT = "#8c2d04"
 MASK = "#9aa5ad"
 
 CSS = f"""
@@ -51,13 +52,14 @@ def _scale(values, lo, hi):
 
 
 def series_chart(values, *, band=None, window=7, onset_index=None, masked=(), width=320, height=110,
-                 reference=None) -> str:
+                 reference=None, segments=()) -> str:
     """An inline SVG line chart of ``values`` (None = missing) with an optional band (lo, hi),
-    the last ``window`` points hatched, an onset marker and masked points ticked."""
+    the last ``window`` points hatched, an onset marker, masked points ticked and the levels of
+    ``segments`` — ``(first index, last index, level)`` — as thick horizontal strokes."""
     n = max(len(values), 2)
     pad = 4
     x = lambda i: pad + i * (width - 2 * pad) / (n - 1)  # noqa: E731
-    extra = [band[0], band[1]] if band else []
+    extra = ([band[0], band[1]] if band else []) + [level for _, _, level in segments if level is not None]
     y, vmin, vmax = _scale(list(values) + extra + ([reference] if reference is not None else []), pad, height - pad)
     parts = [f'<svg class="chart" width="{width}" height="{height}" viewBox="0 0 {width} {height}" role="img" '
              f'xmlns="http://www.w3.org/2000/svg">',
@@ -84,6 +86,10 @@ def series_chart(values, *, band=None, window=7, onset_index=None, masked=(), wi
     if not path:
         path = [f"M{pad},{height - pad}L{width - pad},{height - pad}"]
     parts.append(f'<path d="{" ".join(path)}" fill="none" stroke="{SERIES}" stroke-width="1.3"/>')
+    for first, last, level in segments:
+        if level is not None and math.isfinite(level):
+            parts.append(f'<line class="segment" x1="{x(first):.1f}" x2="{x(last):.1f}" y1="{y(level):.1f}" '
+                         f'y2="{y(level):.1f}" stroke="{SEGMENT}" stroke-width="2.5"/>')
     if onset_index is not None and 0 <= onset_index < n:
         parts.append(f'<line x1="{x(onset_index):.1f}" x2="{x(onset_index):.1f}" y1="{pad}" y2="{height - pad}" '
                      f'stroke="{ONSET}" stroke-width="1.5" stroke-dasharray="5,3"/>')
@@ -129,14 +135,17 @@ def render_report(data: dict) -> str:
             f'<h3>{arrow} {esc(c["name"])} <span class="muted">({esc(c["account"])})</span></h3>'
             f'<p><span class="tag">{esc(c["kind"])}</span> <span class="tag">{esc(c["state"])}</span> '
             f'severity {c["severity"]:.1f}</p>'
-            + series_chart(c["series"], band=c["band"], window=c["window"], onset_index=c["onset_index"], masked=c["masked"])
+            + series_chart(c["series"], band=c["band"], window=c["window"], onset_index=c["onset_index"], masked=c["masked"],
+                           segments=c.get("segments", ()))
             + f'<p>Change {esc(c["change"])} vs its usual level; percentile {c["percentile"]:.1f} of its history; '
             f'onset {esc(c["onset"] or "not dated")}.</p><p>Drivers: {drivers}.</p></div>')
     out.append("</div>")
     out.append("""<h2>How to read this, and what it cannot tell you</h2>
-<p>Each account is compared with its own history: its weekday rhythm, the usual range of its 7-day level
-(one or two peaks), changepoints, trend and usual silences. The shaded band on a chart is the middle half of
-the account's usual 7-day levels, the hatched area the days judged, the dashed line the estimated onset.
+<p>Each account is compared with its own history: the last days, two weeks and four weeks against the
+half-year before them, judged by how much the same comparison varied on every earlier day of the account, with
+its weekday rhythm, growth and usual silences taken into account. The shaded band on a chart is the middle half
+of the account's usual 7-day levels, the hatched area the days judged, the dashed line the estimated onset, and
+the thick strokes the level of each segment its history falls into where it changed.
 Benjamini&ndash;Hochberg control keeps the share of false alerts among those raised near a fixed rate however
 large the fleet.</p>
 <ul>

@@ -6,8 +6,8 @@ from datetime import date
 
 
 def plot_account(info: dict, path: str):
-    """Daily index (weekday factors not removed), the usual level, the recent window and the
-    onset, written to ``path`` (.svg or .png)."""
+    """Daily index (weekday factors not removed), the usual level, the recent window, the
+    segments of the whole history and the onset, written to ``path`` (.svg or .png)."""
     try:
         import matplotlib
 
@@ -26,6 +26,10 @@ def plot_account(info: dict, path: str):
         ax.axhline(usual, color="#7f7f7f", linestyle="--", linewidth=1, label="usual level (median)")
     window = info["recent"]["window_days"]
     ax.axvspan(days[-window], days[-1], color="#d9a441", alpha=0.25, label=f"last {window} days")
+    for i, segment in enumerate(info.get("segments", [])):
+        if segment["level"] is not None:
+            ax.hlines(segment["level"], date.fromisoformat(segment["start"]), date.fromisoformat(segment["end"]),
+                      color="#b2182b", linewidth=1.6, label="segments (weekday-adjusted level)" if i == 0 else None)
     if info["changepoint"]["onset"]:
         ax.axvline(date.fromisoformat(info["changepoint"]["onset"]), color="#6a3d9a", linewidth=1.5,
                    linestyle=":", label="onset")
