@@ -197,3 +197,39 @@ def test_a_loader_without_fleet_quantities_leaves_the_panel_as_built():
     np.testing.assert_array_equal(same.fleet_factor, np.ones(60))
     np.testing.assert_array_equal(same.masked, np.zeros(60, bool))
     np.testing.assert_array_equal(same.values, panel.values)
+
+
+def test_a_fleet_of_one_account_is_judged_on_its_own(tmp_path):
+    """No fleet-wide factor from one account (its own drop would divide itself out); the summary
+    says so, and its drop is an alert."""
+    import ebbwatch
+    from click.testing import CliRunner
+
+    from ebbwatch.cli import main
+
+    fleet = make_fleet(1, 365, as_of=AS_OF, seed=4, share_changed=1.0, holiday=False, gap=False)
+    assert fleet.truth["kind"].iloc[0] == "drop"
+    fleet.daily_frame().to_parquet(tmp_path / "d.parquet")
+    db = str(tmp_path / "s.duckdb")
+    ebbwatch.ingest_files([], db=db, daily=str(tmp_path / "d.parquet"))
+    alerts = ebbwatch.scan(db=db, as_of=AS_OF)
+    summary = alerts.attrs["summary"]
+    assert summary["fleet_factor"] == {"estimated": False, "voting_accounts": 1, "needed": 20}
+    assert list(alerts["direction"]) == ["down"]
+    assert (alerts.attrs["fleet_factor"] == 1.0).all()
+    result = CliRunner().invoke(main, ["scan", "--db", db, "--as-of", AS_OF.isoformat()])
+    assert "no fleet-wide factor (1 account(s) vote, 20 needed): each account judged on its own" in result.stderr
+
+
+def test_fleet_factor_needs_twenty_voting_accounts():
+    """A dip shared by every account of 12 is not read as fleet-wide: 12 accounts cannot tell a
+    holiday from their own changes.  With 40 the same dip is divided out."""
+    from ebbwatch.series import fleet_voting_accounts
+
+    rng = np.random.default_rng(6)
+    for n, read in ((12, False), (40, True)):
+        counts = rng.poisson(30.0, (n, 120)).astype(float)
+        counts[:, 100:105] *= 0.5
+        factor, _ = fleet_factor(counts)
+        assert fleet_voting_accounts(counts) == n
+        assert (factor[100:105].max() < 0.7) == read

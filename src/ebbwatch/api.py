@@ -296,6 +296,13 @@ def _score_chunk(panel, *, cfg: Config, loader):
     return score_panel(panel, _fleet_params(cfg, loader))
 
 
+def fleet_factor_summary(voters: int) -> dict:
+    """Whether the scan divided out fleet-wide days, and on how many voting accounts."""
+    from .series import FLEET_MIN_ACCOUNTS
+
+    return {"estimated": voters >= FLEET_MIN_ACCOUNTS, "voting_accounts": int(voters), "needed": FLEET_MIN_ACCOUNTS}
+
+
 def default_as_of(last_day: date | None, today: date | None = None) -> date:
     """The last complete day: the store's last day, unless that is today (still filling)."""
     today = today or datetime.now(timezone.utc).date()
@@ -332,6 +339,7 @@ class PanelLoader:
         self.masked = None
         self.count_dispersion = None
         self.window_priors = None
+        self.fleet_voters = 0
         self._fleet_fit = None  # a Future while the fit runs in the background
 
     def _rows(self, accounts, *, users: bool = False, ranges=None, st=None):
@@ -383,10 +391,11 @@ class PanelLoader:
         sample of ``accounts``, read through ``st`` (default the loader's store)."""
         from .baseline.counts import pooled_dispersion
         from .detect import fleet_window_priors
-        from .series import fleet_factor, missing_before_first_activity
+        from .series import fleet_factor, fleet_voting_accounts, missing_before_first_activity
 
         counts = self.sample_counts(accounts, st)
         self.fleet_factor, self.masked = fleet_factor(counts)
+        self.fleet_voters = fleet_voting_accounts(counts)
         # The same fleet-wide count dispersion and window priors for every chunk (see
         # backtest.replay_fleet_factors).
         started = missing_before_first_activity(counts)
@@ -590,6 +599,7 @@ def scan(
         "recorded": bool(record),
         "history_changed": history_changed,
         "masked_days": masked_days,
+        "fleet_factor": fleet_factor_summary(loader.fleet_voters),
         "seconds": round(time.perf_counter() - started, 3),
     }
     shown.attrs["scores"] = scores

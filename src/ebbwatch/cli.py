@@ -285,7 +285,7 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
             f"{' (recorded)' if summary['recorded'] else ''}; {summary['judged']:,} accounts judged, "
             f"{len(summary['not_enough_history']):,} with not enough history, {summary['dormant']:,} dormant"
             + (f"; masked data-gap days: {', '.join(summary['masked_days'])}" if summary["masked_days"] else "")
-            + ".",
+            + _fleet_words(summary["fleet_factor"]) + ".",
             err=True,
         )
     for change in summary["history_changed"]:
@@ -293,6 +293,13 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
                    f"changed days already judged ({change['first_day']} .. {change['last_day']}).", err=True)
     if fail_on_alert and len(alerts):
         sys.exit(EXIT_ALERTS)
+
+
+def _fleet_words(fleet: dict) -> str:
+    if fleet["estimated"]:
+        return f"; fleet-wide days read from {fleet['voting_accounts']:,} accounts"
+    return (f"; no fleet-wide factor ({fleet['voting_accounts']} account(s) vote, {fleet['needed']} needed): "
+            "each account judged on its own")
 
 
 @main.command("explain")

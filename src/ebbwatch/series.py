@@ -14,7 +14,9 @@ import numpy as np
 FLEET_GAP_RATIO = 0.3  # a day at under 30% of the fleet's usual volume is a data gap, not quiet
 FLEET_LOOKBACK_WEEKS = 4
 FLEET_DEADBAND = 0.05  # fleet-wide moves under ±5% are left alone (noise of the median)
-FLEET_MIN_ACCOUNTS = 8
+# A fleet-wide move is read only from at least this many voting accounts: fewer cannot tell a
+# holiday from a few accounts' own changes, and a smaller fleet's accounts are judged on their own.
+FLEET_MIN_ACCOUNTS = 20
 FLEET_MIN_REFERENCE = 3.0  # accounts whose usual day is under 3 events are too noisy to vote
 FLEET_EXCLUDE = 0.2  # days the fleet moved on by more than this (log) stay out of later references
 
@@ -280,6 +282,16 @@ def fleet_factor(counts: np.ndarray, *, gap_ratio: float = FLEET_GAP_RATIO,
     log_factor = np.log(np.clip(factor, 1e-9, None))
     shrunk = np.sign(log_factor) * np.maximum(np.abs(log_factor) - FLEET_DEADBAND, 0.0)
     return np.where(masked, 1.0, np.exp(shrunk)), masked
+
+
+def fleet_voting_accounts(counts: np.ndarray) -> int:
+    """How many accounts of a sample (A, D) can vote on a typical day of the fleet factor: those
+    with a usual same-weekday count of at least ``FLEET_MIN_REFERENCE`` (the median over days)."""
+    counts = np.where(np.isnan(counts), 0.0, np.asarray(counts, float))
+    if counts.size == 0:
+        return 0
+    voters = (_same_weekday_reference(counts) >= FLEET_MIN_REFERENCE).sum(axis=0)
+    return int(np.median(voters[FLEET_LOOKBACK_WEEKS * 7:])) if counts.shape[1] > FLEET_LOOKBACK_WEEKS * 7 else 0
 
 
 def adjust_for_fleet(panel: Panel) -> np.ndarray:

@@ -119,6 +119,10 @@ def render_report(data: dict) -> str:
            f'<div class="tile">{share_label} in accounts with open downward alerts<b>{100 * data["down_share"]:.1f}%</b></div>',
            "</div>",
            '<h3>Fleet-wide daily factor</h3>',
+           ("" if s.get("fleet_factor", {}).get("estimated", True) else
+            f'<p>No fleet-wide factor: {s["fleet_factor"]["voting_accounts"]} account(s) vote, '
+            f'{s["fleet_factor"]["needed"]} are needed to tell a holiday from a few accounts\' own changes, '
+            'so each account is judged on its own.</p>'),
            '<p class="muted">1 is an ordinary day; the dotted line marks 1, ticks at the bottom mark masked data-gap days'
            + (f" ({esc(', '.join(fleet['masked_days']))})" if fleet["masked_days"] else "")
            + (f"; {len(dips)} day(s) under 0.9 were divided out as fleet-wide dips" if dips else "") + ".</p>",
