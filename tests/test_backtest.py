@@ -46,6 +46,18 @@ def test_hand_computed_confusion_table():
     assert late["outcomes"]["churned"]["recall_at_lead"] == 0.0  # 50 days of lead is not 55
 
 
+def test_an_episode_lasts_until_the_lifecycle_resolves_it():
+    """An alert that stops for two replayed days and comes back is one episode (the daily scan
+    shows it as clearing, then ongoing); absent three days, it resolved, and the next is new."""
+    d = lambda k: START + timedelta(days=k)  # noqa: E731
+    flicker = alerts([(d(10), "c", "down", "drop", 3), (d(13), "c", "down", "drop", 3)])
+    assert evaluate(flicker, outcomes([]), EXPOSURE)["alert_episodes"] == 1
+    resolved = alerts([(d(10), "c", "down", "drop", 3), (d(14), "c", "down", "drop", 3)])
+    assert evaluate(resolved, outcomes([]), EXPOSURE)["alert_episodes"] == 2
+    weekly = alerts([(d(7), "c", "down", "drop", 3), (d(21), "c", "down", "drop", 3), (d(49), "c", "down", "drop", 3)])
+    assert evaluate(weekly, outcomes([]), EXPOSURE, step_days=7)["alert_episodes"] == 2
+
+
 def test_precision_and_recall_match_scikit_learn():
     """Reference: sklearn.metrics precision_score / recall_score over accounts, with a horizon
     wide enough that every alert-outcome pair counts and a lead of 0."""

@@ -187,11 +187,12 @@ def alert_message(alert: dict, window_days: int, drivers: str = "") -> str:
 
 # -- lifecycle -------------------------------------------------------------------------------
 LIFECYCLE_STATES = ("new", "ongoing", "escalated", "clearing", "resolved")
+RESOLVE_DAYS = 3  # an open alert absent this many recorded days is resolved; the next one is new
 OPEN_STATES = ("new", "ongoing", "escalated", "clearing")
 
 
 def advance_lifecycle(previous: pd.DataFrame, alerts: pd.DataFrame, as_of: date, *,
-                      escalate_step: float = 3.0, resolve_days: int = 3) -> pd.DataFrame:
+                      escalate_step: float = 3.0, resolve_days: int = RESOLVE_DAYS) -> pd.DataFrame:
     """Each open alert's state on ``as_of`` from its state on the last recorded day before it.
 
     ``previous``: latest rows per account and direction (columns of the alert log); ``alerts``:

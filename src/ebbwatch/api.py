@@ -860,6 +860,7 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         result["calibration"] = {"min_severity": None, "budget": budget, "target_precision": target_precision,
                                  "note": "no severity threshold in the sweep meets it"}
     result["_lead_times"] = _lead_list(alerts, outcome_frame, horizon_days)
+    result["_alerts"], result["_exposure"] = alerts, exposure  # every replayed alert, for programs
     return result
 
 

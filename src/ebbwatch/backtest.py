@@ -12,7 +12,7 @@ from datetime import date, timedelta
 import numpy as np
 import pandas as pd
 
-from .alerts import select_alerts
+from .alerts import RESOLVE_DAYS, select_alerts
 from .baseline.counts import pooled_dispersion
 from .detect import ScanParams, fleet_window_priors, score_panel
 from .series import Panel, fleet_factor, missing_before_first_activity
@@ -160,14 +160,16 @@ def replay(panel: Panel, as_of_days, *, params: ScanParams = ScanParams(), histo
                            window_days=params.window_days)
 
 
-def _episodes(alerts: pd.DataFrame, step_days: int = 1) -> pd.DataFrame:
-    """First days of runs of consecutive replayed alert days, per account and direction."""
+def _episodes(alerts: pd.DataFrame, step_days: int = 1, resolve_days: int = RESOLVE_DAYS) -> pd.DataFrame:
+    """First days of alert episodes per account and direction, as the daily scan's lifecycle
+    sees them: an alert absent for ``resolve_days`` replayed days is resolved, and only the next
+    one after that is new (a flicker in between is the same episode, shown as ongoing)."""
     if alerts.empty:
         return alerts.assign(start=[])
     ordered = alerts.sort_values(["account", "direction", "as_of"])
     days = pd.to_datetime(ordered["as_of"])
     gap = days.groupby([ordered["account"], ordered["direction"]]).diff().dt.days
-    return ordered[(gap.isna()) | (gap > step_days)]
+    return ordered[(gap.isna()) | (gap > step_days * resolve_days)]
 
 
 def evaluate(alerts: pd.DataFrame, outcomes: pd.DataFrame, exposure: pd.DataFrame, *, lead_days: int = 30,

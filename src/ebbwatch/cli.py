@@ -402,6 +402,7 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
                           progress=_progress_printer("replay"), chunk_size=chunk_size, engine=engine,
                           scheduler=scheduler, shared_dir=shared_dir, threads=threads)
     leads = result.pop("_lead_times")
+    result.pop("_alerts"), result.pop("_exposure")
     if plot_path:
         from .report.plot import plot_backtest
 

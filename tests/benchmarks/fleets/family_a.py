@@ -167,7 +167,7 @@ def _plan_outcomes(rng, kind, traits, first, size, change, onset, factor, slide_
     n_churn, n_expand, n_dip = int(0.10 * n), int(0.06 * n), int(0.04 * n)
     for a in order[:n_churn]:
         duration = int(rng.integers(42, 92))
-        cancel = int(rng.integers(D - 330, D - 10))
+        cancel = int(rng.integers(D - 230, D - 10))  # the whole slide inside the replayed year
         begin = cancel - duration - int(rng.integers(0, 8))
         final = rng.uniform(0.25, 0.55)
         slide_shape[a] = rng.choice(["linear", "staged", "exponential"])
@@ -179,7 +179,7 @@ def _plan_outcomes(rng, kind, traits, first, size, change, onset, factor, slide_
         outcomes.append((a, cancel, "churned"))
         episodes.append((a, "slide", begin, cancel))
     for a in order[n_churn:n_churn + n_expand]:
-        upgrade = int(rng.integers(D - 330, D - 10))
+        upgrade = int(rng.integers(D - 270, D - 10))  # the whole surge inside the replayed year
         begin = upgrade - int(rng.integers(28, 57))
         boost = rng.uniform(2.0, 4.0)
         change[a, begin:] = boost
@@ -189,7 +189,7 @@ def _plan_outcomes(rng, kind, traits, first, size, change, onset, factor, slide_
         outcomes.append((a, upgrade, "expanded"))
         episodes.append((a, "surge", begin, D - 1))
     for a in order[n_churn + n_expand:n_churn + n_expand + n_dip]:
-        begin = int(rng.integers(D - 330, D - 20))
+        begin = int(rng.integers(D - 300, D - 60))
         length = int(rng.integers(14, 43))
         change[a, begin:begin + length] = rng.uniform(0.15, 0.55)
         kind[a], onset[a], traits[a] = "dip", begin, "plain"

@@ -246,19 +246,19 @@ def _plant(rng, acct, kind, role, D, cols, mix, mean_events):
     (outcome column, outcome) or None) or None for a quiet account."""
     if role == "churn":
         length = int(rng.integers(42, 92))
-        cancel = int(rng.integers(D - 330, D - 10))
+        cancel = int(rng.integers(D - 230, D - 10))  # the whole slide inside the replayed year
         begin = cancel - length - int(rng.integers(0, 8))
         shape_name = str(rng.choice(["linear", "staged", "exponential"]))
         _disengage(rng, acct, begin, length, rng.uniform(0.25, 0.55), shape_name, cols)
         return "slide", begin, cancel, shape_name, (cancel, "churned")
     if role == "expand":
-        upgrade = int(rng.integers(D - 330, D - 10))
+        upgrade = int(rng.integers(D - 270, D - 10))  # the whole surge inside the replayed year
         begin = upgrade - int(rng.integers(28, 57))
         team = int(np.ceil(acct.p.size * rng.uniform(1.0, 3.0)))
         acct.add(team, begin, D, mix, mean_events, D)
         return "surge", begin, None, "", (upgrade, "expanded")
     if role == "dip":
-        begin = int(rng.integers(D - 330, D - 20))
+        begin = int(rng.integers(D - 300, D - 60))
         length = int(rng.integers(14, 43))
         acct.engagement[:, begin:begin + length] = rng.uniform(0.15, 0.55)
         return "drop", begin, None, "", None
