@@ -180,11 +180,16 @@ def test_dask_backtest_equals_local_backtest_and_one_block(store, cluster, tmp_p
     whole = ebbwatch.backtest(str(outcomes), chunk_size=10_000, **kw)
     blocks = ebbwatch.backtest(str(outcomes), chunk_size=37, **kw)
     remote = ebbwatch.backtest(str(outcomes), chunk_size=37, engine="dask", scheduler=cluster.scheduler_address, **kw)
+    frames = []
     for r in (whole, blocks, remote):
         r.pop("seconds")
+        frames.append((r.pop("_alerts").reset_index(drop=True), r.pop("_exposure")))
     assert whole["outcomes"]["churned"]["recall_at_lead"] is not None
     assert blocks == whole
     assert remote == whole
+    for alerts, exposure in frames[1:]:
+        pd.testing.assert_frame_equal(alerts, frames[0][0])
+        pd.testing.assert_frame_equal(exposure, frames[0][1])
 
 
 def test_export_index_blocks_hold_every_account_once(store, tmp_path):
