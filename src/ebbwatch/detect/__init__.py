@@ -86,6 +86,7 @@ class ScanParams:
     trend_screen_p: float = 0.01
     ramp_advantage: float = 1.0
     profile_weeks: int = 16
+    onset_screen_p: float = 0.01
 
 
 SCORE_COLUMNS = (
@@ -210,7 +211,10 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     filled = fill_gaps(segment)
     sigma = np.maximum(robust_sigma(u[:, max(0, hist_end - 182):hist_end]), 0.05)
     split, statistic = cusum_split(filled, span - params.horizon_days, span - 2, sigma)
-    candidates = np.flatnonzero(enough & ~dormant & (np.abs(statistic) > params.cusum_threshold))
+    # Onsets and kinds matter only where an alert is possible: no account whose p-value is above
+    # ``onset_screen_p`` (at least the alert threshold, since q >= p) needs the exact search.
+    candidates = np.flatnonzero(enough & ~dormant & (np.abs(statistic) > params.cusum_threshold)
+                                & (np.minimum(p_down, p_up) <= params.onset_screen_p))
     onset_col = np.full(n_accounts, -1)
     level_before = np.full(n_accounts, np.nan)
     level_after = np.full(n_accounts, np.nan)
@@ -247,7 +251,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     changing = np.zeros(n_accounts, bool)
     changing[candidates] = True
     changing |= (p_trend < params.trend_screen_p) | ((window_down >= 14) & (p_level_low < 0.01))
-    maybe = np.flatnonzero(changing & ~stop & enough & ~dormant)
+    maybe = np.flatnonzero(changing & ~stop & enough & ~dormant & (p_down <= params.onset_screen_p))
     if maybe.size:
         sse_step, sse_ramp, ramp_start = step_or_ramp(filled[maybe], span - params.horizon_days)
         ramp = sse_ramp < params.ramp_advantage * sse_step

@@ -171,12 +171,13 @@ def cusum_split(u, first: int, last: int, sigma):
     return ks[best], stat[np.arange(u.shape[0]), best]
 
 
-def _segment_sums(row):
-    """Cumulative sums of y, y² and t·y with a leading zero, for O(1) segment fits."""
-    t = np.arange(row.size, dtype=float)
-    zero = np.zeros(1)
-    return (np.concatenate([zero, np.cumsum(row)]), np.concatenate([zero, np.cumsum(row * row)]),
-            np.concatenate([zero, np.cumsum(t * row)]))
+def _segment_sums(rows):
+    """Cumulative sums of y, y² and t·y with a leading zero along the last axis, for O(1)
+    segment fits; ``rows`` (L,) or (A, L)."""
+    rows = np.asarray(rows, float)
+    t = np.arange(rows.shape[-1], dtype=float)
+    zero = np.zeros(rows.shape[:-1] + (1,))
+    return tuple(np.concatenate([zero, np.cumsum(m, axis=-1)], axis=-1) for m in (rows, rows * rows, t * rows))
 
 
 def _step_and_line_sse(sums, a: int, m: int, c: int):
@@ -194,16 +195,17 @@ def _step_and_line_sse(sums, a: int, m: int, c: int):
     return max(sse_step, 0.0), max(sse_line, 0.0)
 
 
-def drop_trend_breaks(row, breakpoints) -> list[int]:
+def drop_trend_breaks(row, breakpoints, sums=None) -> list[int]:
     """Remove the breakpoints a straight line explains better than a step: for each change, the
     two segments beside it are fitted as two means and as one line, and while some change's
     line has the lower BIC (Schwarz 1978: n ln(SSE / n) + p ln n, p = 3 for the step with its
     location, 2 for the line) the one with the largest advantage goes.  A steady trend cut into
     a staircase by a mean-change search is one segment again; a step stays.  ``breakpoints``
-    and the result use ruptures' convention (segment ends, the last is ``len(row)``)."""
+    and the result use ruptures' convention (segment ends, the last is ``len(row)``).  ``sums``:
+    the row's :func:`_segment_sums`, when the caller has them for many rows at once."""
     row = np.asarray(row, float)
     kept = list(breakpoints[:-1])
-    sums = _segment_sums(row)
+    sums = _segment_sums(row) if sums is None else sums
     tiny = 1e-12 * max(1.0, float(np.abs(row).max(initial=0.0))) ** 2
     while kept:
         edges = [0] + kept + [row.size]
@@ -264,7 +266,12 @@ class ChangepointSearch(Estimator):
         # pelt_l2_rows answers "no change" itself for rows too short for one.
         log_n = np.log(max(filled.shape[1], 1))
         found = pelt_l2_rows(filled, self.penalty_factor * sigma * sigma * log_n, self.min_size)
-        self.breakpoints_ = [drop_trend_breaks(row, b) if len(b) > 1 else b for row, b in zip(filled, found)]
+        changed = [i for i, b in enumerate(found) if len(b) > 1]
+        if changed:
+            cy, cyy, cty = _segment_sums(filled[changed])
+            for j, i in enumerate(changed):
+                found[i] = drop_trend_breaks(filled[i], found[i], (cy[j], cyy[j], cty[j]))
+        self.breakpoints_ = found
         self.sigma_ = sigma
         return self
 

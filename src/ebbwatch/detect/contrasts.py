@@ -77,9 +77,14 @@ class _Sums:
         # The sums are zero before the first activity, so a plain lag of R columns gives the same
         # totals; only the calendar span needs the first activity.
         lag = min(reference_days, n_days + 1)
-        reference = lambda m: np.concatenate([m[:, :lag], m[:, lag:] - m[:, :n_days + 1 - lag]], axis=1)  # noqa: E731
+
+        def reference(m):
+            out = m.copy()
+            out[:, lag:] -= m[:, :n_days + 1 - lag]
+            return out
+
         with np.errstate(invalid="ignore", divide="ignore"):
-            self.reference_level = (reference(self.X) / reference(self.F)).astype(np.float32)
+            self.reference_level = np.divide(reference(self.X32), reference(self.F32))
         self.reference_days = reference(self.N).astype(np.int16)
         self.first_seen = np.asarray(first_seen)
         span = np.arange(n_days + 1, dtype=np.int16)[None, :] - self.first_seen.astype(np.int16)[:, None]
