@@ -150,3 +150,54 @@ def test_cli_errors_map_to_exit_codes(tmp_path, fleet_store):
     assert runner.invoke(main, ["scan", "--db", db, "--kind", "wobble"]).exit_code == 2
     missing = runner.invoke(main, ["scan", "--db", str(tmp_path / "none.duckdb")])
     assert missing.exit_code == 3 and "no store" in missing.stderr
+
+
+def test_every_public_name_stays_a_function_after_a_scan(fleet_store):
+    """``ebbwatch.explain`` once became the ``ebbwatch.explain`` module as soon as a scan had
+    imported it (a submodule's first import sets the package attribute)."""
+    import inspect
+
+    fleet, db = fleet_store
+    ebbwatch.scan(db=db, as_of=fleet.as_of)
+    ebbwatch.explain(fleet.account_ids[0], db=db, as_of=fleet.as_of)
+    for name in ebbwatch.__all__:
+        if name != "__version__":
+            assert inspect.isfunction(getattr(ebbwatch, name)), name
+    assert ebbwatch.explain(fleet.account_ids[0], db=db, as_of=fleet.as_of)["account"] == fleet.account_ids[0]
+
+
+@pytest.mark.parametrize("fmt", ["table", "jsonl", "csv", "markdown", "json"])
+def test_the_summary_line_reaches_stderr_in_every_format(fleet_store, fmt):
+    """A cron job that keeps the JSON lines still records what the run did."""
+    fleet, db = fleet_store
+    result = CliRunner().invoke(main, ["scan", "--db", db, "--as-of", fleet.as_of.isoformat(), "--format", fmt])
+    assert result.exit_code == 0
+    assert "accounts judged" in result.stderr and "accounts judged" not in result.stdout
+
+
+def test_plot_without_matplotlib_fails_before_the_work(fleet_store, monkeypatch, tmp_path):
+    """``--plot`` needs matplotlib: say so at once, before a replay or an explanation runs."""
+    import builtins
+
+    from ebbwatch import api
+
+    fleet, db = fleet_store
+    real_import = builtins.__import__
+
+    def no_matplotlib(name, *args, **kwargs):
+        if name.split(".")[0] == "matplotlib":
+            raise ImportError("no matplotlib here")
+        return real_import(name, *args, **kwargs)
+
+    def must_not_run(*args, **kwargs):
+        raise AssertionError("the work ran before the plot's requirement was checked")
+
+    monkeypatch.setattr(builtins, "__import__", no_matplotlib)
+    monkeypatch.setattr(api, "backtest", must_not_run)
+    monkeypatch.setattr(api, "explain", must_not_run)
+    outcomes = tmp_path / "o.csv"
+    outcomes.write_text("account,date,outcome\n")
+    for args in (["backtest", "--outcomes", str(outcomes)], ["explain", fleet.account_ids[0]]):
+        result = CliRunner().invoke(main, [*args, "--db", db, "--plot", str(tmp_path / "x.svg")])
+        assert result.exit_code == 2, result.output
+        assert "--plot needs matplotlib: pip install 'ebbwatch[plot]'" in result.stderr

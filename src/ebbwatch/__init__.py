@@ -6,9 +6,11 @@ pandas objects.
 
 __version__ = "0.1.0"
 
-# The submodule ``ebbwatch.backtest`` is loaded first so that the name ``backtest`` on the
-# package stays the API function below (a submodule's first import would otherwise replace it).
+# The submodules ``ebbwatch.backtest`` and ``ebbwatch.explain`` are loaded first so that the
+# names ``backtest`` and ``explain`` on the package stay the API functions below (a submodule's
+# first import, say inside a scan, would otherwise replace them).
 from . import backtest as _backtest_module  # noqa: E402,F401
+from . import explain as _explain_module  # noqa: E402,F401
 from .detect.changepoint import changepoints  # noqa: E402
 from .api import (  # noqa: E402
     alert_history,

@@ -279,15 +279,15 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
 
     summary = alerts.attrs["summary"]
     click.echo(render_alerts(alerts, fmt, summary), nl=False)
-    if fmt == "table":
-        click.echo(
-            f"{summary['alerts']} alert(s) shown of {summary['open_alerts']} open as of {summary['as_of']}"
-            f"{' (recorded)' if summary['recorded'] else ''}; {summary['judged']:,} accounts judged, "
-            f"{len(summary['not_enough_history']):,} with not enough history, {summary['dormant']:,} dormant"
-            + (f"; masked data-gap days: {', '.join(summary['masked_days'])}" if summary["masked_days"] else "")
-            + _fleet_words(summary["fleet_factor"]) + ".",
-            err=True,
-        )
+    # On stderr whatever the format, so a cron log that keeps the JSON lines records what happened.
+    click.echo(
+        f"{summary['alerts']} alert(s) shown of {summary['open_alerts']} open as of {summary['as_of']}"
+        f"{' (recorded)' if summary['recorded'] else ''}; {summary['judged']:,} accounts judged, "
+        f"{len(summary['not_enough_history']):,} with not enough history, {summary['dormant']:,} dormant"
+        + (f"; masked data-gap days: {', '.join(summary['masked_days'])}" if summary["masked_days"] else "")
+        + _fleet_words(summary["fleet_factor"]) + ".",
+        err=True,
+    )
     for change in summary["history_changed"]:
         click.echo(f"Note: {change['file']} ({change['events']:,} events) arrived after the last recorded scan and "
                    f"changed days already judged ({change['first_day']} .. {change['last_day']}).", err=True)
@@ -312,6 +312,10 @@ def _fleet_words(fleet: dict) -> str:
 @handle_errors
 def explain_command(account, db, config_path, as_of, fmt, plot_path):
     """Why an account was (or was not) flagged: baseline, levels, changepoint, trend, drivers."""
+    if plot_path:
+        from .report.plot import require_matplotlib
+
+        require_matplotlib()
     info = api.explain(account, as_of=as_of, db=db, config=config_path)
     if plot_path:
         from .report.plot import plot_account
@@ -397,6 +401,10 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
     contracted outcomes, upward ones to expanded. The severity sweep shows the trade-off, and
     --budget or --target-precision picks a threshold and prints the config to paste.
     """
+    if plot_path:  # before the replay, not after minutes of it
+        from .report.plot import require_matplotlib
+
+        require_matplotlib()
     result = api.backtest(outcomes, start=start, end=end, step=step, lead_days=lead_days, horizon_days=horizon_days,
                           budget=budget, target_precision=target_precision, db=db, config=config_path,
                           progress=_progress_printer("replay"), chunk_size=chunk_size, engine=engine,

@@ -5,18 +5,25 @@ from __future__ import annotations
 from datetime import date
 
 
-def plot_account(info: dict, path: str):
-    """Daily index (weekday factors not removed), the usual level, the recent window, the
-    segments of the whole history and the onset, written to ``path`` (.svg or .png)."""
+def require_matplotlib():
+    """matplotlib's pyplot (Agg), or the usage error that says how to install it; called before
+    any long work whose result is to be plotted."""
     try:
         import matplotlib
 
         matplotlib.use("Agg")
         import matplotlib.pyplot as plt
-    except ImportError as exc:  # pragma: no cover - depends on the install
+    except ImportError as exc:
         from ..errors import UsageError
 
         raise UsageError("--plot needs matplotlib: pip install 'ebbwatch[plot]'") from exc
+    return plt
+
+
+def plot_account(info: dict, path: str):
+    """Daily index (weekday factors not removed), the usual level, the recent window, the
+    segments of the whole history and the onset, written to ``path`` (.svg or .png)."""
+    plt = require_matplotlib()
     days = [date.fromisoformat(d) for d in info["series"]["days"]]
     values = [float("nan") if v is None else v for v in info["series"]["index"]]
     fig, ax = plt.subplots(figsize=(8, 3), dpi=110)
@@ -43,10 +50,7 @@ def plot_account(info: dict, path: str):
 
 def plot_backtest(result: dict, lead_times: list, path: str):
     """Precision against recall over the severity sweep, and the lead-time distribution."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = require_matplotlib()
 
     fig, (left, right) = plt.subplots(1, 2, figsize=(9, 3.4), dpi=110)
     markers = {"churned": "o", "contracted": "s", "expanded": "^"}
