@@ -123,7 +123,9 @@ def test_snooze_hides_an_account_until_the_date(store):
     alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
     target = alerts["account"].iloc[0]
     runner = CliRunner()
-    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", fleet.as_of.isoformat(), "--reason", "migration"]).exit_code == 0
+    # The fleet's days are in the past, so the snooze's end is too: --force records it anyway.
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", fleet.as_of.isoformat(), "--reason", "migration",
+                                "--force"]).exit_code == 0
     hidden = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
     assert target not in set(hidden["account"]) and hidden.attrs["summary"]["snoozed"] == 1
     later = ebbwatch.scan(db=db, as_of=fleet.as_of + timedelta(days=1), max_alerts=1000)
@@ -180,3 +182,53 @@ def test_explain_command_text_json_and_plot(store, tmp_path):
     assert runner.invoke(main, ["explain", target, "--db", db, "--plot", str(plot)]).exit_code == 0
     assert plot.read_text().lstrip().startswith("<?xml")
     assert runner.invoke(main, ["explain", "nobody", "--db", db]).exit_code == 3
+
+
+def test_snoozes_listed_shortened_lifted_and_their_reason_shown(store):
+    """The latest snooze of an account wins (a shorter one shortens it), snoozes can be listed
+    and lifted, ``ebbwatch alerts`` shows the reason, and an end date in the past or more than a
+    year ahead needs --force."""
+    fleet, db = store
+    runner = CliRunner()
+    alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, record=True)
+    target = alerts["account"].iloc[0]
+    today = date.today()
+    later = (today + timedelta(days=20)).isoformat()
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", later, "--reason", "planned migration"]).exit_code == 0
+    listed = runner.invoke(main, ["snooze", "--list", "--db", db])
+    assert target in listed.stdout and later in listed.stdout and "planned migration" in listed.stdout
+    log = runner.invoke(main, ["alerts", "--db", db, "--account", target])
+    assert f"until {later}: planned migration" in log.stdout
+    # A shorter snooze after a longer one shortens it: the latest command wins.
+    sooner = (today + timedelta(days=2)).isoformat()
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", sooner]).exit_code == 0
+    assert ebbwatch.api.snoozes(db=db)["until"].tolist() == [sooner]
+    # Past or far-away ends are refused without --force.
+    past = (today - timedelta(days=1)).isoformat()
+    refused = runner.invoke(main, ["snooze", target, "--db", db, "--until", past])
+    assert refused.exit_code == 2 and "in the past" in refused.stderr
+    far = (today + timedelta(days=400)).isoformat()
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", far]).exit_code == 2
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", far, "--force"]).exit_code == 0
+    # Lifted: listed no more, and its alerts show again.
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--lift"]).exit_code == 0
+    assert "No snoozes in force." in runner.invoke(main, ["snooze", "--list", "--db", db]).stdout
+    shown = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000, show="all")
+    assert target in set(shown["account"])
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--lift"]).exit_code == 3  # nothing left to lift
+
+
+def test_alerts_filter_by_account_and_days(store):
+    fleet, db = store
+    for back in (2, 1, 0):
+        ebbwatch.scan(db=db, as_of=fleet.as_of - timedelta(days=back), max_alerts=1000, record=True)
+    log = ebbwatch.alert_history(db=db)
+    account = log["account"].iloc[0]
+    mine = ebbwatch.alert_history(db=db, accounts=[account])
+    assert len(mine) and set(mine["account"]) == {account}
+    day = (fleet.as_of - timedelta(days=1)).isoformat()
+    one_day = ebbwatch.alert_history(db=db, start=day, end=day)
+    assert len(one_day) and set(one_day["as_of"]) == {day}
+    text = CliRunner().invoke(main, ["alerts", "--db", db, "--account", account, "--from", day, "--to", day,
+                                     "--format", "jsonl"]).stdout
+    assert all(json.loads(x)["account"] == account and json.loads(x)["as_of"] == day for x in text.splitlines())

@@ -202,3 +202,29 @@ def test_plot_without_matplotlib_fails_before_the_work(fleet_store, monkeypatch,
         result = CliRunner().invoke(main, [*args, "--db", db, "--plot", str(tmp_path / "x.svg")])
         assert result.exit_code == 2, result.output
         assert "--plot needs matplotlib: pip install 'ebbwatch[plot]'" in result.stderr
+
+
+def test_a_filtered_scan_records_the_whole_days_judgement(tmp_path):
+    """``--kind``, ``--max-alerts`` and the format choose what is printed; the day recorded is
+    the whole fleet's judgement, the same whatever was printed (two teams filtering differently
+    on one store each saw the other's alerts as new every day)."""
+    fleet = make_fleet(120, 240, seed=21, share_changed=0.25)
+    fleet.daily_frame().to_parquet(tmp_path / "d.parquet")
+    db = str(tmp_path / "s.duckdb")
+    ebbwatch.ingest_files([], db=db, daily=str(tmp_path / "d.parquet"))
+    runner = CliRunner()
+    day = fleet.as_of.isoformat()
+
+    def recorded():
+        log = ebbwatch.alert_history(db=db)
+        return sorted(map(tuple, log.loc[log["as_of"] == day, ["account", "direction", "state"]].to_numpy().tolist()))
+
+    assert runner.invoke(main, ["scan", "--db", db, "--as-of", day, "--record"]).exit_code == 0
+    whole = recorded()
+    assert len(whole) > 2 and {d for _, d, _ in whole} == {"down", "up"}
+    for extra in (["--kind", "surge"], ["--max-alerts", "0"], ["--format", "jsonl", "--kind", "stop"]):
+        result = runner.invoke(main, ["scan", "--db", db, "--as-of", day, "--record", *extra])
+        assert result.exit_code == 0
+        assert recorded() == whole, extra
+    surges = runner.invoke(main, ["scan", "--db", db, "--as-of", day, "--all", "--kind", "surge", "--format", "jsonl"])
+    assert {json.loads(line)["kind"] for line in surges.stdout.splitlines()} == {"surge"}

@@ -539,6 +539,11 @@ def scan(
 
     if show not in ("all", "new"):
         raise UsageError(f"show must be all or new, got {show!r}")
+    from .frames import ALERT_KINDS
+
+    unknown = set(kinds or ()) - set(ALERT_KINDS)
+    if unknown:
+        raise UsageError(f"unknown alert kind(s) {', '.join(sorted(unknown))}; expected {', '.join(ALERT_KINDS)}")
     cfg = _config(config)
     started = time.perf_counter()
     as_of = parse_day(as_of)
@@ -563,24 +568,29 @@ def scan(
             finally:
                 loader.wait_for_fleet()
             scores = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
+        # The day's judgement is the whole fleet's, whatever is printed: --kind, --max-alerts and
+        # the output format choose what is shown, never what is recorded.
         alerts = select_alerts(
             scores, as_of=as_of, names=loader.names, window_days=cfg.scan.window_days, fdr=cfg.scan.fdr,
-            max_alerts=cfg.scan.max_alerts if max_alerts is None else max_alerts,
-            min_change_pct=cfg.scan.min_change_pct, kinds=kinds, min_severity=cfg.scan.min_severity,
+            max_alerts=None, min_change_pct=cfg.scan.min_change_pct, min_severity=cfg.scan.min_severity,
         )
-        if drivers and len(alerts):
-            _add_drivers(st, loader, scores, alerts, as_of, cfg.scan.window_days)
         lifecycle = advance_lifecycle(st.alert_states_before(as_of), alerts, as_of)
         snoozed = st.snoozed_accounts(as_of)
         history_changed = st.history_changes_since_last_record()
         if record:
             with st.transaction():
                 st.record_alert_day(as_of, lifecycle)
-    state_of = dict(zip(zip(lifecycle["account"].tolist(), lifecycle["direction"].tolist()), lifecycle["state"].tolist()))
-    alerts["state"] = [state_of.get((a, d), "new") for a, d in zip(alerts["account"], alerts["direction"])]
-    hidden = alerts["account"].isin(list(snoozed))
-    wanted = ~hidden if show == "all" else ~hidden & alerts["state"].isin(["new", "escalated"])
-    shown = alerts[wanted].reset_index(drop=True)
+        state_of = dict(zip(zip(lifecycle["account"].tolist(), lifecycle["direction"].tolist()),
+                            lifecycle["state"].tolist()))
+        alerts["state"] = [state_of.get((a, d), "new") for a, d in zip(alerts["account"], alerts["direction"])]
+        hidden = alerts["account"].isin(list(snoozed))
+        wanted = ~hidden if show == "all" else ~hidden & alerts["state"].isin(["new", "escalated"])
+        if kinds:
+            wanted &= alerts["kind"].isin(list(kinds))
+        limit = cfg.scan.max_alerts if max_alerts is None else max_alerts
+        shown = alerts[wanted].head(limit).reset_index(drop=True)  # alerts come most severe first
+        if drivers and len(shown):
+            _add_drivers(st, loader, scores, shown, as_of, cfg.scan.window_days)
     masked_days = [
         (date(1970, 1, 1) + timedelta(days=loader.start_day + int(i))).isoformat()
         for i in np.flatnonzero(loader.masked)
@@ -740,10 +750,22 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
     }
 
 
-def snooze(account: str, until, *, reason: str | None = None, db: str | None = None, config=None) -> dict:
-    """Hide ``account``'s alerts until ``until`` (inclusive)."""
+SNOOZE_LONGEST_DAYS = 366
+
+
+def snooze(account: str, until, *, reason: str | None = None, force: bool = False, db: str | None = None,
+           config=None, today: date | None = None) -> dict:
+    """Hide ``account``'s alerts until ``until`` (inclusive); the latest snooze of an account
+    wins, so a shorter one shortens it.  An end before ``today`` or more than a year after it
+    is refused unless ``force`` (a typo would otherwise hide an account for good, or not at all)."""
     cfg = _config(config)
     until = parse_day(until, "--until")
+    today = today or datetime.now(timezone.utc).date()
+    if not force and until < today:
+        raise UsageError(f"--until {until} is in the past (today is {today}); to end a snooze use --lift, "
+                         "or give --force to record it anyway")
+    if not force and until > today + timedelta(days=SNOOZE_LONGEST_DAYS):
+        raise UsageError(f"--until {until} is more than a year away; give --force if that is meant")
     with store_mod.open_store(db or cfg.store_path, must_exist=True) as st:
         if not st.has_account(account):
             raise InputError(f"no account {account!r} in the store")
@@ -751,16 +773,47 @@ def snooze(account: str, until, *, reason: str | None = None, db: str | None = N
     return {"account": account, "until": until.isoformat(), "reason": reason}
 
 
-def alert_history(*, states=None, db: str | None = None, config=None):
-    """The recorded alert log (one row per recorded scan day and open alert), newest first."""
+def lift_snooze(account: str, *, db: str | None = None, config=None) -> dict:
+    """Show ``account``'s alerts again: its snoozes are removed."""
+    cfg = _config(config)
+    with store_mod.open_store(db or cfg.store_path, must_exist=True) as st:
+        removed = st.lift_snooze(account)
+    if not removed:
+        raise InputError(f"{account!r} has no snooze to lift; `ebbwatch snooze --list` shows the snoozes")
+    return {"account": account, "lifted": removed}
+
+
+def snoozes(*, db: str | None = None, config=None, today: date | None = None):
+    """The snoozes in force on ``today``: a frame ``account, until, reason, set_at``."""
+    import pandas as pd
+
+    cfg = _config(config)
+    today = today or datetime.now(timezone.utc).date()
+    with store_mod.open_store(db or cfg.store_path, read_only=True, must_exist=True) as st:
+        found = st.snoozed_accounts(today)
+    rows = [(a, u.isoformat(), r, c.isoformat(timespec="seconds") if c else None) for a, (u, r, c) in sorted(found.items())]
+    return pd.DataFrame(rows, columns=["account", "until", "reason", "set_at"])
+
+
+def alert_history(*, states=None, accounts=None, start=None, end=None, db: str | None = None, config=None,
+                  today: date | None = None):
+    """The recorded alert log (one row per recorded scan day and open alert), newest first,
+    narrowed to ``states``, ``accounts`` and the days ``start`` .. ``end``; the columns
+    ``snoozed_until`` and ``snooze_reason`` say which accounts are snoozed ``today``."""
     from .alerts import LIFECYCLE_STATES
 
     unknown = set(states or ()) - set(LIFECYCLE_STATES)
     if unknown:
         raise UsageError(f"unknown state(s) {', '.join(sorted(unknown))}; expected {', '.join(LIFECYCLE_STATES)}")
+    start, end = parse_day(start, "--from"), parse_day(end, "--to")
     cfg = _config(config)
+    today = today or datetime.now(timezone.utc).date()
     with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
-        return st.alert_log(states)
+        log = st.alert_log(states, accounts, start, end)
+        snoozed = st.snoozed_accounts(today)
+    log["snoozed_until"] = [snoozed[a][0].isoformat() if a in snoozed else None for a in log["account"]]
+    log["snooze_reason"] = [snoozed[a][1] if a in snoozed else None for a in log["account"]]
+    return log
 
 
 # -- backtest --------------------------------------------------------------------------------

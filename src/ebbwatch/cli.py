@@ -13,7 +13,8 @@ from functools import wraps
 import click
 
 from . import __version__, api
-from .errors import EbbwatchError
+from .errors import EbbwatchError, UsageError
+from .textsafe import plain_text
 
 EXIT_ALERTS = 1
 
@@ -328,15 +329,47 @@ def explain_command(account, db, config_path, as_of, fmt, plot_path):
 
 
 @main.command()
-@click.argument("account")
+@click.argument("account", required=False)
 @store_options
-@click.option("--until", required=True, help="Last day (YYYY-MM-DD) the account's alerts stay hidden.")
-@click.option("--reason", help="Why (kept with the snooze, shown in `ebbwatch alerts`).")
+@click.option("--until", help="Last day (YYYY-MM-DD) the account's alerts stay hidden.")
+@click.option("--reason", help="Why (kept with the snooze, shown in `ebbwatch alerts` and --list).")
+@click.option("--lift", is_flag=True, help="End the account's snooze now.")
+@click.option("--list", "list_them", is_flag=True, help="List the snoozes in force.")
+@click.option("--force", is_flag=True, help="Accept an --until in the past or more than a year away.")
 @handle_errors
-def snooze(account, db, config_path, until, reason):
-    """Hide an account's alerts until a date (a known migration, a customer on holiday, ...)."""
-    result = api.snooze(account, until, reason=reason, db=db, config=config_path)
-    click.echo(f"Snoozed {result['account']} until {result['until']}.", err=True)
+def snooze(account, db, config_path, until, reason, lift, list_them, force):
+    """Hide an account's alerts until a date (a known migration, a customer on holiday, ...).
+
+    The latest snooze of an account wins, so snoozing again with an earlier date shortens it.
+
+    \b
+    Examples:
+      ebbwatch snooze acct-030 --until 2026-12-15 --reason "planned migration"
+      ebbwatch snooze --list
+      ebbwatch snooze acct-030 --lift
+    """
+    if list_them:
+        if account or until or lift:
+            raise UsageError("--list takes no account, --until or --lift")
+        found = api.snoozes(db=db, config=config_path)
+        if not len(found):
+            click.echo("No snoozes in force.")
+        for row in found.itertuples():
+            click.echo(f"{plain_text(row.account)}  until {row.until}" + (f"  {plain_text(row.reason)}" if row.reason else "")
+                       + f"  (set {row.set_at})")
+        return
+    if not account:
+        raise UsageError("give the account to snooze (or --list)")
+    if lift:
+        if until:
+            raise UsageError("--lift takes no --until")
+        api.lift_snooze(account, db=db, config=config_path)
+        click.echo(f"Lifted the snooze of {plain_text(account)}: its alerts show again.", err=True)
+        return
+    if not until:
+        raise UsageError("give --until YYYY-MM-DD (or --lift, or --list)")
+    result = api.snooze(account, until, reason=reason, force=force, db=db, config=config_path)
+    click.echo(f"Snoozed {plain_text(result['account'])} until {result['until']}.", err=True)
 
 
 @main.command("alerts")
@@ -344,12 +377,24 @@ def snooze(account, db, config_path, until, reason):
 @click.option("--state", "states", multiple=True,
               type=click.Choice(["new", "ongoing", "escalated", "clearing", "resolved"]),
               help="Only rows in these states (repeatable).")
+@click.option("--account", "accounts", multiple=True, help="Only these accounts (repeatable).")
+@click.option("--from", "start", help="First scan day shown, YYYY-MM-DD.")
+@click.option("--to", "end", help="Last scan day shown, YYYY-MM-DD.")
 @click.option("--format", "fmt", type=click.Choice(["table", "jsonl", "csv"]), default="table", show_default=True)
 @click.option("--limit", type=click.IntRange(min=1), default=200, show_default=True)
 @handle_errors
-def alerts_command(db, config_path, states, fmt, limit):
-    """The recorded alert history: one row per recorded scan day and open alert, newest first."""
-    log = api.alert_history(states=list(states) or None, db=db, config=config_path).head(limit)
+def alerts_command(db, config_path, states, accounts, start, end, fmt, limit):
+    """The recorded alert history: one row per recorded scan day and open alert, newest first.
+
+    The snoozed column says which accounts are snoozed today, until when and why.
+
+    \b
+    Examples:
+      ebbwatch alerts --state new --state escalated
+      ebbwatch alerts --account acct-030 --from 2026-11-01 --to 2026-11-30
+    """
+    log = api.alert_history(states=list(states) or None, accounts=list(accounts) or None, start=start, end=end,
+                            db=db, config=config_path).head(limit)
     from .report.tables import render_log
 
     click.echo(render_log(log, fmt), nl=False)

@@ -867,13 +867,26 @@ class Store:
             finally:
                 self.con.unregister("incoming_alert_rows")
 
-    def alert_log(self, states=None) -> pd.DataFrame:
+    def alert_log(self, states=None, accounts=None, start=None, end=None) -> pd.DataFrame:
+        """The recorded rows, newest first; ``states``/``accounts`` (lists) and ``start``/``end``
+        (dates, inclusive) narrow them."""
         query = ("SELECT CAST(as_of AS VARCHAR) AS as_of, account, direction, kind, state, severity, "
                  "peak_severity, CAST(opened AS VARCHAR) AS opened, quiet_days, message FROM alert_log")
-        params = []
+        where, params = [], []
         if states:
-            query += " WHERE state IN (SELECT unnest(?))"
+            where.append("state IN (SELECT unnest(?))")
             params.append(list(states))
+        if accounts:
+            where.append("account IN (SELECT unnest(?))")
+            params.append(list(accounts))
+        if start is not None:
+            where.append("as_of >= ?")
+            params.append(start)
+        if end is not None:
+            where.append("as_of <= ?")
+            params.append(end)
+        if where:
+            query += " WHERE " + " AND ".join(where)
         rows = self.con.execute(query + " ORDER BY as_of DESC, severity DESC NULLS LAST, account", params).fetchall()
         return pd.DataFrame(rows, columns=ALERT_LOG_COLUMNS)
 
@@ -893,13 +906,18 @@ class Store:
     def add_snooze(self, account: str, until, reason: str | None):
         self.con.execute("INSERT INTO snoozes VALUES (?, ?, ?, now())", [account, until, reason])
 
+    def lift_snooze(self, account: str) -> int:
+        """Remove the account's snoozes; returns how many rows went."""
+        return len(self.con.execute("DELETE FROM snoozes WHERE account = ? RETURNING 1", [account]).fetchall())
+
     def snoozed_accounts(self, as_of) -> dict:
-        """account -> (until, reason) for snoozes still in force on ``as_of``."""
+        """account -> (until, reason, set_at) for snoozes in force on ``as_of``: each account's
+        latest snooze command wins (a shorter one after a longer one shortens it)."""
         rows = self.con.execute(
-            """SELECT account, until, reason FROM snoozes WHERE until >= ?
-            QUALIFY row_number() OVER (PARTITION BY account ORDER BY until DESC) = 1""", [as_of]
+            """SELECT account, until, reason, created_at FROM snoozes
+            QUALIFY row_number() OVER (PARTITION BY account ORDER BY created_at DESC, until DESC) = 1""",
         ).fetchall()
-        return {a: (u, r) for a, u, r in rows}
+        return {a: (u, r, c) for a, u, r, c in rows if u >= as_of}
 
     # -- drivers ---------------------------------------------------------------------------
     def event_period_sums(self, event_weights: dict[str, float], targets: pd.DataFrame, window_days,

@@ -88,7 +88,7 @@ def render_alerts(alerts, fmt: str = "table", summary: dict | None = None) -> st
     raise ValueError(f"unknown format {fmt!r}; expected one of {', '.join(ALERT_FORMATS)}")
 
 
-LOG_COLUMNS = ("as_of", "account", "direction", "kind", "state", "severity", "opened")
+LOG_COLUMNS = ("as_of", "account", "direction", "kind", "state", "severity", "opened", "snoozed")
 
 
 def render_log(log, fmt: str = "table") -> str:
@@ -107,6 +107,9 @@ def render_log(log, fmt: str = "table") -> str:
         return buffer.getvalue()
     if not records:
         return "No recorded alerts.\n"
+    for r in records:
+        until, reason = r.get("snoozed_until"), r.get("snooze_reason")
+        r["snoozed"] = None if until is None else f"until {until}" + (f": {reason}" if reason else "")
     rows = [[plain_text("-" if r[c] is None else (f"{r[c]:.1f}" if c == "severity" else r[c])) for c in LOG_COLUMNS] for r in records]
     widths = [max(len(c), *(len(row[i]) for row in rows)) for i, c in enumerate(LOG_COLUMNS)]
     line = lambda cells: "  ".join(str(x).ljust(w) for x, w in zip(cells, widths)).rstrip()  # noqa: E731
