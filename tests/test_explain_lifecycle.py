@@ -124,12 +124,13 @@ def test_snooze_hides_an_account_until_the_date(store):
     target = alerts["account"].iloc[0]
     runner = CliRunner()
     # The fleet's days are in the past, so the snooze's end is too: --force records it anyway.
-    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", fleet.as_of.isoformat(), "--reason", "migration",
+    day_before = fleet.as_of - timedelta(days=1)
+    assert runner.invoke(main, ["snooze", target, "--db", db, "--until", day_before.isoformat(), "--reason", "migration",
                                 "--force"]).exit_code == 0
-    hidden = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
-    assert target not in set(hidden["account"]) and hidden.attrs["summary"]["snoozed"] == 1
-    later = ebbwatch.scan(db=db, as_of=fleet.as_of + timedelta(days=1), max_alerts=1000)
-    assert later.attrs["summary"]["snoozed"] == 0
+    hidden = ebbwatch.scan(db=db, as_of=day_before, max_alerts=1000, show="all")
+    assert target not in set(hidden["account"]) and hidden.attrs["summary"]["snoozed"] >= 1
+    later = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
+    assert later.attrs["summary"]["snoozed"] == 0 and target in set(later["account"])
     assert runner.invoke(main, ["snooze", "nobody", "--db", db, "--until", "2027-01-01"]).exit_code == 3
 
 

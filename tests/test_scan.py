@@ -1,6 +1,7 @@
 """The scan end to end: daily input → store → scan, through the API and the CLI."""
 
 import json
+from datetime import date, timedelta
 import re
 
 import pandas as pd
@@ -228,3 +229,45 @@ def test_a_filtered_scan_records_the_whole_days_judgement(tmp_path):
         assert recorded() == whole, extra
     surges = runner.invoke(main, ["scan", "--db", db, "--as-of", day, "--all", "--kind", "surge", "--format", "jsonl"])
     assert {json.loads(line)["kind"] for line in surges.stdout.splitlines()} == {"surge"}
+
+
+def test_days_after_the_data_or_before_it_are_refused(fleet_store, tmp_path):
+    """A day after the store's last day is not silence, it is missing: judging it flooded a
+    chat channel with 'drop -100%'.  A day before the data said 'cannot convert float NaN'."""
+    fleet, db = fleet_store
+    runner = CliRunner()
+    after = (fleet.as_of + timedelta(days=3)).isoformat()
+    first = min(fleet.days).isoformat()
+    for command in (["scan"], ["report", "--html", str(tmp_path / "r.html")], ["explain", fleet.account_ids[0]]):
+        late = runner.invoke(main, [*command, "--db", db, "--as-of", after])
+        assert late.exit_code == 3, late.output
+        assert f"after the store's last day with data ({fleet.as_of.isoformat()})" in late.stderr
+        early = runner.invoke(main, [*command, "--db", db, "--as-of", "2020-01-01"])
+        assert early.exit_code == 3 and f"the store holds {first} .. {fleet.as_of.isoformat()}" in early.stderr
+    assert not (tmp_path / "r.html").exists()
+
+
+def test_the_default_day_is_complete_in_every_time_zone(tmp_path):
+    """Events up to 2026-11-30T23:36Z with an account in Sydney: there it is already 1 December
+    and that day has only begun, in New York 30 November is still open; the default judges the
+    last day complete everywhere and says why.  The day after the newest event is never judged."""
+    from datetime import datetime, timezone
+
+    accounts = tmp_path / "accounts.csv"
+    accounts.write_text("account,timezone\nsyd-1,Australia/Sydney\nny-2,America/New_York\nutc-3,\n")
+    rows = []
+    end = datetime(2026, 11, 30, 23, 36, tzinfo=timezone.utc)
+    for back in range(90 * 24 * 4):
+        ts = end - timedelta(minutes=15 * back)
+        for account in ("syd-1", "ny-2", "utc-3"):
+            rows.append({"ts": ts.isoformat().replace("+00:00", "Z"), "event": "x", "user": "u", "account": account})
+    events = tmp_path / "events.jsonl"
+    events.write_text("".join(json.dumps(r) + "\n" for r in rows))
+    db = str(tmp_path / "s.duckdb")
+    ebbwatch.ingest_files([str(events)], db=db, accounts=str(accounts))
+    alerts = ebbwatch.scan(db=db, today=date(2026, 12, 4))
+    summary = alerts.attrs["summary"]
+    assert summary["as_of"] == "2026-11-29"
+    assert "still open" in summary["as_of_reason"] and "2026-11-30T23:36" in summary["as_of_reason"]
+    result = CliRunner().invoke(main, ["scan", "--db", db])
+    assert "judged the last day complete in every account's time zone" in result.stderr

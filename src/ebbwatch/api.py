@@ -193,9 +193,10 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
             counted = gather_in_order(client.map(count_parsed, [f for *_, f in waiting], seen_before,
                                                  pure=False, retries=3), "counting")
             st.merge_user_daily([table for table, *_ in counted])
-            for (place, digest, _), (_, result, first_day, last_day) in zip(waiting, counted):
+            for (place, digest, _), (_, result, first_day, last_day, newest_us) in zip(waiting, counted):
                 name, _, rejects = outcomes[place]
                 st.log_ingest(name, digest, result, first_day, last_day)
+                st.note_newest_event(newest_us)
                 outcomes[place] = (name, result, rejects)
     return outcomes
 
@@ -218,6 +219,7 @@ def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_
         result.duplicates = merged["duplicates"]
         result.unattributed = merged["unattributed"]
         st.log_ingest(display, digest, result, merged["first_day"], merged["last_day"])
+        st.note_newest_event(merged["newest_us"])
     all_rejects.extend(file_rejects)
     return result
 
@@ -304,11 +306,57 @@ def fleet_factor_summary(voters: int) -> dict:
 
 
 def default_as_of(last_day: date | None, today: date | None = None) -> date:
-    """The last complete day: the store's last day, unless that is today (still filling)."""
+    """The last complete day by the calendar alone: the store's last day, unless that is today."""
     today = today or datetime.now(timezone.utc).date()
     if last_day is None:
         raise InputError("the store has no activity yet; ingest events or --daily first")
     return min(last_day, today - timedelta(days=1))
+
+
+def last_complete_day(st, today: date | None = None) -> tuple[date, str]:
+    """The day a scan judges by default, and why: the last day complete for the whole fleet.
+
+    Not today; not a day still open in some account's time zone at the newest event ingested (a
+    Sydney account's day starts ten hours before London's); and not a fleet-wide data gap.
+    Stores loaded from daily aggregates have no event times: their last day counts as complete.
+    """
+    from zoneinfo import ZoneInfo
+
+    from .series import fleet_gap_days
+
+    as_of = default_as_of(st.last_day(), today)
+    why = f"the store's last day {as_of}" if as_of == st.last_day() else f"the day before today ({as_of})"
+    newest = st.newest_event_us()
+    if newest is not None:
+        instant = datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(microseconds=newest)
+        for zone in st.account_timezones():
+            open_day = instant.astimezone(ZoneInfo(zone)).date()  # the day the newest event fell on, there
+            if open_day - timedelta(days=1) < as_of:
+                as_of = open_day - timedelta(days=1)
+                why = (f"the last day complete in every account's time zone: the newest event "
+                       f"({instant.isoformat(timespec='minutes')}) fell on {open_day} in {zone}, a day still open")
+    totals = st.fleet_daily_totals()
+    gaps = set(fleet_gap_days(totals["day"], totals["events"].to_numpy(float))) if len(totals) else set()
+    while as_of in gaps:
+        why += f"; {as_of} is a fleet-wide data gap, so the day before"
+        as_of -= timedelta(days=1)
+    return as_of, why
+
+
+def check_as_of(st, as_of: date, what: str = "--as-of") -> None:
+    """Refuse a day the store cannot judge: after its last day (days not ingested are not data,
+    and would read as silence) or before its first.  (A day with too little history before it
+    is judged, and its accounts are listed as having not enough history.)"""
+    first, last = st.first_day(), st.last_day()
+    if last is None:
+        raise InputError("the store has no activity yet; ingest events or --daily first")
+    if as_of > last:
+        raise InputError(f"{what} {as_of} is after the store's last day with data ({last}): the days after it are "
+                         f"not data and would read as silence. Ingest them first, or judge {last} or earlier "
+                         f"(the store holds {first} .. {last}).")
+    if as_of < first:
+        raise InputError(f"{what} {as_of} is before the store's first day with data: the store holds "
+                         f"{first} .. {last}.")
 
 
 def parse_day(text: str | date | None, what: str = "--as-of") -> date | None:
@@ -488,8 +536,9 @@ def export_index(output: str, *, as_of=None, history_days: int | None = None, ac
     if target.exists() and (not target.is_dir() or any(target.iterdir())):
         raise UsageError(f"{output} exists and is not an empty folder; give a new folder (nothing was written)")
     with store_mod.open_store(db or cfg.store_path, read_only=True, must_exist=True) as st:
-        if as_of is None:
+        if as_of is None:  # an export judges nothing: every stored day goes
             as_of = default_as_of(st.last_day(), today)
+        check_as_of(st, as_of)
         loader = PanelLoader(st, cfg, as_of, history_days or cfg.scan.history_days)
         info = st.export_index_parts(output, loader.weights, day_to_date(loader.start_day), day_to_date(loader.end_day),
                                      accounts_per_part)
@@ -549,7 +598,10 @@ def scan(
     as_of = parse_day(as_of)
     with store_mod.open_store(db or cfg.store_path, read_only=not record, must_exist=True) as st:
         if as_of is None:
-            as_of = default_as_of(st.last_day(), today)
+            as_of, as_of_reason = last_complete_day(st, today)
+        else:
+            as_of_reason = "given (--as-of)"
+        check_as_of(st, as_of)
         accounts = st.account_ids()
         if not accounts:
             raise InputError("the store has no accounts yet; ingest events or --daily first")
@@ -598,6 +650,7 @@ def scan(
     counts = scores["status"].value_counts().to_dict() if len(scores) else {}
     shown.attrs["summary"] = {
         "as_of": as_of.isoformat(),
+        "as_of_reason": as_of_reason,
         "accounts": len(scores),
         "judged": int(counts.get("judged", 0)),
         "not_enough_history": sorted(scores.loc[scores["status"] == "not_enough_history", "account"].tolist()),
@@ -698,7 +751,8 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
     as_of = parse_day(as_of)
     with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
         if as_of is None:
-            as_of = default_as_of(st.last_day(), today)
+            as_of, _ = last_complete_day(st, today)
+        check_as_of(st, as_of)
         if not st.has_account(account):
             raise InputError(f"no account {account!r} in the store; `ebbwatch status` lists what is there")
         accounts = st.account_ids()
@@ -854,7 +908,8 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         first_day = st.status()["first_day"]
         if first_day is None:
             raise InputError("the store has no activity yet; ingest events or --daily first")
-        end = end or default_as_of(st.last_day(), today)
+        end = end or last_complete_day(st, today)[0]
+        check_as_of(st, end, "--to")
         start = start or first_day + timedelta(days=cfg.scan.min_history_days + cfg.scan.window_days)
         if start > end:
             raise UsageError(f"--from {start} is after --to {end}")

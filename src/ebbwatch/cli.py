@@ -286,7 +286,8 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
         f"{' (recorded)' if summary['recorded'] else ''}; {summary['judged']:,} accounts judged, "
         f"{len(summary['not_enough_history']):,} with not enough history, {summary['dormant']:,} dormant"
         + (f"; masked data-gap days: {', '.join(summary['masked_days'])}" if summary["masked_days"] else "")
-        + _fleet_words(summary["fleet_factor"]) + ".",
+        + _fleet_words(summary["fleet_factor"])
+        + ("" if summary["as_of_reason"].startswith("given") else f"; judged {summary['as_of_reason']}") + ".",
         err=True,
     )
     for change in summary["history_changed"]:

@@ -471,6 +471,7 @@ class Store:
                     UNION ALL SELECT make_timestamptz(max(ts_us)) FROM {fresh} WHERE id_hash IS NOT NULL))""",
             [int(dedupe_window_days)],
         )
+        newest_us = con.execute(f"SELECT max(ts_us) FROM {fresh}").fetchall()[0][0]
         grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
         if self._user_daily_is_empty():
             # A first load (a backfill) has nothing to merge with: group straight into the table.
@@ -491,7 +492,30 @@ class Store:
             "unattributed": prepared["unattributed"],
             "first_day": first_day,
             "last_day": last_day,
+            "newest_us": newest_us,
         }
+
+    def note_newest_event(self, ts_us):
+        """Keep the newest event time ingested (epoch microseconds): which days are complete in
+        every account's time zone depends on it.  None (daily aggregates) changes nothing."""
+        if ts_us is None:
+            return
+        current = self.newest_event_us()
+        if current is None or int(ts_us) > current:
+            self.con.execute("INSERT OR REPLACE INTO meta VALUES ('newest_event_us', ?)", [str(int(ts_us))])
+
+    def newest_event_us(self) -> int | None:
+        row = self.con.execute("SELECT value FROM meta WHERE key = 'newest_event_us'").fetchone()
+        return None if row is None else int(row[0])
+
+    def first_day(self):
+        return self.con.execute("SELECT min(day) FROM daily").fetchall()[0][0]
+
+    def account_timezones(self) -> list[str]:
+        """The time zones of accounts with activity ('UTC' for those without one)."""
+        return [r[0] for r in self.con.execute(
+            """SELECT DISTINCT COALESCE(a.timezone, 'UTC') FROM (SELECT DISTINCT account FROM daily) d
+            LEFT JOIN accounts a USING (account) ORDER BY 1""").fetchall()]
 
     def forget_old_ids(self, dedupe_window_days: int):
         """Forget ids older than the dedupe window, measured back from the newest event time seen."""
@@ -1027,10 +1051,10 @@ def scratch_store(accounts: pa.Table, identities: pa.Table) -> Store:
     return st
 
 
-def aggregate_events(events: pa.Table, duplicate_hashes: np.ndarray) -> tuple[pa.Table, int, object, object]:
+def aggregate_events(events: pa.Table, duplicate_hashes: np.ndarray) -> tuple[pa.Table, int, object, object, object]:
     """Per-user daily counts of prepared events (``Store.prepared_table``) without the ids in
     ``duplicate_hashes``.  Returns ``(account, day, event, user, events)`` rows, the number of
-    events counted, and the first and last day."""
+    events counted, the first and last day, and the newest event time (epoch microseconds)."""
     con = duckdb.connect()
     try:
         _register(con, "events", events)
@@ -1039,11 +1063,12 @@ def aggregate_events(events: pa.Table, duplicate_hashes: np.ndarray) -> tuple[pa
             """CREATE TEMP TABLE fresh AS SELECT * FROM events e
             WHERE e.id_hash IS NULL OR e.id_hash NOT IN (SELECT id_hash FROM duplicates)"""
         )
-        counted, first_day, last_day = con.execute("SELECT count(*), min(day), max(day) FROM fresh").fetchall()[0]
+        counted, first_day, last_day, newest_us = con.execute(
+            "SELECT count(*), min(day), max(day), max(ts_us) FROM fresh").fetchall()[0]
         table = _arrow(con, 'SELECT account, day, event, "user", count(*) AS events FROM fresh GROUP BY ALL')
     finally:
         con.close()
-    return table, int(counted), first_day, last_day
+    return table, int(counted), first_day, last_day, newest_us
 
 
 def resolve_path(path: str | None) -> str:

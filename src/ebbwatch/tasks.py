@@ -148,12 +148,13 @@ def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.
 
 def count_parsed(parsed: ParsedFile, duplicate_hashes: np.ndarray):
     """One parsed file's per-user daily counts without the ids already seen (one task of a Dask
-    ingest).  Returns ``(table, result, first_day, last_day)`` with the result's counts filled."""
-    table, counted, first_day, last_day = store_mod.aggregate_events(parsed.events, duplicate_hashes)
+    ingest).  Returns ``(table, result, first_day, last_day, newest_us)`` with the result's
+    counts filled."""
+    table, counted, first_day, last_day, newest_us = store_mod.aggregate_events(parsed.events, duplicate_hashes)
     result = parsed.result
     result.ingested = counted
     result.duplicates = parsed.candidates - counted
-    return table, result, first_day, last_day
+    return table, result, first_day, last_day, newest_us
 
 
 # -- accounts ---------------------------------------------------------------------------------
