@@ -191,14 +191,39 @@ RESOLVE_DAYS = 3  # an open alert absent this many recorded days is resolved; th
 OPEN_STATES = ("new", "ongoing", "escalated", "clearing")
 
 
+def still_changed(scores: pd.DataFrame, min_change_pct: float = 30.0) -> set:
+    """``(account, direction)`` pairs whose last week is still beyond its baseline by at least
+    ``min_change_pct`` in that direction (``level`` against ``baseline_level``, both
+    weekday-adjusted, of ``detect.SCORE_COLUMNS``), or that are still silent after a stop.
+
+    An alert whose p-value has faded is not over while the account stays this far from its
+    usual level: as days pass the tests lose the contrast (the reference fills with the new
+    level) long before the account recovers.
+    """
+    if not len(scores):
+        return set()
+    judged = scores[scores["status"] == "judged"]
+    level = judged["level"].to_numpy(float)
+    baseline = judged["baseline_level"].to_numpy(float)
+    with np.errstate(invalid="ignore"):
+        down = (level <= (1 - min_change_pct / 100.0) * baseline) & (baseline > 0)
+        down |= (judged["down_kind"].to_numpy(object) == "stop") & (judged["silent_days"].to_numpy(float) >= 2)
+        up = (level >= (1 + min_change_pct / 100.0) * baseline) & (baseline > 0)
+    accounts = judged["account"].to_numpy(object)
+    return {(a, "down") for a in accounts[down]} | {(a, "up") for a in accounts[up]}
+
+
 def advance_lifecycle(previous: pd.DataFrame, alerts: pd.DataFrame, as_of: date, *,
-                      escalate_step: float = 3.0, resolve_days: int = RESOLVE_DAYS) -> pd.DataFrame:
+                      escalate_step: float = 3.0, resolve_days: int = RESOLVE_DAYS,
+                      holding: set = frozenset()) -> pd.DataFrame:
     """Each open alert's state on ``as_of`` from its state on the last recorded day before it.
 
     ``previous``: latest rows per account and direction (columns of the alert log); ``alerts``:
-    today's alerts.  An alert is ``new`` the first day, ``ongoing`` while it holds, ``escalated``
-    on a day its severity exceeds its previous peak by ``escalate_step``; an open alert not raised
-    today is ``clearing`` until it has been absent ``resolve_days`` recorded days, then
+    today's alerts; ``holding``: ``(account, direction)`` pairs still changed (:func:`still_changed`).
+    An alert is ``new`` the first day, ``ongoing`` while it holds, ``escalated`` on a day its
+    severity exceeds its previous peak by ``escalate_step``.  An open alert not raised today stays
+    ``ongoing`` (no severity) while the account is still changed; once it is back within its
+    baseline it is ``clearing`` until it has been so ``resolve_days`` recorded days, then
     ``resolved`` (and a later alert is new again).  Returns the rows to log for ``as_of``.
     """
     rows = []
@@ -219,6 +244,12 @@ def advance_lifecycle(previous: pd.DataFrame, alerts: pd.DataFrame, as_of: date,
                      "quiet_days": 0, "message": alert.message})
     for key, before in prev.items():
         if key in seen or before.state == "resolved":
+            continue
+        if key in holding:
+            rows.append({"as_of": as_of, "account": before.account, "direction": before.direction,
+                         "kind": before.kind, "state": "ongoing", "severity": None,
+                         "peak_severity": before.peak_severity, "opened": before.opened, "quiet_days": 0,
+                         "message": before.message})
             continue
         quiet = int(before.quiet_days or 0) + 1
         rows.append({"as_of": as_of, "account": before.account, "direction": before.direction, "kind": before.kind,

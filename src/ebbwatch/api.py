@@ -22,6 +22,7 @@ from .ingest import csvs
 from .ingest.lines import LineRules
 from .ingest.readers import STDIN, expand_inputs, remove_quietly, spool_stdin
 from .ingest.timestamps import parse_rfc3339
+from .series import NEVER_ACTIVE
 
 Progress = Callable[[str, int, int], None]
 
@@ -389,6 +390,27 @@ class PanelLoader:
         self.window_priors = None
         self.fleet_voters = 0
         self._fleet_fit = None  # a Future while the fit runs in the background
+        self._first_full = None
+        self.first_full()  # before any thread reads blocks or fits the fleet
+
+    def first_full(self, st=None) -> dict:
+        """``{account: first full day}`` (day numbers, ``series.first_full_days``) from the whole
+        store, not only the loader's window, so every window judges an account alike; read once."""
+        from .series import first_full_days
+
+        if self._first_full is None:
+            st = st or self.st
+            first_active = st.first_active_days(self.weights)
+            start = st.first_day()
+            data_start = (start - date(1970, 1, 1)).days if start is not None else 0
+            days = first_full_days(np.fromiter(first_active.values(), np.int64, len(first_active)), data_start)
+            self._first_full = dict(zip(first_active, days.tolist()))
+        return self._first_full
+
+    def first_full_of(self, accounts, st=None) -> np.ndarray:
+        """The first full day of each of ``accounts`` (A,); a far-future day for one never active."""
+        first = self.first_full(st)
+        return np.array([first.get(a, NEVER_ACTIVE) for a in accounts], dtype=np.int64)
 
     def _rows(self, accounts, *, users: bool = False, ranges=None, st=None):
         """``(account_index, day, value, events, users)``; ``events``/``users`` are None and
@@ -439,18 +461,21 @@ class PanelLoader:
         sample of ``accounts``, read through ``st`` (default the loader's store)."""
         from .baseline.counts import pooled_dispersion
         from .detect import fleet_window_priors
-        from .series import fleet_factor, fleet_voting_accounts, missing_before_first_activity
+        from .series import fleet_factor, fleet_voting_accounts, missing_before_first_full_day
 
         counts = self.sample_counts(accounts, st)
+        sample, _ = fleet_sample(accounts)
+        first_full = self.first_full_of(sample, st)
         self.fleet_factor, self.masked = fleet_factor(counts)
         self.fleet_voters = fleet_voting_accounts(counts)
         # The same fleet-wide count dispersion and window priors for every chunk (see
         # backtest.replay_fleet_factors).
-        started = missing_before_first_activity(counts)
+        started = missing_before_first_full_day(counts, first_full - self.start_day)
         started[:, self.masked] = np.nan
         self.count_dispersion = pooled_dispersion(started, window=self.cfg.scan.window_days)
         self.window_priors = fleet_window_priors(counts, self.fleet_factor, self.masked,
-                                                 np.arange(self.start_day, self.end_day + 1), _scan_params(self.cfg))
+                                                 np.arange(self.start_day, self.end_day + 1), _scan_params(self.cfg),
+                                                 first_full_day=first_full)
         return self
 
     def read(self, accounts):
@@ -462,7 +487,8 @@ class PanelLoader:
         seats = [self.seats.get(a) for a in accounts]
         return build_panel(idx, day, value, events, users, accounts=accounts, start_day=self.start_day,
                            end_day=self.end_day, normalise=self.cfg.index.normalise,
-                           seats=np.array([np.nan if s is None else s for s in seats], float))
+                           seats=np.array([np.nan if s is None else s for s in seats], float),
+                           first_full_day=self.first_full_of(accounts))
 
     def with_fleet(self, panel):
         """A panel from :meth:`read` with the fleet factor and gap mask applied (waiting for a
@@ -519,7 +545,8 @@ def _score_on_dask(st, loader, accounts, params, chunk_size, scheduler, progress
     with _exchange(st, loader, chunk_size, shared_dir) as directory:
         task = functools.partial(score_part, directory=directory, start_day=loader.start_day, end_day=loader.end_day,
                                  normalise=loader.cfg.index.normalise, seats=_seats(loader),
-                                 fleet_factor=loader.fleet_factor, masked=loader.masked, params=params)
+                                 fleet_factor=loader.fleet_factor, masked=loader.masked, params=params,
+                                 first_full=loader.first_full())
         return concat_accounts(_on_dask(scheduler, task, blocks, progress, chunk_size, len(accounts)), accounts)
 
 
@@ -579,7 +606,7 @@ def scan(
     """
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
-    from .alerts import advance_lifecycle, select_alerts
+    from .alerts import advance_lifecycle, select_alerts, still_changed
     import functools
 
     import pandas as pd
@@ -626,7 +653,8 @@ def scan(
             scores, as_of=as_of, names=loader.names, window_days=cfg.scan.window_days, fdr=cfg.scan.fdr,
             max_alerts=None, min_change_pct=cfg.scan.min_change_pct, min_severity=cfg.scan.min_severity,
         )
-        lifecycle = advance_lifecycle(st.alert_states_before(as_of), alerts, as_of)
+        lifecycle = advance_lifecycle(st.alert_states_before(as_of), alerts, as_of,
+                                      holding=still_changed(scores, cfg.scan.min_change_pct))
         snoozed = st.snoozed_accounts(as_of)
         history_changed = st.history_changes_since_last_record()
         if record:
@@ -793,7 +821,7 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         "changepoint": {"onset": None if row["onset_day"] < 0 else day_to_date(row["onset_day"]).isoformat(),
                         "level_before": f(row["level_before"]), "level_after": f(row["level_after"]),
                         "kind_if_down": row["down_kind"]},
-        "trend": {"weeks": 12, "theil_sen_change_pct": f(row["trend_change_pct"]), "mann_kendall_p_down": f(row["p_trend_down"])},
+        "trend": {"weeks": int(row["trend_weeks"]), "theil_sen_change_pct": f(row["trend_change_pct"]), "mann_kendall_p_down": f(row["p_trend_down"])},
         "segments": [{"start": day_to_date(a).isoformat(), "end": day_to_date(b).isoformat(), "level": f(level)}
                      for a, b, level in segments],
         "silence": {"silent_days": int(row["silent_days"]), "p_silence": f(row["p_stop"])},
@@ -890,7 +918,6 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     from .backtest import calibrate, churn_days, evaluate, replay_fleet_factors, select_replayed, sweep
     from .engine import default_threads
     from .ingest.csvs import read_outcomes
-    from .series import missing_before_first_activity
 
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
@@ -917,9 +944,9 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         history = max((end - first_day).days + 1, cfg.scan.window_days + 14)
         loader = PanelLoader(st, cfg, end, history)
         days = list(range((start - EPOCH).days, (end - EPOCH).days + 1, step))
-        sample_counts = missing_before_first_activity(loader.sample_counts(accounts))
+        sample_counts = loader.sample_counts(accounts)
         factors = replay_fleet_factors(sample_counts, loader.start_day, days, history_days=history_days,
-                                       params=params)
+                                       params=params, first_full_day=loader.first_full_of(fleet_sample(accounts)[0]))
         never = np.iinfo(np.int64).max
         churn = {a: int(c) for a, c in zip(accounts, churn_days(accounts, outcome_frame)) if c != never}
         replay = dict(as_of_days=days, fleet_factors=factors, churn=churn, params=params, history_days=history_days,
@@ -931,7 +958,7 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
             with _exchange(st, loader, chunk_size, shared_dir) as directory:
                 task = functools.partial(replay_part, directory=directory, start_day=loader.start_day,
                                          end_day=loader.end_day, normalise=cfg.index.normalise, seats=_seats(loader),
-                                         **replay)
+                                         first_full=loader.first_full(), **replay)
                 results = _on_dask(scheduler, task, blocks, progress, chunk_size, len(accounts))
         else:
             from .engine import run_local

@@ -15,7 +15,7 @@ import pandas as pd
 from .alerts import RESOLVE_DAYS, select_alerts
 from .baseline.counts import pooled_dispersion
 from .detect import ScanParams, fleet_window_priors, score_panel
-from .series import Panel, fleet_factor, missing_before_first_activity
+from .series import Panel, fleet_factor, missing_before_first_full_day
 
 DOWN_OUTCOMES = ("churned", "contracted")
 UP_OUTCOMES = ("expanded",)
@@ -45,7 +45,7 @@ REPLAY_COLUMNS = ["as_of", "account", "direction", "kind", "severity"]
 
 
 def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history_days: int = 365,
-                         params: ScanParams = ScanParams()) -> list:
+                         params: ScanParams = ScanParams(), first_full_day=None) -> list:
     """Each replayed day's fleet-wide quantities, from a fleet-wide sample.
 
     ``sample_counts`` (S, D): raw event totals of a sample of accounts over the whole history
@@ -53,10 +53,12 @@ def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history
     ``as_of_days`` a tuple ``(factor, masked, count_dispersion, window_priors)`` over the ``history_days``
     columns ending on that day, computed only from columns up to it (the fleet factor and
     data-gap mask of ``series.fleet_factor``, the pooled dispersion of
-    ``baseline.counts.pooled_dispersion``).
+    ``baseline.counts.pooled_dispersion``).  ``first_full_day`` (S,): the sample accounts' first
+    full days (``series.first_full_days``; None: histories start at the first activity).
     """
     raw = np.where(np.isnan(sample_counts), 0.0, sample_counts)
-    started = missing_before_first_activity(sample_counts)
+    started = missing_before_first_full_day(sample_counts, None if first_full_day is None
+                                            else np.asarray(first_full_day) - panel_start)
     out = []
     for day in as_of_days:
         end = day - panel_start
@@ -65,7 +67,8 @@ def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history
         seen = _columns(started, end - history_days + 1, end, np.nan)
         seen[:, masked] = np.nan
         dispersion = pooled_dispersion(seen, window=params.window_days)
-        priors = fleet_window_priors(window, factor, masked, np.arange(day - history_days + 1, day + 1), params)
+        priors = fleet_window_priors(window, factor, masked, np.arange(day - history_days + 1, day + 1), params,
+                                     first_full_day=first_full_day)
         out.append((factor, masked, dispersion, priors))
     return out
 

@@ -19,6 +19,7 @@ FLEET_DEADBAND = 0.05  # fleet-wide moves under ±5% are left alone (noise of th
 FLEET_MIN_ACCOUNTS = 20
 FLEET_MIN_REFERENCE = 3.0  # accounts whose usual day is under 3 events are too noisy to vote
 FLEET_EXCLUDE = 0.2  # days the fleet moved on by more than this (log) stay out of later references
+NEVER_ACTIVE = 10**9  # the "first full day" of an account without activity: after every column
 
 
 def weekday_of(day: np.ndarray | int):
@@ -69,11 +70,40 @@ def quiet_nanmean(array, axis):
         return total / valid.sum(axis=axis)
 
 
-def missing_before_first_activity(counts) -> np.ndarray:
-    """Raw daily totals (A, D) with the days before each account's first activity as NaN, not 0."""
+def first_full_days(first_active, data_start: int) -> np.ndarray:
+    """Each account's first full day (day numbers, (A,)) from its first day with activity.
+
+    The day an account starts on is partial (its first events arrive part-way through it, and
+    in the account's own time zone the store's day may have begun hours earlier), so it reads
+    as a change and is part of no history: the first full day is the next one.  Activity on the
+    store's first day ``data_start`` is not known to be a start (the account may be older than
+    the data), so that day is kept.  Days are absolute, so a scan and a backtest replay of the
+    same day, whatever columns their panels span, agree.
+    """
+    first_active = np.asarray(first_active, np.int64)
+    return np.where(first_active > data_start, first_active + 1, first_active)
+
+
+def first_columns(counts, first_full_column=None) -> np.ndarray:
+    """The first column of each account's history (A,), ``D`` for an account with none.
+
+    ``first_full_column``: each account's first full day as a column (from
+    :func:`first_full_days`; before column 0 for an account older than the columns), so that
+    days without activity after it are zeros, whichever columns a panel spans.  Without it, the
+    first column with activity in ``counts``."""
+    n_days = np.shape(counts)[1]
+    if first_full_column is not None:
+        return np.clip(np.asarray(first_full_column, np.int64), 0, n_days)
+    active = np.nan_to_num(np.asarray(counts, float)) > 0
+    return np.where(active.any(axis=1), active.argmax(axis=1), n_days)
+
+
+def missing_before_first_full_day(counts, first_full_column=None) -> np.ndarray:
+    """Raw daily totals (A, D) with the days before each account's history starts
+    (:func:`first_columns`) as NaN, not 0."""
     counts = np.asarray(counts, float)
-    started = np.cumsum(np.nan_to_num(counts) > 0, axis=1) > 0
-    return np.where(started, counts, np.nan)
+    first = first_columns(counts, first_full_column)
+    return np.where(np.arange(counts.shape[1])[None, :] >= first[:, None], counts, np.nan)
 
 
 def resolve_event_weights(event_names, weights: dict[str, float], exclude=()) -> dict[str, float]:
@@ -95,10 +125,11 @@ def resolve_event_weights(event_names, weights: dict[str, float], exclude=()) ->
 class Panel:
     """The activity of a block of accounts over consecutive days.
 
-    ``values`` (A, D) float64: the activity index, NaN where missing (before the account's first
-    activity, or a masked fleet-wide data-gap day).  ``counts`` (A, D): the weighted event totals
+    ``values`` (A, D) float64: the activity index, NaN where missing (before the account's
+    history starts, or a masked fleet-wide data-gap day).  ``counts`` (A, D): the weighted event totals
     before normalisation (the count model's scale), NaN where ``values`` is.  ``start_day``: the
-    day number of column 0.  ``first_seen`` (A,): column of the first activity, ``D`` if none.
+    day number of column 0.  ``first_seen`` (A,): the column the account's history starts
+    at (:func:`first_columns`), ``D`` if none.
     """
 
     accounts: list
@@ -134,7 +165,7 @@ def dense_matrix(account_index, day, value, n_accounts: int, start_day: int, n_d
 
 def build_panel(
     account_index, day, value, events, users, *, accounts, start_day: int, end_day: int,
-    normalise: str = "none", seats=None, fleet_factor=None, masked=None,
+    normalise: str = "none", seats=None, fleet_factor=None, masked=None, first_full_day=None,
 ) -> Panel:
     """Arrays from the store's rows for one block of accounts.
 
@@ -142,7 +173,8 @@ def build_panel(
     (divide by the day's distinct users).  ``fleet_factor`` / ``masked`` (D,) come from
     :func:`fleet_factor` computed over the whole fleet; they default to 1 / nothing masked.
     ``value`` rows of one account-day add up; ``users`` (one row per account-day) is needed only
-    for ``active_users`` and ``events`` is not used.
+    for ``active_users`` and ``events`` is not used.  ``first_full_day`` (A,): each account's
+    first full day (:func:`first_full_days`); without it a history starts at the first activity.
     """
     n_days = end_day - start_day + 1
     n_accounts = len(accounts)
@@ -161,8 +193,7 @@ def build_panel(
         values = counts.copy()
     else:
         raise ValueError(f"unknown normalise {normalise!r}; expected none, seats or active_users")
-    active_any = counts > 0
-    first_seen = np.where(active_any.any(axis=1), active_any.argmax(axis=1), n_days)
+    first_seen = first_columns(counts, None if first_full_day is None else np.asarray(first_full_day) - start_day)
     before = np.arange(n_days)[None, :] < first_seen[:, None]
     if masked is None:
         masked = np.zeros(n_days, dtype=bool)

@@ -511,6 +511,19 @@ class Store:
     def first_day(self):
         return self.con.execute("SELECT min(day) FROM daily").fetchall()[0][0]
 
+    def first_active_days(self, event_weights: dict[str, float]) -> dict:
+        """Each account's first day with weighted activity (``event_weights`` > 0), as days since
+        1970-01-01: ``{account: day}``, accounts without such activity left out."""
+        weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
+        _register(self.con, "event_weights", weights)
+        try:
+            rows = _arrow(self.con, """SELECT d.account, CAST(min(d.day) - DATE '1970-01-01' AS INTEGER) AS day
+                FROM daily d JOIN event_weights e ON e.event = d.event
+                WHERE e.weight > 0 AND d.events > 0 GROUP BY d.account""")
+        finally:
+            self.con.unregister("event_weights")
+        return dict(zip(rows.column("account").to_pylist(), rows.column("day").to_pylist()))
+
     def account_timezones(self) -> list[str]:
         """The time zones of accounts with activity ('UTC' for those without one)."""
         return [r[0] for r in self.con.execute(

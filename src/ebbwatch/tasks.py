@@ -20,7 +20,7 @@ from .errors import InputError
 from .frames import FileResult, Reject
 from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
 from .ingest.readers import first_value_is_text, iter_lines, scan_file
-from .series import Panel, build_panel
+from .series import NEVER_ACTIVE, Panel, build_panel
 
 # Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
 # lines may nest deeper than this goes through the precise path so both paths agree.
@@ -180,24 +180,27 @@ def read_index_part(directory: str, part: int, accounts: list[str]):
 
 
 def part_panel(directory: str, part: int, accounts: list[str], *, start_day: int, end_day: int, normalise: str,
-               seats: dict, fleet_factor=None, masked=None) -> Panel:
-    """Block ``part`` as a :class:`series.Panel` over days ``start_day .. end_day``."""
+               seats: dict, fleet_factor=None, masked=None, first_full: dict | None = None) -> Panel:
+    """Block ``part`` as a :class:`series.Panel` over days ``start_day .. end_day``; ``first_full``
+    maps accounts to their first full day (``series.first_full_days``)."""
     idx, day, value, events, users = read_index_part(directory, part, accounts)
     keep = (day >= start_day) & (day <= end_day)
+    first_full_day = None if first_full is None else \
+        np.array([first_full.get(a, NEVER_ACTIVE) for a in accounts], dtype=np.int64)
     return build_panel(idx[keep], day[keep], value[keep], events[keep], users[keep], accounts=list(accounts),
                        start_day=start_day, end_day=end_day, normalise=normalise,
                        seats=np.array([seats.get(a, np.nan) for a in accounts], float),
-                       fleet_factor=fleet_factor, masked=masked)
+                       fleet_factor=fleet_factor, masked=masked, first_full_day=first_full_day)
 
 
 def score_part(part_and_accounts, *, directory: str, start_day: int, end_day: int, normalise: str, seats: dict,
-               fleet_factor, masked, params):
+               fleet_factor, masked, params, first_full: dict | None = None):
     """``detect.score_panel`` on one block of the export (one task of the scan)."""
     from .detect import score_panel
 
     part, accounts = part_and_accounts
     panel = part_panel(directory, part, accounts, start_day=start_day, end_day=end_day, normalise=normalise,
-                       seats=seats, fleet_factor=fleet_factor, masked=masked)
+                       seats=seats, fleet_factor=fleet_factor, masked=masked, first_full=first_full)
     return score_panel(panel, params)
 
 
@@ -212,9 +215,9 @@ def replay_block(panel: Panel, *, as_of_days, fleet_factors, churn: dict, params
 
 
 def replay_part(part_and_accounts, *, directory: str, start_day: int, end_day: int, normalise: str, seats: dict,
-                **replay):
+                first_full: dict | None = None, **replay):
     """:func:`replay_block` on one block of the export (one task of the backtest)."""
     part, accounts = part_and_accounts
     panel = part_panel(directory, part, accounts, start_day=start_day, end_day=end_day, normalise=normalise,
-                       seats=seats)
+                       seats=seats, first_full=first_full)
     return replay_block(panel, **replay)

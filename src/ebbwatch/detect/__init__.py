@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 
 from ..baseline import WeekdayProfile
-from ..series import Panel, adjust_for_fleet, missing_before_first_activity, quiet_nanmean, weekday_of
+from ..series import Panel, adjust_for_fleet, missing_before_first_full_day, quiet_nanmean, weekday_of
 from .calibrate import cauchy_combination, nested_min_p
 from .changepoint import ChangepointSearch, changepoints, cusum_split, fill_gaps, robust_sigma
 from .contrasts import BASE_WINDOW, WindowPriors, WindowTests, window_priors
@@ -92,9 +92,11 @@ class ScanParams:
 SCORE_COLUMNS = (
     "account", "status", "p_down", "p_up", "p_level_low", "p_level_high", "p_trend_down", "p_stop",
     "percentile", "level", "baseline_level", "change_pct", "change_down_pct", "change_up_pct", "window_days",
-    "window_down", "window_up", "trend_change_pct", "growth_pct_year", "onset_day", "level_before", "level_after",
+    "window_down", "window_up", "trend_change_pct", "trend_weeks", "growth_pct_year", "onset_day", "level_before", "level_after",
     "silent_days", "model", "down_kind", "n_reference", "low_volume", "reference_end_day", "weekday_factors",
 )
+MIN_SEGMENT_DAYS = 7  # a change needs a week of the account before it
+MIN_TREND_WEEKS = 6  # fewest whole weeks a trend is told from (the least Mann–Kendall p is then 0.004)
 PRIOR_SAMPLE = 1000  # accounts of the fleet sample the window priors are measured on
 
 
@@ -113,13 +115,16 @@ def _weekday_factors(values, weekdays, hist_end: int, weeks: int):
     return profile, profile.factors_[:, weekdays]
 
 
-def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams = ScanParams()) -> WindowPriors:
+def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams = ScanParams(),
+                        first_full_day=None) -> WindowPriors:
     """The window tests' fleet-wide priors from raw daily totals of a fleet sample (S, D) whose
     columns are the day numbers ``days``, as the scan would see them (days before an account's
-    first activity and masked days missing, the fleet factor divided out)."""
-    counts = np.asarray(counts, float)[:PRIOR_SAMPLE] if len(counts) <= PRIOR_SAMPLE else \
-        np.asarray(counts, float)[:: max(1, len(counts) // PRIOR_SAMPLE)][:PRIOR_SAMPLE]
-    values = missing_before_first_activity(counts)
+    first full day ``first_full_day`` (S,), or its first activity without it, and masked days
+    missing, the fleet factor divided out)."""
+    rows = np.arange(len(counts))[:: max(1, len(counts) // PRIOR_SAMPLE)][:PRIOR_SAMPLE]
+    counts = np.asarray(counts, float)[rows]
+    first_full = None if first_full_day is None else np.asarray(first_full_day)[rows] - int(np.asarray(days)[0])
+    values = missing_before_first_full_day(counts, first_full)
     values[:, np.asarray(masked, bool)] = np.nan
     values = values / np.asarray(fleet_factor, float)[None, :]
     weekdays = weekday_of(np.asarray(days))
@@ -152,6 +157,27 @@ def history_segments(panel: Panel, params: ScanParams = ScanParams()) -> list[li
                      float(np.nanmean(row[a:b])) if np.isfinite(row[a:b]).any() else float("nan"))
                     for a, b in zip(cuts[:-1], cuts[1:])])
     return out
+
+
+def _trends(values, factors, scale, max_weeks: int):
+    """Mann–Kendall P(falling) and the Theil–Sen change (%) over each account's last whole weeks,
+    at most ``max_weeks`` and at least ``MIN_TREND_WEEKS`` of them: ``(p_down, change_pct,
+    weeks)``, each (A,); p 1, change NaN and weeks 0 where there are too few."""
+    n_accounts, n_days = values.shape
+    p_trend, change, used = np.ones(n_accounts), np.full(n_accounts, np.nan), np.zeros(n_accounts, np.int64)
+    weeks = min(max_weeks, n_days // 7)
+    if weeks < MIN_TREND_WEEKS:
+        return p_trend, change, used
+    weekly = rolling_window(values[:, -7 * weeks:], 7, factors[:, -7 * weeks:], period=7)[0][:, ::7] / scale[:, None]
+    # Whole weeks counted back from the last: the first missing one ends the run.
+    missing = ~np.isfinite(weekly[:, ::-1])
+    run = np.where(missing.any(axis=1), missing.argmax(axis=1), weeks)
+    for length in range(MIN_TREND_WEEKS, weeks + 1):
+        rows = np.flatnonzero(np.minimum(run, weeks) == length) if length < weeks else np.flatnonzero(run >= weeks)
+        if rows.size:
+            down, _, rel = trend_test(weekly[rows, -length:])
+            p_trend[rows], change[rows], used[rows] = down, 100.0 * rel, length
+    return p_trend, change, used
 
 
 def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame:
@@ -213,6 +239,9 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     split, statistic = cusum_split(filled, span - params.horizon_days, span - 2, sigma)
     # Onsets and kinds matter only where an alert is possible: no account whose p-value is above
     # ``onset_screen_p`` (at least the alert threshold, since q >= p) needs the exact search.
+    # A change starts within the horizon and after the account's first full week.
+    offset = n_days - span
+    earliest = np.maximum(span - params.horizon_days, first_seen + MIN_SEGMENT_DAYS - offset)
     candidates = np.flatnonzero(enough & ~dormant & (np.abs(statistic) > params.cusum_threshold)
                                 & (np.minimum(p_down, p_up) <= params.onset_screen_p))
     onset_col = np.full(n_accounts, -1)
@@ -221,10 +250,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     reference_end = np.full(n_accounts, hist_end)
     if candidates.size:
         search = ChangepointSearch(penalty_factor=params.penalty_factor).fit(segment[candidates])
-        offset = n_days - span
-        earliest_allowed = span - params.horizon_days
         pairs = [(row, b) for row, bkps in zip(candidates, search.breakpoints_) for b in bkps[:-1]
-                 if b >= earliest_allowed]
+                 if b >= earliest[row]]
         if pairs:
             pair_rows, pair_bkps = np.array(pairs, dtype=np.int64).T
             rows_cp, onset, before, after = sustained_changes(values[:, offset:], factors[:, offset:], pair_rows, pair_bkps)
@@ -232,17 +259,9 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
             reference_end[rows_cp] = np.minimum(hist_end, offset + onset)
             level_before[rows_cp], level_after[rows_cp] = before, after
 
-    # Trend over the last weeks (weekly levels, relative to the account's scale).
-    weeks = params.trend_weeks
-    p_trend = np.ones(n_accounts)
-    trend_change = np.full(n_accounts, np.nan)
-    if n_days >= 7 * weeks:
-        weekly = rolling_window(values[:, -7 * weeks:], 7, factors[:, -7 * weeks:], period=7)[0][:, ::7] / scale[:, None]
-        complete = np.isfinite(weekly).all(axis=1)
-        if complete.any():
-            down, _, rel = trend_test(weekly[complete])
-            p_trend[complete] = down
-            trend_change[complete] = 100.0 * rel
+    # Trend over the last weeks (weekly levels, relative to the account's scale); a young account
+    # is tested over the whole weeks it has, if there are at least ``MIN_TREND_WEEKS``.
+    p_trend, trend_change, trend_weeks = _trends(values, factors, scale, params.trend_weeks)
 
     # A stop is a silence unlikely on its own.  Elsewhere, where something changed, is it a ramp
     # (a slide) rather than a step?  A ramp's start then ends the reference history.
@@ -253,8 +272,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     changing |= (p_trend < params.trend_screen_p) | ((window_down >= 14) & (p_level_low < 0.01))
     maybe = np.flatnonzero(changing & ~stop & enough & ~dormant & (p_down <= params.onset_screen_p))
     if maybe.size:
-        sse_step, sse_ramp, ramp_start = step_or_ramp(filled[maybe], span - params.horizon_days)
-        ramp = sse_ramp < params.ramp_advantage * sse_step
+        sse_step, sse_ramp, ramp_start = step_or_ramp(filled[maybe], earliest[maybe])
+        ramp = (sse_ramp < params.ramp_advantage * sse_step) & (ramp_start >= 0)
         ramp_rows = maybe[ramp]
         slide[ramp_rows] = True
         onset_col[ramp_rows] = n_days - span + ramp_start[ramp]
@@ -267,7 +286,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     # Without a changepoint, a clear change starts where its most telling window does.
     unexplained = (onset_col < 0) & (np.minimum(p_down, p_up) < 0.05)
     best_window = np.where(p_down <= p_up, window_down, window_up)
-    onset_col = np.where(unexplained, n_days - best_window, onset_col)
+    onset_col = np.where(unexplained, np.maximum(n_days - best_window, first_seen), onset_col)
     down_kind = np.where(stop, "stop", np.where(slide, "slide", "drop")).astype(object)
     status = np.where(~enough, "not_enough_history", np.where(dormant, "dormant", "judged"))
     onset_day = np.where(onset_col >= 0, panel.start_day + onset_col, -1)
@@ -291,6 +310,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         "window_down": window_down.astype(np.int64),
         "window_up": window_up.astype(np.int64),
         "trend_change_pct": trend_change,
+        "trend_weeks": trend_weeks,
         "growth_pct_year": 100.0 * np.expm1(365.0 * tests.growth_),
         "onset_day": onset_day,
         "level_before": level_before,

@@ -75,22 +75,25 @@ def _single_regressor_sse(y, x):
         return syy - np.where(sxx > 0, sxy**2 / np.where(sxx > 0, sxx, 1.0), 0.0)
 
 
-def step_or_ramp(y, earliest: int, *, min_ramp: int = 21, grid: int = 7):
+def step_or_ramp(y, earliest, *, min_ramp: int = 21, grid: int = 7):
     """Is the recent change in each row of ``y`` (A, L; no NaN) a step or a ramp?
 
     Fits two one-change families by least squares: a step at ``k`` and a ramp that runs from
     ``k1`` to ``k2`` (at least ``min_ramp`` days) and is flat on either side, with ``k``, ``k1``,
-    ``k2`` on a ``grid``-day lattice from ``earliest``.  Returns ``(sse_step, sse_ramp,
-    ramp_start)``, each (A,).
+    ``k2`` on a ``grid``-day lattice from ``earliest`` (a column, or one per row: a young
+    account's change cannot start before its history does).  Returns ``(sse_step, sse_ramp,
+    ramp_start)``, each (A,); a row with no room for a ramp gets ``inf`` and ``-1``.
     """
     y = np.asarray(y, float)
     n = y.shape[1]
     t = np.arange(n)
-    steps = np.arange(max(earliest, 1), n - 1, max(1, grid // 2))
+    earliest = np.broadcast_to(np.asarray(earliest, np.int64), (y.shape[0],))
+    lowest = int(earliest.min()) if earliest.size else 0
+    steps = np.arange(max(lowest, 1), n - 1, max(1, grid // 2))
     step_x = (t[None, :] >= steps[:, None]).astype(float)
-    sse_step = _single_regressor_sse(y, step_x).min(axis=1)
+    sse_step = np.where(steps[None, :] >= earliest[:, None], _single_regressor_sse(y, step_x), np.inf).min(axis=1)
     starts, ends = [], []
-    for k1 in range(max(earliest, 0), n - min_ramp + 1, grid):
+    for k1 in range(max(lowest, 0), n - min_ramp + 1, grid):
         for k2 in range(k1 + min_ramp, n + grid, grid):
             starts.append(k1)
             ends.append(min(k2, n))
@@ -99,6 +102,7 @@ def step_or_ramp(y, earliest: int, *, min_ramp: int = 21, grid: int = 7):
     k1 = np.array(starts)[:, None]
     k2 = np.array(ends)[:, None]
     ramp_x = np.clip(t[None, :] - k1, 0, k2 - k1).astype(float)
-    sse = _single_regressor_sse(y, ramp_x)
+    sse = np.where(k1[:, 0][None, :] >= earliest[:, None], _single_regressor_sse(y, ramp_x), np.inf)
     best = sse.argmin(axis=1)
-    return sse_step, sse[np.arange(y.shape[0]), best], np.array(starts)[best]
+    found = np.isfinite(sse[np.arange(y.shape[0]), best])
+    return sse_step, sse[np.arange(y.shape[0]), best], np.where(found, np.array(starts)[best], -1)

@@ -9,6 +9,14 @@ def _num(value, fmt="{:.3g}"):
     return "-" if value is None else fmt.format(value)
 
 
+def _changepoint(cp: dict) -> str:
+    if not cp["onset"]:
+        return "none in the last 13 weeks"
+    if cp["level_before"] is None or cp["level_after"] is None:
+        return f"onset {cp['onset']} (where the most telling window starts; no single step found)"
+    return f"onset {cp['onset']}, level {_num(cp['level_before'])} -> {_num(cp['level_after'])}/day"
+
+
 def render_explanation(info: dict) -> str:
     r, cp, tr, si, b = info["recent"], info["changepoint"], info["trend"], info["silence"], info["baseline"]
     lines = [
@@ -19,12 +27,12 @@ def render_explanation(info: dict) -> str:
         f"  last {r['window_days']} days   level {_num(r['level'])}/day vs usual {_num(r['usual_level'])}/day "
         f"({_num(r['change_pct'], '{:+.0f}')}%), percentile {_num(r['percentile'], '{:.1f}')}, "
         f"P(this low) {_num(r['p_low'])}, P(this high) {_num(r['p_high'])}",
-        "  changepoint    " + (f"onset {cp['onset']}, level {_num(cp['level_before'])} -> {_num(cp['level_after'])}/day"
-                               if cp["onset"] else "none in the last 13 weeks"),
+        "  changepoint    " + _changepoint(cp),
         "  segments       " + ("; ".join(f"{s['start']} to {s['end']} at {_num(s['level'])}/day" for s in info["segments"])
                                or "-"),
-        f"  trend          Theil-Sen {_num(tr['theil_sen_change_pct'], '{:+.0f}')}% over {tr['weeks']} weeks, "
-        f"Mann-Kendall P(falling by chance) {_num(tr['mann_kendall_p_down'])}",
+        "  trend          " + (f"Theil-Sen {_num(tr['theil_sen_change_pct'], '{:+.0f}')}% over {tr['weeks']} weeks, "
+                               f"Mann-Kendall P(falling by chance) {_num(tr['mann_kendall_p_down'])}" if tr["weeks"]
+                               else "too few whole weeks to tell a trend"),
         f"  silence        {si['silent_days']} day(s) since last activity (P {_num(si['p_silence'])})",
         f"  p-values       down {_num(info['p_down'])}, up {_num(info['p_up'])} (before fleet-wide correction)",
     ]
