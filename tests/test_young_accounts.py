@@ -94,6 +94,20 @@ def test_an_alert_stays_open_while_the_account_is_still_down(young_store, tmp_pa
     assert info["recent"]["change_pct"] < -50
 
 
+def test_driver_expectations_count_only_days_the_account_existed(young_store):
+    """Issue 20 item 8: the drivers' baseline of a young account began before its first day, so
+    'expected' was too low (54 a week against a usual 97) and the message named the wrong cause."""
+    info = ebbwatch.explain("yg-beta", db=young_store, as_of=AS_OF)
+    events = [d for d in info["drivers"] if d["type"] == "event"]
+    expected_week = sum(d["expected"] for d in events)  # drivers compare the last 7 days
+    rows = [r for r in _events(np.random.default_rng(7)) if r["account"] == "yg-beta"]
+    days = pd.to_datetime([r["ts"] for r in rows]).tz_convert(None).normalize()
+    before_drop = (days >= pd.Timestamp(START.date()) + pd.Timedelta(days=1)) & \
+        (days < pd.Timestamp(START.date()) + pd.Timedelta(days=DROP_DAY))
+    usual_week = before_drop.sum() / ((DROP_DAY - 1) / 7)
+    assert 0.9 <= expected_week / usual_week <= 1.1, (expected_week, usual_week)
+
+
 def test_the_first_full_day_is_the_day_after_a_start_but_the_stores_first_day_is_kept():
     from ebbwatch.series import first_full_days
 

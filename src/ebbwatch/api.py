@@ -715,8 +715,8 @@ BASELINE_DRIVER_DAYS = 56
 
 def _find_drivers(st, loader, targets, as_of, window_days, max_events=None) -> list[list[dict]]:
     """Drivers for each ``(account, reference_end_day, direction)`` in ``targets``: the window is
-    the last ``window_days`` days, the baseline the 8 weeks before the reference history ends,
-    masked days left out of both; event totals are summed in the store, and user rows (where
+    the last ``window_days`` days, the baseline the 8 weeks before the reference history ends
+    (from the account's first full day if later), masked days left out of both; event totals are summed in the store, and user rows (where
     the store has them) read in one query."""
     import pandas as pd
 
@@ -726,7 +726,10 @@ def _find_drivers(st, loader, targets, as_of, window_days, max_events=None) -> l
     first_needed = max(min(ref for _, ref, _ in targets) - BASELINE_DRIVER_DAYS, loader.start_day)
     accounts = [account for account, _, _ in targets]
     window = _period_days(end - window_days + 1, end, loader.masked, loader.start_day)
-    baseline_first = [max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day) for _, reference_end, _ in targets]
+    # A young account's baseline starts at its first full day, not on days it did not exist.
+    first_full = loader.first_full_of(accounts)
+    baseline_first = [max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day, int(first))
+                      for (_, reference_end, _), first in zip(targets, first_full)]
     baselines = [(account, _period_days(first, reference_end - 1, loader.masked, loader.start_day))
                  for first, (account, reference_end, _) in zip(baseline_first, targets)]
     periods = pd.DataFrame({"place": np.arange(len(targets)), "account": accounts, "first": baseline_first,
