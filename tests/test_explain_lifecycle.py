@@ -233,3 +233,65 @@ def test_alerts_filter_by_account_and_days(store):
     text = CliRunner().invoke(main, ["alerts", "--db", db, "--account", account, "--from", day, "--to", day,
                                      "--format", "jsonl"]).stdout
     assert all(json.loads(x)["account"] == account and json.loads(x)["as_of"] == day for x in text.splitlines())
+
+
+def test_explain_says_whether_the_account_is_alerted_today(store):
+    """Issue 20 item 9: kind, severity and state of today's alert in text and JSON, the same as
+    the scan's; a quiet account is not alerted."""
+    fleet, db = store
+    day = fleet.as_of
+    alerts = ebbwatch.scan(db=db, as_of=day, max_alerts=1000)
+    alerted = alerts.iloc[0]
+    quiet = next(a for a in fleet.truth.loc[fleet.truth["kind"] == "quiet", "account"]
+                 if a not in set(alerts["account"]))
+    runner = CliRunner()
+    doc = json.loads(runner.invoke(main, ["explain", alerted["account"], "--db", db, "--as-of", day.isoformat(),
+                                          "--format", "json"]).stdout)
+    assert doc["today"]["alerted"] is True
+    (today,) = [a for a in doc["today"]["alerts"] if a["direction"] == alerted["direction"]]
+    assert (today["kind"], today["severity"], today["state"]) == (alerted["kind"], alerted["severity"], alerted["state"])
+    text = runner.invoke(main, ["explain", alerted["account"], "--db", db, "--as-of", day.isoformat()]).stdout
+    assert f"today          alerted: {alerted['kind']}, severity {alerted['severity']:.1f}, {alerted['state']}" in text
+    calm = json.loads(runner.invoke(main, ["explain", quiet, "--db", db, "--as-of", day.isoformat(),
+                                           "--format", "json"]).stdout)
+    assert calm["today"]["alerted"] is False
+    assert "today          not alerted" in runner.invoke(main, ["explain", quiet, "--db", db]).stdout
+
+
+def test_the_percentile_is_the_alerts_own_window_and_reads_plainly(store):
+    """Issue 20 items 9-10: one definition of the percentile (the alert's window among the same
+    window's history, mid-rank), and messages without 'below 100.0% of its history'."""
+    fleet, db = store
+    alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
+    scores = alerts.attrs["scores"].set_index("account")
+    assert len(alerts) > 3
+    for alert in alerts.itertuples():
+        expected = scores.loc[alert.account, f"percentile_{alert.direction}"]
+        assert alert.percentile == pytest.approx(round(expected, 2)), alert.account
+        assert "100.0% of its history" not in alert.message and "-%" not in alert.message
+        if alert.percentile in (0.0, 100.0):
+            assert ("lowest" if alert.direction == "down" else "highest") + " in its history" in alert.message
+        if alert.kind == "stop":
+            assert alert.change_pct == -100.0
+
+
+def test_history_rank_and_driver_shares_in_words():
+    from ebbwatch.alerts import history_rank
+    from ebbwatch.report.explain_text import _share
+
+    assert history_rank(0.0, "down") == "the lowest in its history"
+    assert history_rank(100.0, "up") == "the highest in its history"
+    assert history_rank(2.7, "down") == "lower than 97% of its history"
+    assert history_rank(0.3, "down") == "lower than 99.7% of its history"
+    assert history_rank(None, "down") == ""
+    assert _share({"share": 0.35}) == " (35% of the change)"
+    assert _share({"share": -0.2}) == " (moved against the change)"
+    assert "more than the whole change" in _share({"share": 1.3})
+
+
+def test_explain_text_never_shows_a_placeholder_for_a_missing_value():
+    from ebbwatch.report.explain_text import _recent
+
+    line = _recent({"window_days": 7, "level": 2.0, "usual_level": None, "change_pct": None, "percentile": None,
+                    "p_low": 0.5, "p_high": 0.5})
+    assert "usual -" not in line and "-%" not in line and "no usual level yet" in line

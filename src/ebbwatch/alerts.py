@@ -85,6 +85,9 @@ def select_alerts(
     window_down = judged.get("window_down", pd.Series(window_days, index=judged.index)).to_numpy()
     window_up = judged.get("window_up", pd.Series(window_days, index=judged.index)).to_numpy()
     trend = judged["trend_change_pct"].to_numpy(float)
+    # The percentile of the window each direction's alert reports (older score frames: one).
+    percentile_down = judged.get("percentile_down", judged["percentile"]).to_numpy(float)
+    percentile_up = judged.get("percentile_up", judged["percentile"]).to_numpy(float)
     kind_down = judged["down_kind"].to_numpy(object)
     big_drop = (change_down <= -min_change_pct) | ((kind_down == "slide") & (np.nan_to_num(trend) <= -min_change_pct))
     effect_down = np.where(kind_down == "stop", True, big_drop)
@@ -122,7 +125,7 @@ def select_alerts(
                 "severity": round(severity, 2),
                 "p_value": float(pv[i]),
                 "q_value": float(qv[i]),
-                "percentile": round(float(col["percentile"][i]), 2),
+                "percentile": _rounded(percentile_down[i] if direction == "down" else percentile_up[i], 2),
                 "change_pct": round(float(change), 1) if np.isfinite(change) else None,
                 "level": round(float(col["level"][i]), 3),
                 "baseline_level": round(float(baseline_level), 3) if np.isfinite(baseline_level) else None,
@@ -144,6 +147,11 @@ def select_alerts(
         if max_alerts is not None:
             alerts = alerts.head(max_alerts)
     return alerts.reset_index(drop=True)
+
+
+def _rounded(value, digits: int):
+    """``value`` rounded, or None when it is not a finite number."""
+    return round(float(value), digits) if value is not None and np.isfinite(value) else None
 
 
 def _given(value):
@@ -179,10 +187,23 @@ def alert_message(alert: dict, window_days: int, drivers: str = "") -> str:
     else:
         amount = f"{change:.0f}%" if change is not None else "from almost nothing"
         text = f"{who}: activity up {amount} over {_last_days(window_days)} vs its usual level{since}"
-    side = "below" if alert["direction"] == "down" else "above"
-    share = alert["percentile"] if side == "below" else 100 - alert["percentile"]
+    rank = history_rank(_given(alert["percentile"]), alert["direction"])
+    rank = f"; {rank}" if rank else ""
     tail = f"; {drivers}" if drivers else ""
-    return f"{text}; {side} {100 - share:.1f}% of its history (severity {alert['severity']:.1f}){tail}."
+    return f"{text}{rank} (severity {alert['severity']:.1f}){tail}."
+
+
+def history_rank(percentile, direction: str) -> str:
+    """Where the alert's window falls in the account's history, in words: "the lowest in its
+    history", "lower than 97% of its history"; empty without a history to rank against.
+    ``percentile``: the window's percentile (0-100, ``WindowTests.percentile_``)."""
+    if percentile is None:
+        return ""
+    beyond = 100.0 - percentile if direction == "down" else percentile
+    if beyond >= 100.0:
+        return f"the {'lowest' if direction == 'down' else 'highest'} in its history"
+    amount = f"{beyond:.1f}" if beyond >= 99.5 else f"{beyond:.0f}"
+    return f"{'lower' if direction == 'down' else 'higher'} than {amount}% of its history"
 
 
 # -- lifecycle -------------------------------------------------------------------------------

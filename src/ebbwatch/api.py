@@ -694,6 +694,8 @@ def scan(
         "seconds": round(time.perf_counter() - started, 3),
     }
     shown.attrs["scores"] = scores
+    shown.attrs["lifecycle"] = lifecycle  # the day's whole judgement: every open alert's state
+    shown.attrs["snoozed"] = {a: (u.isoformat(), r) for a, (u, r, _) in snoozed.items()}
     shown.attrs["fleet_factor"] = loader.fleet_factor
     shown.attrs["masked"] = loader.masked
     shown.attrs["start_day"] = loader.start_day
@@ -795,6 +797,7 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         reference_end = int(row["reference_end_day"])
         direction = "down" if row["p_down"] <= row["p_up"] else "up"
         drivers = _find_drivers(st, loader, [(account, reference_end, direction)], as_of, cfg.scan.window_days)[0]
+    today_alerts = _alerts_on(account, as_of, db=db, config=cfg)
     weekday_names = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
     f = lambda v: None if v is None or (isinstance(v, float) and not np.isfinite(v)) else float(v)  # noqa: E731
     points = int(row["n_reference"])
@@ -812,14 +815,15 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         "name": loader.names.get(account) or account,
         "as_of": as_of.isoformat(),
         "status": row["status"],
+        "today": today_alerts,
         "masked_days_in_window": [day_to_date(x).isoformat() for x in days[-cfg.scan.window_days:]
                                   if loader.masked[int(x) - loader.start_day]],
         "baseline": {"model": row["model"], "why": why, "history_days": points,
                      "growth_pct_year": f(row["growth_pct_year"]), "low_volume": bool(row["low_volume"]),
                      "reference_ends": day_to_date(reference_end).isoformat()},
         "weekday_factors": dict(zip(weekday_names, (round(float(v), 3) for v in row["weekday_factors"]))),
-        "recent": {"window_days": int(row["window_days"]), "level": f(row["level"]),
-                   "usual_level": f(row["baseline_level"]), "change_pct": f(row["change_pct"]),
+        "recent": {"window_days": int(row["window_days"]), "level": f(row["window_level"]),
+                   "usual_level": f(row["window_baseline"]), "change_pct": f(row["change_pct"]),
                    "percentile": f(row["percentile"]), "p_low": f(row["p_level_low"]), "p_high": f(row["p_level_high"])},
         "changepoint": {"onset": None if row["onset_day"] < 0 else day_to_date(row["onset_day"]).isoformat(),
                         "level_before": f(row["level_before"]), "level_after": f(row["level_after"]),
@@ -833,6 +837,28 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         "series": {"days": [day_to_date(d).isoformat() for d in days],
                    "index": [None if not np.isfinite(v) else round(float(v), 3) for v in panel.values[0] / panel.fleet_factor]},
     }
+
+
+def _finite(value):
+    """A float, or None for a missing or non-finite value (a NaN kept by a DataFrame)."""
+    return None if value is None or not np.isfinite(value) else float(value)
+
+
+def _alerts_on(account: str, as_of: date, *, db, config) -> dict:
+    """Whether ``account`` is alerted on ``as_of`` in the whole fleet's judgement (the scan's,
+    not recorded): ``{"alerted", "alerts": [{direction, kind, state, severity, opened}],
+    "snoozed_until", "snooze_reason"}``.  An open alert no longer significant but still changed
+    is listed with its state and no severity."""
+    judged = scan(as_of=as_of, db=db, config=config, drivers=False, max_alerts=0)
+    lifecycle = judged.attrs["lifecycle"]
+    mine = lifecycle[lifecycle["account"] == account] if len(lifecycle) else lifecycle
+    rows = [{"direction": r.direction, "kind": r.kind, "state": r.state,
+             "severity": None if r.severity is None or r.severity != r.severity else float(r.severity),
+             "opened": r.opened.isoformat() if hasattr(r.opened, "isoformat") else str(r.opened)}
+            for r in mine.itertuples() if r.state != "resolved"]
+    until, reason = judged.attrs["snoozed"].get(account, (None, None))
+    return {"alerted": any(r["severity"] is not None for r in rows), "alerts": rows,
+            "snoozed_until": until, "snooze_reason": reason}
 
 
 SNOOZE_LONGEST_DAYS = 366
@@ -1023,6 +1049,7 @@ def _lead_list(alerts, outcomes, horizon_days) -> list:
 
 def report_data(*, as_of=None, limit: int = 50, db: str | None = None, config=None, today: date | None = None) -> dict:
     """What the HTML report shows: fleet overview, and per alert a small series with its band."""
+    from .alerts import history_rank
     from .detect import history_segments
     from .detect.tail import rolling_window
     from .explain import drivers_phrase
@@ -1070,8 +1097,9 @@ def report_data(*, as_of=None, limit: int = 50, db: str | None = None, config=No
             words.append(drivers_phrase(users, str))
         cards.append({
             "account": alert["account"], "name": alert["name"], "kind": alert["kind"], "direction": alert["direction"],
-            "state": alert["state"], "severity": alert["severity"], "percentile": alert["percentile"],
-            "change": "-" if alert["change_pct"] is None else f"{alert['change_pct']:+.0f}%",
+            "state": alert["state"], "severity": alert["severity"], "percentile": _finite(alert["percentile"]),
+            "rank": history_rank(_finite(alert["percentile"]), alert["direction"]),
+            "change": "of unknown size" if alert["change_pct"] is None else f"{alert['change_pct']:+.0f}%",
             "onset": alert["onset"], "series": series, "band": band, "window": window,
             "onset_index": onset_index, "driver_words": words,
             "masked": [j for j, m in enumerate(masked[-shown_days:]) if m],

@@ -91,7 +91,8 @@ class ScanParams:
 
 SCORE_COLUMNS = (
     "account", "status", "p_down", "p_up", "p_level_low", "p_level_high", "p_trend_down", "p_stop",
-    "percentile", "level", "baseline_level", "change_pct", "change_down_pct", "change_up_pct", "window_days",
+    "percentile", "percentile_down", "percentile_up", "window_level", "window_baseline", "level", "baseline_level",
+    "change_pct", "change_down_pct", "change_up_pct", "window_days",
     "window_down", "window_up", "trend_change_pct", "trend_weeks", "growth_pct_year", "onset_day", "level_before", "level_after",
     "silent_days", "model", "down_kind", "n_reference", "low_volume", "reference_end_day", "weekday_factors",
 )
@@ -212,6 +213,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     rows = np.arange(n_accounts)
     best_down, best_up = tests.p_low_.argmin(axis=1), tests.p_high_.argmin(axis=1)
     change_down, change_up = tests.change_pct_[rows, best_down], tests.change_pct_[rows, best_up]
+    percentile_down, percentile_up = tests.percentile_[rows, best_down], tests.percentile_[rows, best_up]
+    week = list(tests.windows_).index(BASE_WINDOW)
     window_down, window_up = windows[best_down], windows[best_up]
     enough &= np.isfinite(tests.z_[:, list(tests.windows_).index(BASE_WINDOW)])
 
@@ -280,6 +283,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         reference_end[ramp_rows] = np.minimum(hist_end, onset_col[ramp_rows])
 
     # A stop reads as stopped: the change over the silent days, since the last activity.
+    level_down = np.where(stop, 0.0, tests.level_[rows, best_down])
+    baseline_down = np.where(stop, tests.baseline_[:, week], tests.baseline_[rows, best_down])
     change_down = np.where(stop, -100.0, change_down)
     window_down = np.where(stop, np.maximum(silent_days, 1), window_down)
     onset_col = np.where(stop, last_active + 1, onset_col)
@@ -300,9 +305,13 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         "p_level_high": p_level_high,
         "p_trend_down": p_trend,
         "p_stop": p_stop,
-        "percentile": tests.percentile_,
-        "level": tests.level_,
-        "baseline_level": tests.baseline_,
+        "percentile": np.where(p_down <= p_up, percentile_down, percentile_up),
+        "percentile_down": percentile_down,
+        "percentile_up": percentile_up,
+        "window_level": np.where(p_down <= p_up, level_down, tests.level_[rows, best_up]),
+        "window_baseline": np.where(p_down <= p_up, baseline_down, tests.baseline_[rows, best_up]),
+        "level": tests.level_[:, week],
+        "baseline_level": tests.baseline_[:, week],
         "change_pct": np.where(p_down <= p_up, change_down, change_up),
         "change_down_pct": change_down,
         "change_up_pct": change_up,
@@ -319,7 +328,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         "model": np.where(points >= tests.prior_windows, "history", "prior").astype(object),
         "down_kind": down_kind,
         "n_reference": tests.history_points_,
-        "low_volume": tests.baseline_ * 7 < 2 * half_event * tests.count_floor_events,
+        "low_volume": tests.baseline_[:, week] * 7 < 2 * half_event * tests.count_floor_events,
         "reference_end_day": panel.start_day + reference_end,
         "weekday_factors": list(np.round(profile.factors_, 4)),
     })

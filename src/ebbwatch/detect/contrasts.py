@@ -292,9 +292,10 @@ class WindowTests(Estimator):
         dispersion of small accounts (the count floor's least dispersion).
 
         Sets ``p_low_``/``p_high_``/``z_``/``change_pct_`` (A, W), ``growth_`` (A, per day),
-        ``history_points_`` (A, 7-day history points), ``percentile_`` (A, of the 7-day
-        contrast among its history), ``level_`` and ``baseline_`` (A, the last 7 days' and the
-        reference's level per day, weekday-adjusted) and ``priors_``.
+        ``history_points_`` (A, 7-day history points), ``percentile_`` (A, W: where each window's
+        contrast falls among the same window's contrasts in the account's history, 0-100 by mid-rank:
+        0 below every one, 100 above every one, NaN without a history), ``level_`` and ``baseline_``
+        (A, W: each window's level and its reference's, per day, weekday-adjusted) and ``priors_``.
         """
         windows = self._check()
         values = check_matrix(values, "values")
@@ -312,6 +313,7 @@ class WindowTests(Estimator):
         shape = (values.shape[0], len(windows))
         self.p_low_, self.p_high_ = np.ones(shape), np.ones(shape)
         self.z_, self.change_pct_ = np.full(shape, np.nan), np.full(shape, np.nan)
+        self.percentile_, self.level_, self.baseline_ = np.full(shape, np.nan), np.full(shape, np.nan), np.full(shape, np.nan)
         rows = np.arange(values.shape[0])
         for i, k in enumerate(windows):
             s = by_window[k]
@@ -362,13 +364,14 @@ class WindowTests(Estimator):
             self.z_[:, i] = z
             with np.errstate(invalid="ignore", divide="ignore"):
                 self.change_pct_[:, i] = 100.0 * (s["observed"] / s["expected"] - 1.0)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                below = n - at_or_above
+                self.percentile_[:, i] = np.where(
+                    (n > 0) & np.isfinite(s["current"]),
+                    100.0 * (below + 0.5 * (at_or_below - below)) / np.maximum(n, 1), np.nan)
+                self.level_[:, i] = np.where(s["weight"] > 0, s["observed"] / s["weight"], np.nan)
+            self.baseline_[:, i] = s["reference_level"]
             if k == BASE_WINDOW:
-                with np.errstate(invalid="ignore", divide="ignore"):
-                    below = n - at_or_above
-                    self.percentile_ = np.where(n > 0, 100.0 * (below + 0.5 * (at_or_below - below)) / np.maximum(n, 1),
-                                                np.nan)
-                    self.level_ = np.where(s["weight"] > 0, s["observed"] / s["weight"], np.nan)
-                self.baseline_ = s["reference_level"]
                 self.history_points_ = n * s["stride"]
         self.windows_ = windows
         self.growth_ = growth

@@ -141,7 +141,7 @@ def render_report(data: dict) -> str:
             f'severity {c["severity"]:.1f}</p>'
             + series_chart(c["series"], band=c["band"], window=c["window"], onset_index=c["onset_index"], masked=c["masked"],
                            segments=c.get("segments", ()))
-            + f'<p>Change {esc(c["change"])} vs its usual level; percentile {c["percentile"]:.1f} of its history; '
+            + f'<p>Change {esc(c["change"])} vs its usual level; {esc(c["rank"] or "no history of its own to rank against")}; '
             f'onset {esc(c["onset"] or "not dated")}.</p><p>Drivers: {drivers}.</p></div>')
     out.append("</div>")
     out.append("""<h2>How to read this, and what it cannot tell you</h2>
