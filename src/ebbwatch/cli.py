@@ -181,7 +181,13 @@ def _print_ingest_summary(s: dict):
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True)
 @handle_errors
 def status(db, config_path, fmt):
-    """What the store holds: accounts, events, days covered, last ingest, data-gap days."""
+    """What the store holds: accounts, events, days covered, last ingest, data-gap days.
+
+    \b
+    Examples:
+      ebbwatch status
+      ebbwatch status --db /srv/ebbwatch/store.duckdb
+    """
     info = api.status(db=db, config=config_path)
     if fmt == "json":
         click.echo(json.dumps(info, default=str))
@@ -197,7 +203,13 @@ def status(db, config_path, fmt):
 
 @main.group()
 def export():
-    """Take the history out of the store (to a notebook or a warehouse)."""
+    """Take the history out of the store (to a notebook or a warehouse).
+
+    \b
+    Examples:
+      ebbwatch export daily --format parquet -o daily.parquet
+      ebbwatch export index -o index/
+    """
 
 
 @export.command("daily")
@@ -207,7 +219,13 @@ def export():
               help="File to write (- is not supported for parquet).")
 @handle_errors
 def export_daily(db, config_path, fmt, output):
-    """Write account, day, event, events, users for every stored day."""
+    """Write account, day, event, events, users for every stored day.
+
+    \b
+    Examples:
+      ebbwatch export daily -o daily.csv
+      ebbwatch export daily --format parquet -o daily.parquet
+    """
     rows = api.export_daily(output, fmt=fmt, db=db, config=config_path)
     click.echo(f"Wrote {rows:,} rows to {output}.", err=True)
 
@@ -230,6 +248,11 @@ def export_index(db, config_path, output, as_of, history_days, accounts_per_part
     since 1970-01-01, value, events, users) and OUTPUT/accounts.parquet lists each account's
     block. The Dask engine reads these blocks on its workers; a notebook can read the folder
     with pandas.read_parquet(OUTPUT + "/rows").
+
+    \b
+    Examples:
+      ebbwatch export index -o index/
+      ebbwatch export index -o index/ --as-of 2026-11-30 --history-days 180
     """
     info = api.export_index(output, as_of=as_of, history_days=history_days, accounts_per_part=accounts_per_part,
                             db=db, config=config_path)
@@ -265,7 +288,15 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
 
     Alerts have a state across days: new, ongoing, escalated (severity rose), clearing, resolved.
     By default only new and escalated alerts are printed, so a daily run does not repeat itself;
-    --all prints every open one. Snoozed accounts (ebbwatch snooze) are not printed.
+    --all prints every open one. Snoozed accounts (ebbwatch snooze) are not printed. The day's
+    whole judgement is recorded whatever --kind, --max-alerts or --format print.
+
+    \b
+    Examples:
+      ebbwatch scan
+      ebbwatch scan --format jsonl | python examples/post_to_chat.py
+      ebbwatch scan --as-of 2026-11-30 --kind drop --kind stop --max-alerts 20 --fail-on-alert
+      ebbwatch scan --all --format csv > open-alerts.csv
 
     \b
     Exit codes: 0 ran; 1 alerts found with --fail-on-alert; 2 usage or config error;
@@ -313,7 +344,17 @@ def _fleet_words(fleet: dict) -> str:
               help="Write a chart (.svg or .png): daily index, usual band, window, onset.")
 @handle_errors
 def explain_command(account, db, config_path, as_of, fmt, plot_path):
-    """Why an account was (or was not) flagged: baseline, levels, changepoint, trend, drivers."""
+    """Why an account was (or was not) flagged: baseline, levels, changepoint, trend, drivers.
+
+    The first line says whether the account is alerted on the day (kind, severity, state,
+    snooze), judged across the whole fleet as the scan judges it.
+
+    \b
+    Examples:
+      ebbwatch explain acct-030
+      ebbwatch explain acct-030 --as-of 2026-11-20 --format json
+      ebbwatch explain acct-030 --plot acct-030.svg
+    """
     if plot_path:
         from .report.plot import require_matplotlib
 
@@ -412,6 +453,11 @@ def report(db, config_path, html_path, as_of, limit):
 
     The file has no scripts and fetches nothing, so it opens offline and can be attached to an
     email. Every account, user and event name in it is escaped.
+
+    \b
+    Examples:
+      ebbwatch report --html today.html
+      ebbwatch report --html 2026-11-30.html --as-of 2026-11-30 --limit 20
     """
     data = api.write_report(html_path, as_of=as_of, limit=limit, db=db, config=config_path)
     click.echo(f"Wrote {html_path}: {data['n_alerts']} alert card(s) as of {data['summary']['as_of']}.", err=True)
@@ -446,6 +492,12 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
     through the same code as the daily scan. Downward alerts are matched to churned and
     contracted outcomes, upward ones to expanded. The severity sweep shows the trade-off, and
     --budget or --target-precision picks a threshold and prints the config to paste.
+
+    \b
+    Examples:
+      ebbwatch backtest --outcomes outcomes.csv
+      ebbwatch backtest --outcomes outcomes.csv --step 7 --budget 2 --plot backtest.svg
+      ebbwatch backtest --outcomes outcomes.csv --from 2026-06-01 --target-precision 0.5 --format json
     """
     if plot_path:  # before the replay, not after minutes of it
         from .report.plot import require_matplotlib
@@ -485,6 +537,11 @@ def demo(directory, n_accounts, n_days, seed):
     accounts sliding toward cancellation, one whose integration broke, teams surging before an
     upgrade, and small accounts whose empty weeks are normal. stories.csv in the directory lists
     what was planted, so you can check the alerts against it.
+
+    \b
+    Examples:
+      ebbwatch demo
+      ebbwatch demo --dir tidewell-demo --accounts 1000 --seed 3
     """
     say = lambda text: click.echo(text, err=True)  # noqa: E731
     scenario, summary, alerts = api.run_demo(directory, n_accounts=n_accounts, n_days=n_days, seed=seed,
