@@ -54,8 +54,22 @@ def test_an_episode_lasts_until_the_lifecycle_resolves_it():
     assert evaluate(flicker, outcomes([]), EXPOSURE)["alert_episodes"] == 1
     resolved = alerts([(d(10), "c", "down", "drop", 3), (d(14), "c", "down", "drop", 3)])
     assert evaluate(resolved, outcomes([]), EXPOSURE)["alert_episodes"] == 2
-    weekly = alerts([(d(7), "c", "down", "drop", 3), (d(21), "c", "down", "drop", 3), (d(49), "c", "down", "drop", 3)])
-    assert evaluate(weekly, outcomes([]), EXPOSURE, step_days=7)["alert_episodes"] == 2
+
+
+def test_a_sampled_day_tells_new_from_running_alerts_by_the_days_before_it():
+    """Issue 20 item 15: with every 7th day sampled (and the 3 days before each replayed), an
+    alert is new on a sampled day when none of the 3 days before had it, as in the daily scan;
+    rates are per sampled day, so they do not grow with the step."""
+    d = lambda k: START + timedelta(days=k)  # noqa: E731
+    exposure = EXPOSURE.assign(sampled=[i % 7 == 0 for i in range(100)])
+    weekly = alerts([(d(6), "c", "down", "drop", 3), (d(7), "c", "down", "drop", 3),   # running on day 7
+                     (d(14), "c", "down", "drop", 3),                                   # new: 11-13 quiet
+                     (d(48), "e", "up", "surge", 3),                                    # not a sampled day
+                     (d(49), "c", "down", "drop", 3)])                                  # new
+    m = evaluate(weekly, outcomes([]), exposure)
+    assert m["alert_episodes"] == 2 and m["days_replayed"] == 15
+    assert m["alerts_per_day"] == pytest.approx(2 / 15)
+    assert m["false_alerts_per_100_account_months"] == pytest.approx(100 * 2 / (15 * 10 / 30.44))
 
 
 def test_precision_and_recall_match_scikit_learn():
@@ -129,9 +143,14 @@ def test_backtest_uses_the_daily_scans_judgement(tmp_path):
     o.write_text("account,date,outcome\nacct-01,2026-06-01,churned\n")
     day = fleet.as_of - timedelta(days=3)
     result = ebbwatch.backtest(str(o), start=day, end=day, db=db)
-    scan = ebbwatch.scan(db=db, as_of=day, max_alerts=10_000)
-    assert result["days_replayed"] == 1
-    assert result["alert_episodes"] == len(scan)
+    scans = {back: ebbwatch.scan(db=db, as_of=day - timedelta(days=back), max_alerts=10_000) for back in range(4)}
+    replayed = result["_alerts"]
+    for back, scan in scans.items():
+        on_day = replayed[pd.to_datetime(replayed["as_of"]) == pd.Timestamp(day - timedelta(days=back))]
+        assert sorted(zip(on_day["account"], on_day["direction"])) == sorted(zip(scan["account"], scan["direction"]))
+    before = {(a, d) for back in (1, 2, 3) for a, d in zip(scans[back]["account"], scans[back]["direction"])}
+    assert result["days_replayed"] == 1 and result["lookback_days_replayed"] == 3
+    assert result["alert_episodes"] == sum((a, d) not in before for a, d in zip(scans[0]["account"], scans[0]["direction"]))
     for key in ("lead_days", "horizon_days", "false_alerts_per_100_account_months", "alerts_per_day", "days_replayed", "seconds"):
         assert key in result
     for key in ("count", "recall_at_lead", "median_lead_days", "precision"):
@@ -146,3 +165,27 @@ def test_unknown_outcome_kind_names_the_line(tmp_path):
     path.write_text("account,date,outcome\na,2026-01-01,churned\nb,2026-01-02,exploded\n")
     with pytest.raises(InputError, match="line 3.*exploded"):
         read_outcomes(str(path))
+
+
+def test_the_rates_are_estimated_alike_whatever_the_step(tmp_path):
+    """Issue 20 item 15: steps 1, 7 and 14 picked thresholds 3, 4 and 5 for one budget because
+    alerts a day were counted per replayed day.  Now a step-7 backtest gives exactly the rates
+    of the every-day replay read on the same sampled days."""
+    from ebbwatch.backtest import evaluate
+
+    fleet = make_fleet(80, 200, seed=8, share_changed=0.3)
+    fleet.daily_frame().to_parquet(tmp_path / "d.parquet")
+    db = str(tmp_path / "s.duckdb")
+    ebbwatch.ingest_files([], db=db, daily=str(tmp_path / "d.parquet"))
+    o = tmp_path / "outcomes.csv"
+    o.write_text("account,date,outcome\nacct-01,2026-06-01,churned\n")
+    start, end = fleet.as_of - timedelta(days=62), fleet.as_of
+    daily = ebbwatch.backtest(str(o), start=start, end=end, step=1, db=db)
+    weekly = ebbwatch.backtest(str(o), start=start, end=end, step=7, db=db)
+    exposure = daily["_exposure"].copy()
+    exposure["sampled"] = [(pd.Timestamp(d) - pd.Timestamp(start)).days % 7 == 0 for d in exposure["as_of"]]
+    same_days = evaluate(daily["_alerts"], pd.read_csv(o, parse_dates=["date"]), exposure)
+    assert weekly["days_replayed"] == 9 and same_days["days_replayed"] == 9
+    assert weekly["alert_episodes"] == same_days["alert_episodes"] > 0
+    assert weekly["alerts_per_day"] == pytest.approx(same_days["alerts_per_day"])
+    assert weekly["false_alerts_per_100_account_months"] == pytest.approx(same_days["false_alerts_per_100_account_months"])

@@ -944,7 +944,8 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     """
     import functools
 
-    from .backtest import calibrate, churn_days, evaluate, replay_fleet_factors, select_replayed, sweep
+    from .backtest import (calibrate, churn_days, evaluate, lookback_days, replay_fleet_factors, select_replayed,
+                           sweep)
     from .engine import default_threads
     from .ingest.csvs import read_outcomes
 
@@ -972,7 +973,10 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         accounts = st.account_ids()
         history = max((end - first_day).days + 1, cfg.scan.window_days + 14)
         loader = PanelLoader(st, cfg, end, history)
-        days = list(range((start - EPOCH).days, (end - EPOCH).days + 1, step))
+        sampled = list(range((start - EPOCH).days, (end - EPOCH).days + 1, step))
+        # Each sampled day with the days before it, so an alert new on it is told as the daily
+        # scan tells it and the rates estimated do not depend on the step.
+        days = lookback_days(sampled)
         sample_counts = loader.sample_counts(accounts)
         factors = replay_fleet_factors(sample_counts, loader.start_day, days, history_days=history_days,
                                        params=params, first_full_day=loader.first_full_of(fleet_sample(accounts)[0]))
@@ -1002,13 +1006,14 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     judged = np.sum([j for _, j in results], axis=0) if results else np.zeros(len(days), dtype=np.int64)
     alerts, exposure = select_replayed(candidates, judged, days, fdr=cfg.scan.fdr,
                                        min_change_pct=cfg.scan.min_change_pct, window_days=params.window_days)
-    kw = dict(lead_days=lead_days, horizon_days=horizon_days, step_days=step)
+    exposure["sampled"] = np.isin(days, sampled)
+    kw = dict(lead_days=lead_days, horizon_days=horizon_days)
     result = evaluate(alerts[alerts["severity"] >= cfg.scan.min_severity], outcome_frame, exposure, **kw)
     thresholds = sorted({0.0, 1.0, 2.0, 3.0, 4.0, 5.0, 7.5, 10.0, 15.0, 20.0, 30.0})
     swept = sweep(alerts, outcome_frame, exposure, thresholds, **kw)
     chosen = calibrate(swept, budget=budget, target_precision=target_precision) if (budget or target_precision) else None
     result.update({
-        "from": start.isoformat(), "to": end.isoformat(), "step_days": step,
+        "from": start.isoformat(), "to": end.isoformat(), "step_days": step, "lookback_days_replayed": len(days) - len(sampled),
         "sweep": [{"min_severity": m["min_severity"], "alerts_per_day": m["alerts_per_day"],
                    "false_alerts_per_100_account_months": m["false_alerts_per_100_account_months"],
                    "outcomes": {k: {"recall_at_lead": v["recall_at_lead"], "precision": v["precision"],

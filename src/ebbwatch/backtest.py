@@ -163,38 +163,59 @@ def replay(panel: Panel, as_of_days, *, params: ScanParams = ScanParams(), histo
                            window_days=params.window_days)
 
 
-def _episodes(alerts: pd.DataFrame, step_days: int = 1, resolve_days: int = RESOLVE_DAYS) -> pd.DataFrame:
-    """First days of alert episodes per account and direction, as the daily scan's lifecycle
-    sees them: an alert absent for ``resolve_days`` replayed days is resolved, and only the next
-    one after that is new (a flicker in between is the same episode, shown as ongoing)."""
+def lookback_days(sampled_days, resolve_days: int = RESOLVE_DAYS) -> list[int]:
+    """The days to replay for ``sampled_days`` (day numbers): each with the ``resolve_days``
+    before it, so whether an alert is new on a sampled day is told as the daily scan tells it,
+    whatever the spacing of the samples."""
+    return sorted({day - back for day in sampled_days for back in range(resolve_days + 1)})
+
+
+def new_episodes(alerts: pd.DataFrame, exposure: pd.DataFrame, resolve_days: int = RESOLVE_DAYS) -> pd.DataFrame:
+    """The alerts that are new on a sampled day, as the daily scan's lifecycle sees them: an
+    alert of an account and direction none of the ``resolve_days`` days before had (a flicker
+    in between is the same episode; absent that long, it had resolved).
+
+    ``exposure``: the replayed days (``as_of``) with ``sampled`` (bool; all when missing); the
+    days before each sampled one must have been replayed too (:func:`lookback_days`), else an
+    alert there is missed and a running episode counts as new.
+    """
     if alerts.empty:
-        return alerts.assign(start=[])
-    ordered = alerts.sort_values(["account", "direction", "as_of"])
-    days = pd.to_datetime(ordered["as_of"])
-    gap = days.groupby([ordered["account"], ordered["direction"]]).diff().dt.days
-    return ordered[(gap.isna()) | (gap > step_days * resolve_days)]
+        return alerts.assign(as_of=pd.to_datetime(alerts["as_of"]))
+    days = pd.to_datetime(alerts["as_of"])
+    sampled = set(pd.to_datetime(exposure.loc[exposure["sampled"], "as_of"]) if "sampled" in exposure
+                  else pd.to_datetime(exposure["as_of"]))
+    seen = set(zip(alerts["account"], alerts["direction"], days))
+    keep = [day in sampled and not any((account, direction, day - pd.Timedelta(days=back)) in seen
+                                       for back in range(1, resolve_days + 1))
+            for account, direction, day in zip(alerts["account"], alerts["direction"], days)]
+    return alerts.assign(as_of=days)[keep]
 
 
 def evaluate(alerts: pd.DataFrame, outcomes: pd.DataFrame, exposure: pd.DataFrame, *, lead_days: int = 30,
-             horizon_days: int = 90, step_days: int = 1) -> dict:
+             horizon_days: int = 90) -> dict:
     """Recall at a lead time, lead-time distribution, precision, false alerts, alerts per day.
+
+    ``exposure``: per replayed day (``as_of``) the accounts ``judged`` and whether the day is
+    ``sampled`` (all when the column is missing; the others are the days before a sampled one,
+    replayed to tell new alerts from running ones).
 
     * recall_at_lead: share of outcomes with a matching alert (down for churned/contracted, up for
       expanded) on a day in [date − horizon, date − lead].
     * lead times: date minus the first matching alert day in [date − horizon, date].
     * precision: share of accounts with an alert in that direction that have a matching outcome
       within ``horizon_days`` after one of their alerts.
-    * false alerts per 100 account-months: alert episodes (runs of consecutive alert days) with
-      no matching outcome within the horizon, over the account-months judged.
-    * alerts_per_day: episodes started per replayed day.
+    * alerts_per_day: alerts new on a sampled day (:func:`new_episodes`) per sampled day: what
+      the daily scan would print a day, estimated the same way whatever the sampling step.
+    * false alerts per 100 account-months: the new alerts with no matching outcome within the
+      horizon, per account-day judged on the sampled days (30.44 days a month).
     """
     alerts = alerts.copy()
     alerts["as_of"] = pd.to_datetime(alerts["as_of"])
     outs = outcomes.copy()
     outs["date"] = pd.to_datetime(outs["date"])
     result = {"outcomes": {}}
-    episodes = _episodes(alerts, step_days) if len(alerts) else alerts
-    episodes = episodes.assign(as_of=pd.to_datetime(episodes["as_of"])) if len(episodes) else episodes
+    episodes = new_episodes(alerts, exposure)
+    judged_days = exposure[exposure["sampled"]] if "sampled" in exposure else exposure
     for kind in sorted(set(outs["outcome"])):
         direction = "up" if kind in UP_OUTCOMES else "down"
         rows = outs[outs["outcome"] == kind]
@@ -227,12 +248,12 @@ def evaluate(alerts: pd.DataFrame, outcomes: pd.DataFrame, exposure: pd.DataFram
         o = outs[(outs["account"] == e.account) & outs["outcome"].isin(kinds)]
         if not ((o["date"] - e.as_of).dt.days.between(0, horizon_days)).any():
             false += 1
-    account_months = exposure["judged"].sum() * step_days / 30.44 if len(exposure) else 0.0
+    account_months = judged_days["judged"].sum() / 30.44 if len(judged_days) else 0.0
     result.update({
-        "lead_days": lead_days, "horizon_days": horizon_days, "days_replayed": int(len(exposure)),
+        "lead_days": lead_days, "horizon_days": horizon_days, "days_replayed": int(len(judged_days)),
         "alert_episodes": int(len(episodes)), "false_alert_episodes": false,
         "false_alerts_per_100_account_months": 100 * false / account_months if account_months else None,
-        "alerts_per_day": len(episodes) / len(exposure) if len(exposure) else None,
+        "alerts_per_day": len(episodes) / len(judged_days) if len(judged_days) else None,
     })
     return result
 

@@ -31,15 +31,17 @@ from fleets import generate  # noqa: E402
 
 
 def false_episodes_per_100_months(result: dict, fleet, horizon_days: int = 90) -> float:
-    from ebbwatch.backtest import DOWN_OUTCOMES, UP_OUTCOMES, _episodes
+    """False alerts per 100 account-months as the backtest counts them (alerts new on a sampled
+    day, per account-day judged on the sampled days), leaving out accounts with a planted episode
+    that is not an outcome (their alerts are not false)."""
+    from ebbwatch.backtest import DOWN_OUTCOMES, UP_OUTCOMES, new_episodes
 
     alerts, exposure = result["_alerts"], result["_exposure"]
     planted = set(fleet.episodes["account"])
     outcomes = fleet.outcomes.assign(date=pd.to_datetime(fleet.outcomes["date"]))
     false = 0
     if len(alerts):
-        episodes = _episodes(alerts, result["step_days"])
-        for e in episodes.itertuples():
+        for e in new_episodes(alerts, exposure).itertuples():
             if e.account in planted:
                 continue
             kinds = UP_OUTCOMES if e.direction == "up" else DOWN_OUTCOMES
@@ -47,7 +49,8 @@ def false_episodes_per_100_months(result: dict, fleet, horizon_days: int = 90) -
             delay = (mine["date"] - pd.Timestamp(e.as_of)).dt.days
             if not delay.between(0, horizon_days).any():
                 false += 1
-    months = exposure["judged"].sum() * result["step_days"] / 30.44
+    judged = exposure[exposure["sampled"]] if "sampled" in exposure else exposure
+    months = judged["judged"].sum() / 30.44
     return 100 * false / months if months else float("nan")
 
 

@@ -12,15 +12,17 @@ def _days(v):
 
 
 def render_backtest(r: dict) -> str:
-    lines = [f"Backtest {r['from']} .. {r['to']} every {r['step_days']} day(s): {r['days_replayed']} days replayed "
-             f"in {r['seconds']:.0f} s; lead >= {r['lead_days']} days within {r['horizon_days']} days", ""]
+    extra = r.get("lookback_days_replayed", 0)
+    lines = [f"Backtest {r['from']} .. {r['to']} every {r['step_days']} day(s): {r['days_replayed']} days judged "
+             f"(and {extra} day(s) before them, to tell new alerts from running ones) in {r['seconds']:.0f} s; "
+             f"lead >= {r['lead_days']} days within {r['horizon_days']} days", ""]
     lines.append(f"{'outcome':<12}{'count':>7}{'recall@lead':>13}{'caught':>8}{'lead q1/med/q3':>18}{'precision':>11}{'alerted':>9}")
     for kind, m in r["outcomes"].items():
         lead = f"{_days(m['lead_days_q1'])}/{_days(m['median_lead_days'])}/{_days(m['lead_days_q3'])}"
         lines.append(f"{kind:<12}{m['count']:>7}{_pct(m['recall_at_lead']):>13}{m['caught_within_horizon']:>8}{lead:>18}"
                      f"{_pct(m['precision']):>11}{m['alerted_accounts']:>9}")
     fa = r["false_alerts_per_100_account_months"]
-    lines += ["", f"alert episodes {r['alert_episodes']}, {r['alerts_per_day']:.2f} a day; false alerts "
+    lines += ["", f"new alerts on the days judged {r['alert_episodes']}, {r['alerts_per_day']:.2f} a day; false alerts "
                   f"{'-' if fa is None else f'{fa:.2f}'} per 100 account-months", "",
               "severity sweep (min_severity: alerts/day, false/100 account-months, recall@lead and precision per outcome)"]
     for m in r["sweep"]:
