@@ -12,6 +12,7 @@ import sys
 import time
 from collections import Counter
 from datetime import datetime, timedelta, timezone
+from pathlib import Path
 
 import duckdb
 import pytest
@@ -65,22 +66,31 @@ INGEST = [sys.executable, "-m", "ebbwatch", "ingest"]
 
 
 def kill_trials(tmp_path, trials, seed):
+    """Kill an ingest at a random moment and ingest again; the totals must be exact.
+
+    The ingest is given standard input between the batch's files, and standard input is never
+    closed, so the process cannot finish before it is killed, however fast the machine: the kill
+    lands while it takes the first files (inside or between their transactions) or while it waits.
+    """
     batch = tmp_path / "batch"
     truth = make_batch(batch, seed=seed)
+    files = sorted(str(p) for p in batch.glob("*.jsonl"))
     rng = random.Random(seed)
     full = time.perf_counter()
-    subprocess.run(INGEST + [str(batch), "--db", str(tmp_path / "timing.duckdb")], check=True, capture_output=True)
-    duration = time.perf_counter() - full
+    subprocess.run(INGEST + files[:2] + ["--db", str(tmp_path / "timing.duckdb")], check=True, capture_output=True)
+    duration = time.perf_counter() - full  # about how long the two files before stdin take
     mismatches = kills = 0
     for trial in range(trials):
         db = str(tmp_path / f"t{trial}.duckdb")
-        proc = subprocess.Popen(INGEST + [str(batch), "--db", db], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        time.sleep(rng.uniform(0.2, duration))
-        if proc.poll() is None:
-            proc.send_signal(signal.SIGKILL)
-            kills += 1
+        proc = subprocess.Popen(INGEST + files[:2] + ["-"] + files[2:] + ["--db", db], stdin=subprocess.PIPE,
+                                stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        time.sleep(rng.uniform(0.0, 1.2 * duration))
+        assert proc.poll() is None, "the ingest ended before its standard input was closed"
+        proc.send_signal(signal.SIGKILL)
+        kills += 1
         proc.wait()
-        subprocess.run(INGEST + [str(batch), "--db", db], check=True, capture_output=True)
+        proc.stdin.close()
+        subprocess.run(INGEST + files + ["--db", db], check=True, capture_output=True)
         mismatches += store_totals(db) != truth
     return kills, mismatches
 
@@ -155,7 +165,10 @@ def test_scan_during_ingest_waits_for_it(tmp_path):
     make_batch(batch, n_files=6, per_file=20_000, seed=6)
     db = str(tmp_path / "s.duckdb")
     proc = subprocess.Popen(INGEST + [str(batch), "--db", db], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    time.sleep(0.5)
+    # The status starts once the ingest has created (and so holds) the store, however slow the
+    # machine is to start it; a fixed sleep let a slow start give the status the store first.
+    while not Path(db).exists() and proc.poll() is None:
+        time.sleep(0.01)
     status = subprocess.run([sys.executable, "-m", "ebbwatch", "status", "--db", db, "--format", "json"],
                             capture_output=True, text=True, timeout=120)
     proc.wait()
