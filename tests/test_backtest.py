@@ -134,13 +134,19 @@ def test_adding_later_data_never_changes_a_days_alerts():
     pd.testing.assert_frame_equal(short.reset_index(drop=True), full.reset_index(drop=True))
 
 
-def test_backtest_uses_the_daily_scans_judgement(tmp_path):
-    fleet = make_fleet(80, 200, seed=6, share_changed=0.3)
+def _fleet_store(tmp_path, seed):
+    """An 80-account planted fleet in a store, and an outcomes file with one cancellation."""
+    fleet = make_fleet(80, 200, seed=seed, share_changed=0.3)
     fleet.daily_frame().to_parquet(tmp_path / "d.parquet")
     db = str(tmp_path / "s.duckdb")
     ebbwatch.ingest_files([], db=db, daily=str(tmp_path / "d.parquet"))
     o = tmp_path / "outcomes.csv"
     o.write_text("account,date,outcome\nacct-01,2026-06-01,churned\n")
+    return fleet, db, o
+
+
+def test_backtest_uses_the_daily_scans_judgement(tmp_path):
+    fleet, db, o = _fleet_store(tmp_path, seed=6)
     day = fleet.as_of - timedelta(days=3)
     result = ebbwatch.backtest(str(o), start=day, end=day, db=db)
     scans = {back: ebbwatch.scan(db=db, as_of=day - timedelta(days=back), max_alerts=10_000) for back in range(4)}
@@ -173,12 +179,7 @@ def test_the_rates_are_estimated_alike_whatever_the_step(tmp_path):
     of the every-day replay read on the same sampled days."""
     from ebbwatch.backtest import evaluate
 
-    fleet = make_fleet(80, 200, seed=8, share_changed=0.3)
-    fleet.daily_frame().to_parquet(tmp_path / "d.parquet")
-    db = str(tmp_path / "s.duckdb")
-    ebbwatch.ingest_files([], db=db, daily=str(tmp_path / "d.parquet"))
-    o = tmp_path / "outcomes.csv"
-    o.write_text("account,date,outcome\nacct-01,2026-06-01,churned\n")
+    fleet, db, o = _fleet_store(tmp_path, seed=8)
     start, end = fleet.as_of - timedelta(days=62), fleet.as_of
     daily = ebbwatch.backtest(str(o), start=start, end=end, step=1, db=db)
     weekly = ebbwatch.backtest(str(o), start=start, end=end, step=7, db=db)
