@@ -133,12 +133,17 @@ def _store_tables(db):
         con.close()
 
 
-def test_dask_ingest_equals_local_ingest(tmp_path, cluster):
+@pytest.mark.parametrize("window_days", [0, 10])
+def test_dask_ingest_equals_local_ingest(tmp_path, cluster, window_days):
     from datetime import datetime, timezone
+
+    from ebbwatch.config import config_from_dict
 
     events = _events_scenario(tmp_path)
     now = datetime(2026, 6, 1, tzinfo=timezone.utc)
-    kw = dict(identities=str(tmp_path / "identities.csv"), accounts=str(tmp_path / "accounts.csv"), now=now)
+    config = config_from_dict({"ingest": {"dedupe_window_days": window_days}})
+    kw = dict(identities=str(tmp_path / "identities.csv"), accounts=str(tmp_path / "accounts.csv"), now=now,
+              config=config)
     local_db, remote_db = str(tmp_path / "local.duckdb"), str(tmp_path / "remote.duckdb")
     local = ebbwatch.ingest_files([str(events)], db=local_db, rejects_path=str(tmp_path / "l.rejects"), **kw)
     remote = ebbwatch.ingest_files([str(events)], db=remote_db, rejects_path=str(tmp_path / "r.rejects"),
@@ -146,6 +151,7 @@ def test_dask_ingest_equals_local_ingest(tmp_path, cluster):
     # The scenario does what it is meant to: every rule is exercised.
     assert local["duplicates"] > 0 and local["unattributed"] and local["rejected"] and local["errors"]
     assert any("same content" in s["reason"] for s in local["skipped_files"])
+    assert bool(local["held_back"]) == bool(window_days)  # ids older than a 10-day window are held back
     for s in (local, remote):
         s.pop("seconds"), s.pop("rejects_file")
     assert remote == local
@@ -153,7 +159,7 @@ def test_dask_ingest_equals_local_ingest(tmp_path, cluster):
     assert (tmp_path / "r.rejects").read_text() == (tmp_path / "l.rejects").read_text()
     # A second run over the same directory: everything is already ingested, on both engines.
     again = ebbwatch.ingest_files([str(events)], db=remote_db, engine="dask", scheduler=cluster.scheduler_address,
-                                  now=now)
+                                  now=now, config=config)
     assert again["files"] == 0 and again["ingested"] == 0
     assert _store_tables(remote_db)["daily"] == _store_tables(local_db)["daily"]
 

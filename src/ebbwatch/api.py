@@ -60,11 +60,14 @@ def ingest_files(
     stdin=None,
     engine: str = "local",
     scheduler: str | None = None,
+    accept_beyond_window: bool | None = None,
 ) -> dict:
     """Ingest JSON-lines event files (and/or the accounts, identities and daily-aggregate files).
 
     Each file is one transaction.  Returns the summary (see README, ``ingest --format json``).
     Files that cannot be read are listed under ``errors``; the others are ingested.
+    ``accept_beyond_window`` overrides ``[ingest] accept_beyond_dedupe_window``: with a bounded
+    dedupe window, add events whose id is older than it instead of holding them back.
     ``engine="dask"``: the files are parsed, attributed and counted on a Dask cluster
     (``scheduler`` as in :func:`scan`; workers must read the same paths), and the store takes
     all of them in one transaction, with the same result as ingesting them in turn here.
@@ -72,6 +75,8 @@ def ingest_files(
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
     cfg = _config(config)
+    if accept_beyond_window is not None:
+        cfg = replace(cfg, ingest=replace(cfg.ingest, accept_beyond_dedupe_window=bool(accept_beyond_window)))
     started = time.perf_counter()
     now = now or datetime.now(timezone.utc)
     now_us = int(now.timestamp() * 1_000_000)
@@ -87,7 +92,8 @@ def ingest_files(
     summary = {
         "files": 0, "lines": 0, "ingested": 0, "duplicates": 0, "rejected": {}, "unattributed": {},
         "skipped_files": [], "errors": [], "accounts_loaded": 0, "identities_loaded": 0,
-        "daily_rows_loaded": 0, "paths": {"fast": 0, "precise": 0}, "rejects_file": None,
+        "daily_rows_loaded": 0, "paths": {"fast": 0, "precise": 0}, "lines_rechecked": 0, "held_back": {},
+        "rejects_file": None,
     }
     db_path = store_mod.resolve_path(db or cfg.store_path)
     rejects_path = rejects_path or str(Path(db_path).with_suffix("")) + ".rejects.jsonl"
@@ -133,7 +139,8 @@ def _add_to_summary(summary: dict, display: str, outcome):
     summary["paths"][outcome.path_taken] += 1
     for key in ("lines", "ingested", "duplicates"):
         summary[key] += getattr(outcome, key)
-    for group in ("rejected", "unattributed"):
+    summary["lines_rechecked"] += outcome.rechecked_lines
+    for group in ("rejected", "unattributed", "held_back"):
         for reason, n in getattr(outcome, group).items():
             summary[group][reason] = summary[group].get(reason, 0) + n
 
@@ -188,7 +195,8 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
                     outcomes.append((light.file, light.error or result, []))
                     continue
                 first_of_content[light.digest] = light.file
-                seen_before.append(st.claim_ids(*light.ids, cfg.ingest.dedupe_window_days))
+                seen_before.append(st.claim_ids(*light.ids, cfg.ingest.dedupe_window_days,
+                                                cfg.ingest.accept_beyond_dedupe_window))
                 waiting.append((len(outcomes), light.digest, future))
                 outcomes.append((light.file, None, light.rejects))
             counted = gather_in_order(client.map(count_parsed, [f for *_, f in waiting], seen_before,
@@ -215,9 +223,11 @@ def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_
     if result.skipped:
         return result
     with st.transaction():
-        merged = st.merge_staged(cfg.ingest.dedupe_window_days)
+        merged = st.merge_staged(cfg.ingest.dedupe_window_days, cfg.ingest.accept_beyond_dedupe_window)
         result.ingested = merged["ingested"]
         result.duplicates = merged["duplicates"]
+        if merged["held_back"]:
+            result.held_back = {"beyond_dedupe_window": merged["held_back"]}
         result.unattributed = merged["unattributed"]
         st.log_ingest(display, digest, result, merged["first_day"], merged["last_day"])
         st.note_newest_event(merged["newest_us"])
@@ -233,6 +243,7 @@ def status(*, db: str | None = None, config=None) -> dict:
     with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
         info = st.status()
         totals = st.fleet_daily_totals()
+    info["dedupe_window_days"] = cfg.ingest.dedupe_window_days
     info["gap_days"] = [d.isoformat() for d in fleet_gap_days(totals["day"], totals["events"].to_numpy(float))]
     for key in ("first_day", "last_day"):
         info[key] = info[key].isoformat() if info[key] is not None else None

@@ -121,15 +121,23 @@ def main():
               help="Where rejected lines go (JSON lines). Default: beside the store.")
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True,
               help="json prints one summary object on stdout.")
+@click.option("--accept-beyond-window", is_flag=True, default=None,
+              help="With [ingest] dedupe_window_days set: add events whose id is older than the window "
+                   "(they cannot be checked for redelivery) instead of holding them back.")
 @engine_options
 @handle_errors
-def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, fmt, engine, scheduler):
+def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, fmt, accept_beyond_window,
+           engine, scheduler):
     """Ingest JSON-lines events into the activity store.
 
     INPUTS are .jsonl or .jsonl.gz files, directories (searched recursively, in sorted order) or
     - for standard input. Each file is one transaction; a file already ingested (same content) is
     skipped. Bad lines go to the rejects file with their line number and reason; the rest of the
     file is ingested.
+
+    An event id counts once, however late it is redelivered (every id is remembered unless
+    [ingest] dedupe_window_days bounds it; then events with older ids are held back and counted
+    as beyond_dedupe_window, or added with --accept-beyond-window).
 
     With --engine dask the files are parsed on the cluster's workers (they must see the same
     paths) and the store takes them all in one transaction, with the same result.
@@ -145,7 +153,8 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
         raise click.UsageError("nothing to ingest: give INPUTS, --accounts, --identities or --daily")
     summary = api.ingest_files(list(inputs), db=db, config=config_path, accounts=accounts,
                                identities=identities, daily=daily, rejects_path=rejects_path,
-                               progress=_progress_printer("ingest"), engine=engine, scheduler=scheduler)
+                               progress=_progress_printer("ingest"), engine=engine, scheduler=scheduler,
+                               accept_beyond_window=accept_beyond_window)
     if fmt == "json":
         click.echo(json.dumps(summary, default=str))
     else:
@@ -170,6 +179,11 @@ def _print_ingest_summary(s: dict):
     if s["unattributed"]:
         reasons = ", ".join(f"{k} {v:,}" for k, v in sorted(s["unattributed"].items()))
         err(f"Unattributed {sum(s['unattributed'].values()):,} events ({reasons}).")
+    if s["held_back"]:
+        reasons = ", ".join(f"{k} {v:,}" for k, v in sorted(s["held_back"].items()))
+        err(f"Held back {sum(s['held_back'].values()):,} events ({reasons}): their ids are older than "
+            "[ingest] dedupe_window_days, so a redelivery could not be recognised; "
+            "--accept-beyond-window adds them.")
     for skipped in s["skipped_files"]:
         err(f"Skipped {skipped['file']}: {skipped['reason']}.")
     for error in s["errors"]:
@@ -198,6 +212,10 @@ def status(db, config_path, fmt):
     click.echo(f"days           {info['first_day']} .. {info['last_day']}")
     last = info["last_ingest"]
     click.echo(f"last ingest    {'-' if last is None else last['at'] + ' ' + last['file']}")
+    dedupe = ("every id remembered" if not info["dedupe_window_days"]
+              else f"ids remembered {info['dedupe_window_days']} days of event time")
+    click.echo(f"event ids      {info['ids_remembered']:,} ({dedupe}); "
+               f"{info['held_back']:,} events held back beyond the window")
     click.echo(f"data-gap days  {', '.join(info['gap_days']) or 'none'}")
 
 

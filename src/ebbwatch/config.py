@@ -31,7 +31,11 @@ class IngestConfig:
     future_tolerance_hours: float = 24.0
     earliest: str = "1970-01-01"
     max_line_bytes: int = 1_048_576
-    dedupe_window_days: int = 30
+    # 0: every event id is remembered for as long as the store keeps its day.  A bound forgets
+    # older ids; an event whose id is older than the bound is then held back (it cannot be
+    # told from a redelivery) unless accept_beyond_dedupe_window.
+    dedupe_window_days: int = 0
+    accept_beyond_dedupe_window: bool = False
 
 
 @dataclass(frozen=True)

@@ -58,5 +58,7 @@ class FileResult:
     duplicates: int = 0
     rejected: dict = field(default_factory=dict)
     unattributed: dict = field(default_factory=dict)
+    held_back: dict = field(default_factory=dict)  # by reason: events not added though valid (beyond_dedupe_window)
     skipped: str | None = None  # reason the whole file was skipped (e.g. already ingested)
     path_taken: str = "fast"  # "fast" (native reader) or "precise" (line by line)
+    rechecked_lines: int = 0  # lines of a fast-path file the native reader left to the precise parser

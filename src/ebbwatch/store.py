@@ -6,7 +6,8 @@ Tables (schema version ``SCHEMA_VERSION``; ``MIGRATIONS`` brings older stores fo
 - ``user_daily``: account × local day × event × user → events (drivers, active users, and exact
   distinct-user counts when late events arrive for a day already stored).
 - ``accounts``, ``identities`` (user → account over ``[valid_from, valid_to)``).
-- ``seen_ids``: event ids within the dedupe window; ``ingest_log``: one row per file ingested.
+- ``seen_ids``: event ids (every id, or those within a configured dedupe window) with their
+  event times; ``ingest_log``: one row per file ingested.
 - ``alert_log``: one row per recorded scan day and open alert (the lifecycle); ``snoozes``.
 
 Every file is ingested inside one transaction: if the process dies part-way, DuckDB's write-ahead
@@ -27,7 +28,7 @@ import pyarrow as pa
 
 from .errors import StoreError
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 DEFAULT_PATH = "ebbwatch.duckdb"
 
 # Schema as a list of migrations: MIGRATIONS[v] takes a store at version v to v + 1.
@@ -68,6 +69,11 @@ MIGRATIONS: dict[int, list[str]] = {
         "ALTER TABLE ingest_log ADD COLUMN content_hash VARCHAR",
         "UPDATE ingest_log SET content_hash = 'sha256:' || sha256",
         "ALTER TABLE ingest_log DROP COLUMN sha256",
+    ],
+    # v4: every event id is remembered by default (ids the old 30-day window forgot stay
+    # forgotten); events held back because their id is older than a configured window.
+    3: [
+        "ALTER TABLE ingest_log ADD COLUMN held_back BIGINT DEFAULT 0",
     ],
 }
 
@@ -208,8 +214,8 @@ class Store:
     def log_ingest(self, file: str, digest: str, result, first_day, last_day):
         self.con.execute(
             """INSERT INTO ingest_log (file, content_hash, ingested_at, lines, ingested, duplicates, rejected,
-                                       unattributed, path_taken, first_day, last_day)
-            VALUES (?, ?, now(), ?, ?, ?, ?, ?, ?, ?, ?)""",
+                                       unattributed, path_taken, first_day, last_day, held_back)
+            VALUES (?, ?, now(), ?, ?, ?, ?, ?, ?, ?, ?, ?)""",
             [
                 file,
                 digest,
@@ -221,37 +227,43 @@ class Store:
                 result.path_taken,
                 first_day,
                 last_day,
+                sum(result.held_back.values()),
             ],
         )
 
     # -- events: fast path -----------------------------------------------------------------
-    def stage_jsonl_fast(self, path: str, fields, ts_format: str, max_line_bytes: int,
-                         earliest_us: int, latest_us: int, ts_text: bool = False) -> int | None:
-        """Parse a JSON-lines file with DuckDB's native reader into the temp table ``staged``.
+    def stage_jsonl_fast(self, path: str, fields, ts_format: str, ts_text: bool = False,
+                         typed: bool = False) -> int | None:
+        """Parse a JSON-lines file with DuckDB's native reader into the temp table ``staged``,
+        one row per non-blank line in file order (``rowid`` is the line's ordinal among the
+        non-blank lines).
 
-        One pass converts every row and flags the ones the fast path is not sure of (a wrong
-        type, an unusual timestamp, an out-of-range time); a parse error or any flagged row
-        returns ``None``, and the caller sends the whole file through the precise path.  Lines
-        over the size limit are caught by the caller (DuckDB's reader does not enforce it).
-        Times in RFC 3339 (``ts_format`` rfc3339, or auto with ``ts_text``: the caller saw a
-        string time on the first line) are read as text too; a time that is not such a string
-        (a number's text cannot look like one) is flagged, and under auto a file with flagged
-        rows is read once more the general way (it may mix strings and numbers).
-        Returns the number of events staged.
+        A row the fast path is not sure of keeps a NULL ``ts_us``: a line that is not a JSON
+        object, a wrong or doubtful type, an unusual timestamp.  The caller finds them with
+        :meth:`doubtful_staged_rows` and has the precise parser decide those lines alone.
+
+        Two ways to read the text fields (event, user, account, id).  By default as VARCHAR,
+        which DuckDB unescapes itself and which costs about half as much as reading them as JSON
+        (2M lines: 0.47 s against 0.90 s).  VARCHAR hides whether a value was a string, so a
+        text that a number, boolean, object or array could also print as is doubted
+        (``may_be_non_string``): rare in real ids (a hex id such as "00000000000e1234").
+        With ``typed`` the fields are read as JSON and DuckDB's ``json_type`` decides, so no
+        string content is doubted: the caller reads a file that way when many rows were doubted
+        for their types.  Times in RFC 3339 (``ts_format`` rfc3339, or auto with ``ts_text``:
+        the caller saw a string time on the first line, and not ``typed``) are read as text
+        too; a time that is not such a string is doubted.  Returns the number of rows staged,
+        or ``None`` when DuckDB cannot read the file (the caller then parses it line by line).
+        Lines over the size limit are caught by the caller (DuckDB's reader does not enforce it).
         """
         names = [fields.ts, fields.event, fields.user, fields.account, fields.id]
-        # The time is read as JSON (its type decides RFC 3339 vs epoch); the other fields as
-        # VARCHAR, which DuckDB unescapes itself (->> on five JSON columns cost ~0.25 s of
-        # ~1.6 s on 2M lines).  VARCHAR hides whether a value was a string: a text a number,
-        # boolean, object or array could also print as is flagged (may_be_non_string), and a
-        # file with such a value takes the precise path, which knows.
         if len(set(names)) < len(names):
             return None  # one key for two fields: leave the file to the precise path
         # Text times skip a JSON value and two extractions per line (the ingest benchmark's 2M
         # lines: staging 1.22-1.26 -> 1.06-1.23 s, beside the hashing pass).
-        ts_text = ts_format == "rfc3339" or (ts_format == "auto" and ts_text)
+        ts_text = ts_format == "rfc3339" or (ts_format == "auto" and ts_text and not typed)
         ts_type = "VARCHAR" if ts_text else "JSON"
-        spec = ", ".join(f"{quote_literal(n)}: '{ts_type if n == fields.ts else 'VARCHAR'}'" for n in names)
+        field_type = "JSON" if typed else "VARCHAR"
+        spec = ", ".join(f"{quote_literal(n)}: '{ts_type if n == fields.ts else field_type}'" for n in names)
         ts, ev, us, ac, idc = (quote_ident(n) for n in names)
 
         def text(col):
@@ -270,12 +282,14 @@ class Store:
 
         # What the VARCHAR text of a non-string JSON value can look like; one regex per value
         # (cheaper here than a chain of prefix tests).
-        non_string_text = quote_literal("(?s)(true|false|[[{].*|-?[0-9]+(\\.[0-9]+)?([eE][-+]?[0-9]+)?)")
+        non_string_text = quote_literal("(?s)(true|false|[[{].*|-?[0-9]+(\\.[0-9]+)?([eE][-+]?[0-9]+)?|-?(?i:nan|inf|infinity))")
 
         def may_be_non_string(col, integers_too: bool):
-            """Whether ``col``'s text could have been a number, boolean, object or array.
+            """Whether ``col``'s text could have been a number, boolean, object, array or one of the
+            non-finite literals DuckDB's parser takes and keeps the text of (nan, inf, infinity in
+            any case, with a minus).
             Integers are accepted as ids either way, with the same text, so only events flag them.
-            Only a text starting with t, f, [, {, - or a digit can be one, so the regular
+            Only a text starting with t, f, n, i (either case), [, {, - or a digit can be one, so the regular
             expressions run on those alone (ids and names mostly start with a letter).  The first
             byte is tested by comparing the whole text with one-character strings (bytewise:
             ``col < ':'`` holds exactly when the first byte is below ':', which takes in '-', the
@@ -285,12 +299,27 @@ class Store:
             if not integers_too:
                 flagged = f"({flagged} AND NOT regexp_full_match({col}, '-?[0-9]{{1,19}}'))"
             first_byte_may_start_non_string = " OR ".join(
-                [f"{col} < ':'"] + [f"({col} >= '{c}' AND {col} < '{chr(ord(c) + 1)}')" for c in "[{tf"])
+                [f"{col} < ':'"] + [f"({col} >= '{c}' AND {col} < '{chr(ord(c) + 1)}')" for c in "[{tfnNiI"])
             return f"(CASE WHEN {first_byte_may_start_non_string} THEN {flagged} ELSE false END)"
 
-        def id_ok(col):
-            return f"NOT {may_be_non_string(col, integers_too=False)}"
+        if typed:
+            # Ids may be JSON strings or integers (as the precise path takes them); an integer
+            # too large for 64 bits reads as DOUBLE here and is left to the precise path.
+            def value(col):
+                return unquote(col)
 
+            def id_ok(col):
+                return f"json_type({col}) IN ('VARCHAR', 'BIGINT', 'UBIGINT')"
+
+            event_ok = f"json_type({ev}) = 'VARCHAR' AND {value(ev)} <> ''"
+        else:
+            def value(col):
+                return col
+
+            def id_ok(col):
+                return f"NOT {may_be_non_string(col, integers_too=False)}"
+
+            event_ok = f"{ev} <> '' AND NOT {may_be_non_string(ev, integers_too=True)}"
         if ts_text:
             ts_ok = f"regexp_full_match({ts}, {quote_literal(FAST_TS_PATTERN)})"
         elif ts_format in ("epoch_s", "epoch_ms"):
@@ -305,9 +334,8 @@ class Store:
         else:
             numeric_us = (f"CASE WHEN abs({as_double}) < 1e11 THEN CAST(round({as_double} * 1e6) AS BIGINT) "
                           f"WHEN abs({as_double}) < 1e14 THEN CAST(round({as_double} * 1e3) AS BIGINT) END")
-        ok = (f"{ts} IS NOT NULL AND {ts_ok} "
-              f"AND {ev} <> '' AND NOT {may_be_non_string(ev, integers_too=True)} "
-              f"AND {us} <> '' AND {id_ok(us)} "
+        ok = (f"{ts} IS NOT NULL AND {ts_ok} AND {event_ok} "
+              f"AND {us} IS NOT NULL AND {value(us)} <> '' AND {id_ok(us)} "
               f"AND ({ac} IS NULL OR {id_ok(ac)}) AND ({idc} IS NULL OR {id_ok(idc)})")
         if ts_text:
             time_us = f"CASE WHEN COALESCE({ok}, false) THEN epoch_us(TRY_CAST({ts} AS TIMESTAMPTZ)) END"
@@ -316,26 +344,68 @@ class Store:
                        f"WHEN {is_string(ts)} THEN epoch_us(TRY_CAST({unquote(ts)} AS TIMESTAMPTZ)) "
                        f"ELSE {numeric_us} END")
         try:
+            # records=true: a line that is not an object is a doubtful row, not a reason to
+            # read the whole file another way; ignore_errors: a line that is not JSON is one
+            # all-NULL row (still one row per non-blank line, so ordinals stay line ordinals).
             self.con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE staged AS
                 SELECT {time_us} AS ts_us,
-                       {ev} AS event, {us} AS "user", nullif({ac}, '') AS account,
-                       {_id_hash(idc)} AS id_hash
-                FROM read_json(?, format='newline_delimited', columns={{{spec}}})""",
+                       {value(ev)} AS event, {value(us)} AS "user", nullif({value(ac)}, '') AS account,
+                       {_id_hash(value(idc))} AS id_hash
+                FROM read_json(?, format='newline_delimited', records=true, ignore_errors=true,
+                               columns={{{spec}}})""",
                 [path],
             )
         except duckdb.Error:
+            self.con.execute("DROP TABLE IF EXISTS staged")
             return None
-        rows, doubtful = self.con.execute(
-            "SELECT count(*), count_if(ts_us IS NULL OR ts_us < ? OR ts_us > ?) FROM staged",
+        return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
+
+    def doubtful_staged_rows(self, earliest_us: int, latest_us: int) -> np.ndarray:
+        """Ordinals (``rowid``, 0-based among non-blank lines) of the staged rows the fast path
+        was not sure of: no time, or a time outside ``[earliest_us, latest_us]`` (the precise
+        path gives those their reasons)."""
+        return self.con.execute(
+            "SELECT rowid FROM staged WHERE ts_us IS NULL OR ts_us < ? OR ts_us > ? ORDER BY rowid",
             [int(earliest_us), int(latest_us)],
-        ).fetchone()
-        if doubtful:
-            self.con.execute("DROP TABLE staged")
-            if ts_text and ts_format == "auto":  # perhaps text and number times mixed: read the general way
-                return self.stage_jsonl_fast(path, fields, ts_format, max_line_bytes, earliest_us, latest_us)
-            return None
-        return rows
+        ).fetchnumpy()["rowid"].astype(np.int64)
+
+    def settle_doubtful_staged(self, ordinals: np.ndarray, recovered: pa.Table):
+        """Remove the doubtful rows at ``ordinals`` from ``staged`` and add ``recovered``: the
+        precise path's events from those lines (columns ts_us, event, user, account, id and
+        ``ordinal``), keeping the file's line order wherever it matters (an id delivered twice
+        in the file: the first delivery wins)."""
+        con = self.con
+        _register(con, "doubtful_ordinals", pa.table({"ordinal": pa.array(ordinals, pa.int64())}))
+        _register(con, "recovered_records", recovered)
+        try:
+            con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE recovered AS
+                SELECT ts_us, event, "user", account, {_id_hash("id")} AS id_hash, ordinal
+                FROM recovered_records ORDER BY ordinal"""
+            )
+            collide = recovered.num_rows and con.execute(
+                """SELECT count(*) FROM recovered r JOIN (
+                     SELECT id_hash FROM staged WHERE rowid NOT IN (SELECT ordinal FROM doubtful_ordinals)) s
+                   USING (id_hash)""").fetchone()[0]
+            if collide:
+                # Rebuild in line order so "first delivery wins" sees the right first delivery.
+                con.execute(
+                    """CREATE OR REPLACE TEMP TABLE staged_ordered AS
+                    SELECT ts_us, event, "user", account, id_hash FROM (
+                      SELECT ts_us, event, "user", account, id_hash, rowid AS ordinal FROM staged
+                      WHERE rowid NOT IN (SELECT ordinal FROM doubtful_ordinals)
+                      UNION ALL SELECT ts_us, event, "user", account, id_hash, ordinal FROM recovered)
+                    ORDER BY ordinal""")
+                con.execute("DROP TABLE staged")
+                con.execute("ALTER TABLE staged_ordered RENAME TO staged")
+            else:
+                con.execute("DELETE FROM staged WHERE rowid IN (SELECT ordinal FROM doubtful_ordinals)")
+                con.execute('INSERT INTO staged SELECT ts_us, event, "user", account, id_hash FROM recovered')
+            con.execute("DROP TABLE recovered")
+        finally:
+            con.unregister("doubtful_ordinals")
+            con.unregister("recovered_records")
 
     def drop_staged(self):
         self.con.execute("DROP TABLE IF EXISTS staged")
@@ -442,35 +512,18 @@ class Store:
         for table in ("staged", "staged_n", "attributed", "repeat_losers"):
             self.con.execute(f"DROP TABLE IF EXISTS {table}")
 
-    def merge_staged(self, dedupe_window_days: int) -> dict:
+    def merge_staged(self, dedupe_window_days: int = 0, accept_beyond_window: bool = False) -> dict:
         """Attribute, dedupe and aggregate the staged events into the daily tables.
 
         Dedupe: the first delivery of an id wins, within this file (:meth:`prepare_staged`) and
-        against ids already seen.  Returns counts: ``ingested``, ``duplicates``,
+        against ids already seen (:meth:`_fresh_events`).  Returns counts: ``ingested``,
+        ``duplicates``, ``held_back`` (events whose id is older than a bounded window),
         ``unattributed`` (by reason), first and last day touched.
         """
         con = self.con
         prepared = self.prepare_staged()
-        if con.execute("SELECT count(*) FROM (SELECT 1 FROM seen_ids LIMIT 1)").fetchall()[0][0]:
-            con.execute(
-                """CREATE OR REPLACE TEMP TABLE fresh AS SELECT * FROM prepared
-                WHERE id_hash IS NULL OR id_hash NOT IN (SELECT id_hash FROM seen_ids)"""
-            )
-            fresh = "fresh"
-            fresh_count = con.execute("SELECT count(*) FROM fresh").fetchall()[0][0]
-        else:
-            fresh = "prepared"
-            fresh_count = prepared["candidates"] - prepared["repeats"]
-        # Only ids the window keeps are written: forget_old_ids would drop the others at once
-        # (a 60-day backfill would otherwise write every id and delete half of them again).
-        con.execute(
-            f"""INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh}
-            WHERE id_hash IS NOT NULL AND make_timestamptz(ts_us) >= (
-                SELECT max(ts) - to_days(CAST(? AS INTEGER)) FROM (
-                    SELECT max(ts) AS ts FROM seen_ids
-                    UNION ALL SELECT make_timestamptz(max(ts_us)) FROM {fresh} WHERE id_hash IS NOT NULL))""",
-            [int(dedupe_window_days)],
-        )
+        fresh, fresh_count, held_back = self._fresh_events(
+            "prepared", prepared["candidates"] - prepared["repeats"], dedupe_window_days, accept_beyond_window)
         newest_us = con.execute(f"SELECT max(ts_us) FROM {fresh}").fetchall()[0][0]
         grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
         if self._user_daily_is_empty():
@@ -485,15 +538,66 @@ class Store:
             self.drop_prepared()
             con.execute("DROP TABLE IF EXISTS fresh")
             first_day, last_day = self._merge_new_user_daily()
-        self.forget_old_ids(dedupe_window_days)
         return {
             "ingested": fresh_count,
-            "duplicates": prepared["candidates"] - fresh_count,
+            "duplicates": prepared["candidates"] - fresh_count - held_back,
+            "held_back": held_back,
             "unattributed": prepared["unattributed"],
             "first_day": first_day,
             "last_day": last_day,
             "newest_us": newest_us,
         }
+
+    def _window_cutoff(self, source: str, dedupe_window_days: int):
+        """The oldest event time whose id a bounded window still remembers (TIMESTAMPTZ), from
+        the newest id time seen or in ``source``; ``None`` without a window."""
+        if not dedupe_window_days:
+            return None
+        return self.con.execute(
+            f"""SELECT max(ts) - to_days(CAST(? AS INTEGER)) FROM (
+                SELECT max(ts) AS ts FROM seen_ids
+                UNION ALL SELECT make_timestamptz(max(ts_us)) FROM {source} WHERE id_hash IS NOT NULL)""",
+            [int(dedupe_window_days)],
+        ).fetchone()[0]
+
+    def _fresh_events(self, source: str, candidates: int, dedupe_window_days: int, accept_beyond_window: bool):
+        """The events of ``source`` (id_hash, ts_us, ...) whose id was not seen before, and
+        record their ids.  Returns ``(table, count, held_back)``.
+
+        Without a window every id is remembered.  The check joins the file's ids with
+        ``seen_ids`` and DuckDB builds its hash table on the smaller side (the file), so a
+        check costs one scan of the remembered hashes, not memory in proportion to them.  With
+        a window, ids older than it are forgotten, and an event with such an id cannot be
+        checked: it is held back (``held_back``) unless ``accept_beyond_window``.
+        """
+        con = self.con
+        cutoff = self._window_cutoff(source, dedupe_window_days)
+        if not con.execute("SELECT count(*) FROM (SELECT 1 FROM seen_ids LIMIT 1)").fetchall()[0][0] and cutoff is None:
+            fresh, fresh_count, held_back = source, candidates, 0
+        else:
+            con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE seen_before AS
+                SELECT p.id_hash FROM {source} p SEMI JOIN seen_ids s ON s.id_hash = p.id_hash""")
+            beyond = "false" if cutoff is None or accept_beyond_window else "make_timestamptz(ts_us) < ?"
+            params = [] if beyond == "false" else [cutoff]
+            con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE fresh_marked AS
+                SELECT *, id_hash IS NOT NULL AND {beyond} AS beyond_window FROM {source} p
+                WHERE p.id_hash IS NULL OR p.id_hash NOT IN (SELECT id_hash FROM seen_before)""", params)
+            held_back = con.execute("SELECT COALESCE(count_if(beyond_window), 0) FROM fresh_marked").fetchone()[0]
+            con.execute("CREATE OR REPLACE TEMP TABLE fresh AS SELECT * EXCLUDE (beyond_window) FROM fresh_marked "
+                        "WHERE NOT beyond_window")
+            con.execute("DROP TABLE fresh_marked")
+            con.execute("DROP TABLE seen_before")
+            fresh = "fresh"
+            fresh_count = con.execute("SELECT count(*) FROM fresh").fetchall()[0][0]
+        # Only ids the window keeps are written (a backfill longer than the window would
+        # otherwise write ids only to delete them again).
+        keep = "" if cutoff is None else "AND make_timestamptz(ts_us) >= ?"
+        con.execute(f"INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh} "
+                    f"WHERE id_hash IS NOT NULL {keep}", [] if cutoff is None else [cutoff])
+        self.forget_old_ids(dedupe_window_days)
+        return fresh, fresh_count, held_back
 
     def note_newest_event(self, ts_us):
         """Keep the newest event time ingested (epoch microseconds): which days are complete in
@@ -531,18 +635,23 @@ class Store:
             LEFT JOIN accounts a USING (account) ORDER BY 1""").fetchall()]
 
     def forget_old_ids(self, dedupe_window_days: int):
-        """Forget ids older than the dedupe window, measured back from the newest event time seen."""
+        """Forget ids older than the dedupe window, measured back from the newest event time
+        seen; with no window (0) every id is kept."""
+        if not dedupe_window_days:
+            return
         self.con.execute(
             """DELETE FROM seen_ids WHERE ts < (SELECT max(ts) FROM seen_ids) - to_days(CAST(? AS INTEGER))""",
             [int(dedupe_window_days)],
         )
 
-    def claim_ids(self, id_hash: np.ndarray, ts_us: np.ndarray, dedupe_window_days: int) -> np.ndarray:
+    def claim_ids(self, id_hash: np.ndarray, ts_us: np.ndarray, dedupe_window_days: int = 0,
+                  accept_beyond_window: bool = False) -> tuple[np.ndarray, np.ndarray]:
         """One file's event ids (first deliveries within it) against the ids already seen.
 
-        Returns the hashes already seen (those events are duplicates); records the others with
-        their event times and forgets ids older than the window, as :meth:`merge_staged` does
-        for a file, so files claimed one after another dedupe exactly as if ingested in turn.
+        Returns ``(seen, held_back)``: the hashes already seen (those events are duplicates) and
+        those older than a bounded window (held back, see :meth:`_fresh_events`); records the
+        others with their event times as :meth:`merge_staged` does for a file, so files claimed
+        one after another dedupe exactly as if ingested in turn.
         """
         con = self.con
         ids = pa.table({"id_hash": pa.array(id_hash, pa.uint64()), "ts_us": pa.array(ts_us, pa.int64())})
@@ -551,14 +660,16 @@ class Store:
             seen = con.execute(
                 "SELECT c.id_hash FROM claimed_ids c SEMI JOIN seen_ids s ON s.id_hash = c.id_hash"
             ).fetchnumpy()["id_hash"]
-            con.execute(
-                """INSERT INTO seen_ids SELECT c.id_hash, make_timestamptz(c.ts_us) FROM claimed_ids c
-                ANTI JOIN seen_ids s ON s.id_hash = c.id_hash"""
-            )
+            fresh, _, held = self._fresh_events("claimed_ids", len(id_hash) - len(seen), dedupe_window_days,
+                                                accept_beyond_window)
+            held_hashes = np.zeros(0, dtype=np.uint64)
+            if held:
+                kept = con.execute(f"SELECT id_hash FROM {fresh}").fetchnumpy()["id_hash"]
+                held_hashes = np.setdiff1d(np.asarray(id_hash, np.uint64), np.concatenate([seen, kept]).astype(np.uint64))
+            con.execute("DROP TABLE IF EXISTS fresh")
         finally:
             con.unregister("claimed_ids")
-        self.forget_old_ids(dedupe_window_days)
-        return np.asarray(seen, dtype=np.uint64)
+        return np.asarray(seen, dtype=np.uint64), np.asarray(held_hashes, dtype=np.uint64)
 
     def merge_user_daily(self, tables: list[pa.Table]) -> tuple:
         """Add per-user daily counts (``account, day, event, user, events``; several tables may
@@ -699,6 +810,8 @@ class Store:
             "first_day": first_day,
             "last_day": last_day,
             "files_ingested": con.execute("SELECT count(*) FROM ingest_log").fetchall()[0][0],
+            "ids_remembered": con.execute("SELECT count(*) FROM seen_ids").fetchall()[0][0],
+            "held_back": int(con.execute("SELECT COALESCE(sum(held_back), 0) FROM ingest_log").fetchall()[0][0]),
             "last_ingest": None
             if last is None
             else {"file": last[0], "at": last[1].isoformat(), "events": int(last[2])},

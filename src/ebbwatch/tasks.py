@@ -19,6 +19,7 @@ from . import store as store_mod
 from .errors import InputError
 from .frames import FileResult, Reject
 from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
+from .ingest.line_index import LineIndex, read_spans
 from .ingest.readers import first_value_is_text, iter_lines, scan_file
 from .series import NEVER_ACTIVE, Panel, build_panel
 
@@ -29,11 +30,13 @@ MAX_FAST_NESTING = 500
 
 # -- events -----------------------------------------------------------------------------------
 
-def precise_records(path: str, display: str, rules: LineRules, result: FileResult, rejects: list) -> pa.Table:
-    """Every line of ``path`` through the precise parser: the valid ones as a table (ts_us,
-    event, user, account, id), each bad one counted in ``result`` and added to ``rejects``."""
-    columns = {"ts_us": [], "event": [], "user": [], "account": [], "id": []}
-    for number, raw in iter_lines(path):
+def precise_records(path: str, display: str, rules: LineRules, result: FileResult, rejects: list,
+                    numbered_lines=None) -> pa.Table:
+    """Every line of ``path`` through the precise parser (or only ``numbered_lines``, pairs of
+    line number and bytes): the valid ones as a table (ts_us, event, user, account, id, and
+    ``line``, the line number), each bad one counted in ``result`` and added to ``rejects``."""
+    columns = {"ts_us": [], "event": [], "user": [], "account": [], "id": [], "line": []}
+    for number, raw in (iter_lines(path) if numbered_lines is None else numbered_lines):
         try:
             parsed = parse_line(raw, rules)
         except LineRejected as exc:
@@ -44,16 +47,24 @@ def precise_records(path: str, display: str, rules: LineRules, result: FileResul
         if parsed is None:
             continue
         result.lines += 1
-        for key, value in zip(columns, parsed):
+        for key, value in zip(columns, (*parsed, number)):
             columns[key].append(value)
     schema = pa.schema([("ts_us", pa.int64()), ("event", pa.string()), ("user", pa.string()),
-                        ("account", pa.string()), ("id", pa.string())])
+                        ("account", pa.string()), ("id", pa.string()), ("line", pa.int64())])
     return pa.table(columns, schema=schema)
 
 
+# Doubted rows up to this many (or 1% of the file's lines, if more) go to the precise parser
+# one line at a time; beyond it, a sample says whether reading the file again with its fields
+# typed by DuckDB would settle them (they were doubted for their text) or not (they are bad).
+RECHECK_LINES = 2_000
+RECHECK_SAMPLE = 400
+
+
 def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reason=None, legacy_digest=False):
-    """Parse one event file into ``st``'s temp table ``staged``: DuckDB's native reader when
-    every line passes its checks, else the precise parser line by line.
+    """Parse one event file into ``st``'s temp table ``staged``: DuckDB's native reader for the
+    lines it is sure of, the precise parser for the others (and for the whole file when the
+    native reader cannot read it).
 
     ``skip_reason(digests)`` may return why the file is not to be ingested (its content was
     ingested before; ``digests`` are its content hashes, see ``readers.scan_file``, SHA-256
@@ -62,15 +73,15 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     """
     result = FileResult(file=display)
     rejects: list[Reject] = []
-    # Hashing (and measuring the longest line) runs in a thread beside the fast-path parse:
-    # both release the GIL.  Staging writes only temporary tables, so a fast-path parse error
-    # cannot touch the store.
+    # Hashing (and measuring the longest line, and noting where lines start) runs in a thread
+    # beside the fast-path parse: both release the GIL.  Staging writes only temporary tables,
+    # so a fast-path parse error cannot touch the store.
     ts_text = rules.ts_format == "auto" and first_value_is_text(path, fields.ts)
+    index = LineIndex()
     with ThreadPoolExecutor(max_workers=1) as pool:
-        scanning = pool.submit(scan_file, path, legacy_digest)
+        scanning = pool.submit(scan_file, path, legacy_digest, index)
         try:
-            staged = st.stage_jsonl_fast(path, fields, rules.ts_format, rules.max_line_bytes,
-                                         rules.earliest_us, rules.latest_us, ts_text=ts_text)
+            staged = st.stage_jsonl_fast(path, fields, rules.ts_format, ts_text=ts_text)
         finally:
             digests, longest_line, deepest = scanning.result()
     digest = digests[0]
@@ -80,14 +91,51 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
         result.skipped = reason
         return digest, result, rejects
     if staged is not None and (longest_line > rules.max_line_bytes or deepest > MAX_FAST_NESTING):
-        st.drop_staged()
         staged = None
+    if staged is not None:
+        staged = _settle_doubtful_lines(st, path, display, rules, fields, staged, index, result, rejects)
     if staged is None:
+        st.drop_staged()
         result.path_taken = "precise"
-        st.stage_records(precise_records(path, display, rules, result, rejects))
-    else:
-        result.lines = staged
+        result.lines, result.rejected, result.rechecked_lines = 0, {}, 0
+        rejects.clear()
+        st.stage_records(precise_records(path, display, rules, result, rejects).drop_columns(["line"]))
     return digest, result, rejects
+
+
+def _settle_doubtful_lines(st, path, display, rules, fields, staged: int, index, result, rejects):
+    """Have the precise parser decide the lines the native reader doubted.  Returns the number
+    of rows staged, or ``None`` when the native reader's rows cannot be matched to lines (the
+    caller then parses the whole file line by line)."""
+    doubtful = st.doubtful_staged_rows(rules.earliest_us, rules.latest_us)
+    result.lines = staged
+    if not doubtful.size:
+        return staged
+    numbers, starts, ends = index.nonblank_lines(path)
+    if numbers.size != staged:
+        return None  # the reader and the line index disagree on what a line is
+    if doubtful.size > max(RECHECK_LINES, staged // 100):
+        sample = doubtful[:: max(1, doubtful.size // RECHECK_SAMPLE)][:RECHECK_SAMPLE]
+        trial = FileResult(file=display)
+        accepted = precise_records(path, display, rules, trial, [],
+                                   zip(numbers[sample].tolist(), read_spans(path, starts[sample], ends[sample]))).num_rows
+        if accepted * 10 >= sample.size:  # doubted for their text, not bad: let DuckDB type them
+            if st.stage_jsonl_fast(path, fields, rules.ts_format, typed=True) != staged:
+                return None
+            doubtful = st.doubtful_staged_rows(rules.earliest_us, rules.latest_us)
+    lines = zip(numbers[doubtful].tolist(), read_spans(path, starts[doubtful], ends[doubtful]))
+    checked = FileResult(file=display)
+    recovered = precise_records(path, display, rules, checked, rejects, lines)
+    ordinal_of_line = dict(zip(numbers[doubtful].tolist(), doubtful.tolist()))
+    recovered = recovered.append_column(
+        "ordinal", pa.array([ordinal_of_line[n] for n in recovered["line"].to_pylist()], pa.int64())
+    ).drop_columns(["line"])
+    st.settle_doubtful_staged(doubtful, recovered)
+    result.rejected = checked.rejected
+    result.rechecked_lines = int(doubtful.size)
+    # Lines the precise parser finds blank (a byte-order mark alone) are not lines it counts.
+    result.lines = staged - doubtful.size + checked.lines
+    return result.lines - sum(checked.rejected.values())
 
 
 @dataclass
@@ -146,14 +194,18 @@ def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.
         st.close()
 
 
-def count_parsed(parsed: ParsedFile, duplicate_hashes: np.ndarray):
-    """One parsed file's per-user daily counts without the ids already seen (one task of a Dask
-    ingest).  Returns ``(table, result, first_day, last_day, newest_us)`` with the result's
-    counts filled."""
-    table, counted, first_day, last_day, newest_us = store_mod.aggregate_events(parsed.events, duplicate_hashes)
+def count_parsed(parsed: ParsedFile, claimed: tuple):
+    """One parsed file's per-user daily counts without the ids already seen or held back
+    (``claimed``: the two arrays of ``Store.claim_ids``; one task of a Dask ingest).  Returns
+    ``(table, result, first_day, last_day, newest_us)`` with the result's counts filled."""
+    duplicate_hashes, held_hashes = claimed
+    left_out = np.concatenate([duplicate_hashes, held_hashes]).astype(np.uint64)
+    table, counted, first_day, last_day, newest_us = store_mod.aggregate_events(parsed.events, left_out)
     result = parsed.result
     result.ingested = counted
-    result.duplicates = parsed.candidates - counted
+    if len(held_hashes):
+        result.held_back = {"beyond_dedupe_window": int(len(held_hashes))}
+    result.duplicates = parsed.candidates - counted - len(held_hashes)
     return table, result, first_day, last_day, newest_us
 
 

@@ -7,6 +7,7 @@ agrees with these rules for every line, and sends any other file here.
 from __future__ import annotations
 
 import json
+import re
 from dataclasses import dataclass
 
 from .timestamps import TimestampError, parse_timestamp
@@ -53,6 +54,62 @@ def _identifier(value, field_name: str, required: bool) -> str | None:
     raise LineRejected("wrong_type", f"{field_name} is {type(value).__name__}")
 
 
+# Whitespace around a line, as DuckDB's JSON-lines reader trims it (C's isspace).
+LINE_SPACE = " \t\r\n\x0b\x0c"
+_NON_FINITE = re.compile(r"-?(?:infinity|inf|nan)", re.IGNORECASE)
+_NON_FINITE_TEXT = {"n": "NaN", "i": "Infinity"}
+
+
+def _native_reader_json(text: str):
+    """The line as DuckDB's JSON reader takes it, or ``None`` if that reader refuses it too.
+
+    Its parser accepts three things strict JSON does not: a trailing comma before ``}`` or
+    ``]`` (after a value), the literals nan, inf and infinity in any case (with a minus), and
+    vertical tab or form feed around the line.  Both paths must accept the same lines, so
+    such a line is accepted here too: a non-finite number is then a number (a wrong type for
+    the fields ebbwatch reads).  Only lines strict parsing refused come here."""
+    out, i, n, in_string, last = [], 0, len(text), False, ""
+    text = text.strip(LINE_SPACE)
+    n = len(text)
+    while i < n:
+        c = text[i]
+        if in_string:
+            out.append(c)
+            if c == "\\":
+                out.append(text[i + 1: i + 2])
+                i += 2
+                continue
+            in_string = c != '"'
+            if not in_string:
+                last = '"'
+            i += 1
+            continue
+        if c == '"':
+            in_string = True
+        elif c == ",":
+            rest = text[i + 1:].lstrip(" \t\r\n")
+            if rest[:1] in ("}", "]") and last not in ("", "[", "{", ",", ":"):
+                i += 1
+                continue
+        elif last in (":", "[", ",") and c in "-nNiI":
+            token = _NON_FINITE.match(text, i)
+            if token:
+                word = token.group()
+                sign = "-" if word.startswith("-") else ""
+                out.append(sign + _NON_FINITE_TEXT[word.lstrip("-")[0].lower()])
+                last = "0"
+                i = token.end()
+                continue
+        out.append(c)
+        if c not in " \t\r\n":
+            last = c
+        i += 1
+    try:
+        return json.loads("".join(out))
+    except (ValueError, RecursionError):
+        return None
+
+
 def parse_line(raw: bytes, rules: LineRules) -> tuple[int, str, str, str | None, str | None] | None:
     """Parse one line (without its terminator).
 
@@ -68,7 +125,7 @@ def parse_line(raw: bytes, rules: LineRules) -> tuple[int, str, str, str | None,
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise LineRejected("not_utf8", f"byte {exc.start}") from None
-    if not text.strip(" \t\r\n"):
+    if not text.strip(LINE_SPACE):
         return None
     try:
         # NaN and Infinity are not JSON (RFC 8259): refuse them rather than let Python accept them.
@@ -76,7 +133,9 @@ def parse_line(raw: bytes, rules: LineRules) -> tuple[int, str, str, str | None,
     except RecursionError:
         raise LineRejected("not_json", "nested too deeply for the JSON parser") from None
     except ValueError as exc:
-        raise LineRejected("not_json", str(exc)[:80]) from None
+        obj = _native_reader_json(text)
+        if obj is None:
+            raise LineRejected("not_json", str(exc)[:80]) from None
     if not isinstance(obj, dict):
         raise LineRejected("not_object", type(obj).__name__)
     if rules.ts_field not in obj or obj[rules.ts_field] is None:

@@ -1,0 +1,148 @@
+"""The native reader keeps a file's good lines whatever its strings look like; only the lines it
+doubts go to the precise parser, found again by their place in the file."""
+
+import gzip
+import json
+import random
+
+import numpy as np
+import pytest
+
+from ebbwatch import tasks
+from ebbwatch.ingest.line_index import LineIndex, read_spans
+from ebbwatch.ingest.readers import scan_file
+
+from .conftest import write_jsonl
+from .test_ingest import daily, ev, ingest, ingest_precisely
+
+
+def lines_of(path):
+    return [json.loads(line) for line in open(path, encoding="utf-8") if line.strip()]
+
+
+@pytest.mark.parametrize("gz", [False, True])
+def test_hex_ids_that_read_like_numbers_stay_on_the_native_reader(tmp_path, gz):
+    # 16 hex digits: some happen to read as a float ("0000000000000e10"), one such line once
+    # sent a whole file line by line.  Mixed with decimal-digit ids and integer ids.
+    rng = random.Random(3)
+    rows = []
+    for i in range(3000):
+        ident = "%016x" % rng.getrandbits(64)
+        if i % 500 == 7:
+            ident = "00000000000%02de10" % (i // 500)
+        elif i % 3 == 0:
+            ident = "%016d" % i
+        rows.append(ev(f"2026-03-{1 + i % 28:02d}T10:{i % 60:02d}:00Z", user=f"u-{i % 50}", account=f"a-{i % 7}", id=ident))
+    rows.append(ev("2026-03-02T11:00:00Z", id=123456))
+    path = write_jsonl(tmp_path / ("e.jsonl.gz" if gz else "e.jsonl"), rows, gz=gz)
+    s = ingest(str(tmp_path / "1.duckdb"), [path])
+    ref = ingest_precisely(str(tmp_path / "2.duckdb"), [path])
+    assert s["paths"] == {"fast": 1, "precise": 0}
+    assert 0 < s["lines_rechecked"] <= 10  # the float-looking ids, decided by the precise parser
+    assert (s["ingested"], s["duplicates"], s["rejected"]) == (ref["ingested"], ref["duplicates"], ref["rejected"]) == (3001, 0, {})
+    assert daily(str(tmp_path / "1.duckdb")) == daily(str(tmp_path / "2.duckdb"))
+
+
+def test_a_file_of_float_looking_string_ids_is_read_typed(tmp_path, db):
+    # Every id reads like a number: too many lines to check one by one, so DuckDB reads the file
+    # again with the fields typed, and nothing is left to the precise parser.
+    rows = [ev(f"2026-03-{1 + i % 28:02d}T10:00:00Z", id=f"{i}e{i % 9}", user=f"{i % 40}.5") for i in range(tasks.RECHECK_LINES + 500)]
+    path = write_jsonl(tmp_path / "e.jsonl", rows)
+    s = ingest(db, [path])
+    ref = ingest_precisely(str(tmp_path / "ref.duckdb"), [path])
+    assert s["paths"] == {"fast": 1, "precise": 0} and s["lines_rechecked"] == 0
+    assert s["ingested"] == ref["ingested"] == len(rows) and daily(db) == daily(str(tmp_path / "ref.duckdb"))
+
+
+def test_many_numeric_times_after_a_text_time_are_read_the_general_way(tmp_path, db):
+    rows = [ev("2026-03-02T10:00:00Z")] + [ev(1_772_500_000 + 60 * i) for i in range(tasks.RECHECK_LINES + 100)]
+    path = write_jsonl(tmp_path / "e.jsonl", rows)
+    s = ingest(db, [path])
+    assert s["paths"] == {"fast": 1, "precise": 0} and s["lines_rechecked"] == 0 and s["ingested"] == len(rows)
+
+
+@pytest.mark.parametrize("gz", [False, True])
+def test_bad_lines_among_many_keep_the_rest_on_the_native_reader(tmp_path, gz):
+    rng = random.Random(5)
+    raw, expected_bad = [], []
+    for i in range(5000):
+        if rng.random() < 0.002:
+            raw.append(b'{"ts": "2026-03-02T10:00:00Z", "event": "x"')  # cut short
+            expected_bad.append((len(raw), "not_json"))
+        elif rng.random() < 0.002:
+            raw.append(json.dumps(ev("yesterday")).encode())
+            expected_bad.append((len(raw), "bad_time"))
+        elif rng.random() < 0.01:
+            raw.append(rng.choice([b"", b"   ", b"\t\r", b"\x0c"]))  # blank: no row in DuckDB
+        else:
+            raw.append(json.dumps(ev(f"2026-03-{1 + i % 28:02d}T10:00:00Z", user=f"u-{i % 30}", id=f"e-{i}")).encode())
+    path = write_jsonl(tmp_path / ("e.jsonl.gz" if gz else "e.jsonl"), [], raw_lines=raw, gz=gz)
+    rejects = tmp_path / "rejects.jsonl"
+    s = ingest(str(tmp_path / "1.duckdb"), [path], rejects_path=str(rejects))
+    ref = ingest_precisely(str(tmp_path / "2.duckdb"), [path], rejects_path=str(tmp_path / "ref-rejects.jsonl"))
+    assert s["paths"] == {"fast": 1, "precise": 0} and s["lines_rechecked"] == len(expected_bad)
+    assert [(r["line"], r["reason"]) for r in lines_of(rejects)] == expected_bad
+    assert lines_of(rejects) == lines_of(tmp_path / "ref-rejects.jsonl")
+    assert (s["lines"], s["ingested"]) == (ref["lines"], ref["ingested"])
+    assert daily(str(tmp_path / "1.duckdb")) == daily(str(tmp_path / "2.duckdb"))
+
+
+def test_many_bad_lines_are_each_given_their_reason(tmp_path, db):
+    rows = [ev(f"2026-03-0{1 + i % 9} 10:00") if i % 2 else ev("2026-03-02T10:00:00Z", user=f"u-{i}") for i in range(6000)]
+    path = write_jsonl(tmp_path / "e.jsonl", rows)
+    s = ingest(db, [path])
+    ref = ingest_precisely(str(tmp_path / "ref.duckdb"), [path])
+    assert s["paths"] == {"fast": 1, "precise": 0} and s["lines_rechecked"] == 3000
+    assert s["rejected"] == ref["rejected"] == {"bad_time": 3000} and s["ingested"] == ref["ingested"] == 3000
+
+
+def test_first_delivery_wins_when_it_was_a_rechecked_line(tmp_path, db):
+    # Line 1 is doubted (a user that reads like a number) but valid; line 2 repeats its id.
+    path = write_jsonl(tmp_path / "e.jsonl", [
+        ev("2026-03-02T10:00:00Z", event="first", user="1.5", id="k"),
+        ev("2026-03-02T10:00:01Z", event="second", user="u-2", id="k"),
+        ev("2026-03-02T10:00:02Z", event="other", user="u-3", id="j"),
+    ])
+    s = ingest(db, [path])
+    assert s["lines_rechecked"] == 1 and (s["ingested"], s["duplicates"]) == (2, 1)
+    assert daily(db) == {("a-1", "2026-03-02", "first"): (1, 1), ("a-1", "2026-03-02", "other"): (1, 1)}
+
+
+def test_a_line_the_reader_and_the_index_count_differently_sends_the_file_line_by_line(tmp_path, db):
+    # A byte-order mark alone on a line: DuckDB reads a row (not JSON), the precise parser a
+    # blank line.  Whichever way, the file's result is the precise parser's.
+    path = write_jsonl(tmp_path / "e.jsonl", [ev("2026-03-02T10:00:00Z")], raw_lines=[b"\xef\xbb\xbf", json.dumps(ev("2026-03-03T10:00:00Z")).encode()])
+    s = ingest(db, [path])
+    assert (s["lines"], s["ingested"], s["rejected"]) == (2, 2, {})
+
+
+@pytest.mark.parametrize("block", [1, 2, 3, 7, 64, 1 << 20])
+@pytest.mark.parametrize("final_newline", [True, False])
+def test_line_index_finds_every_non_blank_line(tmp_path, block, final_newline):
+    lines = [b'{"a": 1}', b"", b"  ", b'{"b": 22}\r', b"\t", b"x", b"\x0c", b" y", b"", b"zz"]
+    data = b"\n".join(lines) + (b"\n" if final_newline else b"")
+    path = tmp_path / "f.txt"
+    path.write_bytes(data)
+    index = LineIndex()
+    for i in range(0, len(data), block):
+        chunk = data[i:i + block]
+        index.feed(chunk, np.flatnonzero(np.frombuffer(chunk, dtype=np.uint8) == 10))
+    numbers, starts, ends = index.nonblank_lines(str(path))
+    assert numbers.tolist() == [1, 4, 6, 8, 10]
+    assert read_spans(str(path), starts, ends) == [b'{"a": 1}', b'{"b": 22}', b"x", b" y", b"zz"]
+
+
+def test_scan_file_builds_the_same_index_for_a_gzip_file(tmp_path):
+    data = b"".join(b'{"n": %d}\n' % i if i % 13 else b"\n" for i in range(200_000))
+    plain, packed = tmp_path / "f.jsonl", tmp_path / "f.jsonl.gz"
+    plain.write_bytes(data)
+    packed.write_bytes(gzip.compress(data))
+    found = []
+    for path in (plain, packed):
+        index = LineIndex()
+        scan_file(str(path), index=index)
+        numbers, starts, ends = index.nonblank_lines(str(path))
+        found.append((numbers.tolist(), read_spans(str(path), starts[-3:], ends[-3:])))
+    assert found[0] == found[1]
+    assert len(found[0][0]) == 200_000 - len(range(0, 200_000, 13))
+    assert found[0][1] == [b'{"n": 199997}', b'{"n": 199998}', b'{"n": 199999}']
