@@ -127,9 +127,11 @@ def test_line_index_finds_every_non_blank_line(tmp_path, block, final_newline):
     for i in range(0, len(data), block):
         chunk = data[i:i + block]
         index.feed(chunk, np.flatnonzero(np.frombuffer(chunk, dtype=np.uint8) == 10))
-    numbers, starts, ends = index.nonblank_lines(str(path))
-    assert numbers.tolist() == [1, 4, 6, 8, 10]
+    count, numbers, starts, ends = index.nonblank_lines(str(path), np.arange(5))
+    assert count == 5 and numbers.tolist() == [1, 4, 6, 8, 10]
     assert read_spans(str(path), starts, ends) == [b'{"a": 1}', b'{"b": 22}', b"x", b" y", b"zz"]
+    _, numbers, starts, ends = index.nonblank_lines(str(path), np.array([1, 4]))
+    assert numbers.tolist() == [4, 10] and read_spans(str(path), starts, ends) == [b'{"b": 22}', b"zz"]
 
 
 def test_scan_file_builds_the_same_index_for_a_gzip_file(tmp_path):
@@ -141,7 +143,8 @@ def test_scan_file_builds_the_same_index_for_a_gzip_file(tmp_path):
     for path in (plain, packed):
         index = LineIndex()
         scan_file(str(path), index=index)
-        numbers, starts, ends = index.nonblank_lines(str(path))
+        count = index.nonblank_lines(str(path), np.zeros(0, dtype=np.int64))[0]
+        count, numbers, starts, ends = index.nonblank_lines(str(path), np.arange(count))
         found.append((numbers.tolist(), read_spans(str(path), starts[-3:], ends[-3:])))
     assert found[0] == found[1]
     assert len(found[0][0]) == 200_000 - len(range(0, 200_000, 13))

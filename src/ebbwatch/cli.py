@@ -130,8 +130,8 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
            engine, scheduler):
     """Ingest JSON-lines events into the activity store.
 
-    INPUTS are .jsonl or .jsonl.gz files, directories (searched recursively, in sorted order) or
-    - for standard input. Each file is one transaction; a file already ingested (same content) is
+    INPUTS are .jsonl, .jsonl.gz or .parquet files, directories (searched recursively, in sorted
+    order) or - for standard input. Each file is one transaction; a file already ingested (same content) is
     skipped. Bad lines go to the rejects file with their line number and reason; the rest of the
     file is ingested.
 
@@ -147,6 +147,7 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
       ebbwatch ingest events/ --identities identities.csv --accounts accounts.csv
       ebbwatch ingest /mnt/events/2026-11/ --engine dask --scheduler tcp://10.0.0.5:8786
       zcat today.jsonl.gz | ebbwatch ingest -
+      ebbwatch ingest exports/events-2026-11.parquet
       ebbwatch ingest --daily warehouse_daily.parquet
     """
     if not (inputs or accounts or identities or daily):

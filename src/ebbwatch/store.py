@@ -361,6 +361,87 @@ class Store:
             return None
         return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
 
+    def stage_parquet_fast(self, path: str, fields, ts_format: str) -> int | None:
+        """Read a Parquet file of events into the temp table ``staged``, one row per file row in
+        order (``rowid`` is the row's number), as :meth:`stage_jsonl_fast` does for JSON lines.
+
+        Column types decide, once per file: a TIMESTAMP WITH TIME ZONE time is used as it is, a
+        TIMESTAMP without one is read as UTC, a text time must be RFC 3339 (as in JSON lines), a
+        number is epoch seconds or milliseconds; text and integer ids are kept as their text.
+        Any other type leaves the rows doubted (NULL ``ts_us``) and the precise parser gives
+        them their reasons (:meth:`parquet_rows`).  Returns the rows staged, or ``None`` when
+        DuckDB cannot read the file.
+        """
+        try:
+            kinds = dict(self.con.execute(
+                f"SELECT column_name, column_type FROM (DESCRIBE SELECT * FROM read_parquet({quote_literal(path)}))").fetchall())
+        except duckdb.Error:
+            return None
+        text_types = ("VARCHAR",)
+        integer_types = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "UTINYINT", "USMALLINT", "UINTEGER", "UBIGINT")
+
+        def text(name, required):
+            kind = kinds.get(name)
+            col = quote_ident(name)
+            if kind is None:
+                return "NULL", "false" if required else "true"
+            if kind in text_types:
+                return col, (f"{col} <> ''" if required else "true")
+            if kind in integer_types and name != fields.event:
+                return f"CAST({col} AS VARCHAR)", "true"
+            return "NULL", f"{col} IS NULL" if not required else "false"
+
+        event, event_ok = text(fields.event, True)
+        user, user_ok = text(fields.user, True)
+        account, account_ok = text(fields.account, False)
+        ident, id_ok = text(fields.id, False)
+        kind, ts = kinds.get(fields.ts), quote_ident(fields.ts)
+        if kind == "TIMESTAMP WITH TIME ZONE" and ts_format in ("auto", "rfc3339"):
+            time_us = f"epoch_us({ts})"
+        elif kind in ("TIMESTAMP", "TIMESTAMP_NS", "TIMESTAMP_MS", "TIMESTAMP_S") and ts_format in ("auto", "rfc3339"):
+            time_us = f"epoch_us(CAST({ts} AS TIMESTAMP))"
+        elif kind in text_types and ts_format in ("auto", "rfc3339"):
+            time_us = (f"CASE WHEN regexp_full_match({ts}, {quote_literal(FAST_TS_PATTERN)}) "
+                       f"THEN epoch_us(TRY_CAST({ts} AS TIMESTAMPTZ)) END")
+        elif kind in integer_types + ("DOUBLE", "FLOAT") and ts_format != "rfc3339":
+            value = f"CAST({ts} AS DOUBLE)"
+            if ts_format == "epoch_s":
+                time_us = f"CAST(round({value} * 1e6) AS BIGINT)"
+            elif ts_format == "epoch_ms":
+                time_us = f"CAST(round({value} * 1e3) AS BIGINT)"
+            else:
+                time_us = (f"CASE WHEN abs({value}) < 1e11 THEN CAST(round({value} * 1e6) AS BIGINT) "
+                           f"WHEN abs({value}) < 1e14 THEN CAST(round({value} * 1e3) AS BIGINT) END")
+        else:
+            time_us = "NULL"
+        ok = f"{event} IS NOT NULL AND {event_ok} AND {user} IS NOT NULL AND {user_ok} AND {account_ok} AND {id_ok}"
+        try:
+            self.con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE staged AS
+                SELECT CASE WHEN COALESCE({ok}, false) THEN {time_us} END AS ts_us,
+                       {event} AS event, {user} AS "user", nullif({account}, '') AS account,
+                       {_id_hash(ident)} AS id_hash
+                FROM read_parquet(?)""", [path])
+        except duckdb.Error:
+            self.con.execute("DROP TABLE IF EXISTS staged")
+            return None
+        return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
+
+    def parquet_rows(self, path: str, row_numbers: np.ndarray, fields) -> list[dict]:
+        """The rows ``row_numbers`` (0-based, ascending) of a Parquet file as Python values,
+        only the five event fields (those present)."""
+        present = [r[0] for r in self.con.execute(
+            f"SELECT column_name FROM (DESCRIBE SELECT * FROM read_parquet({quote_literal(path)}))").fetchall()]
+        wanted = [n for n in dict.fromkeys([fields.ts, fields.event, fields.user, fields.account, fields.id]) if n in present]
+        _register(self.con, "wanted_rows", pa.table({"n": pa.array(row_numbers, pa.int64())}))
+        try:
+            table = _arrow(self.con, f"""SELECT {", ".join(quote_ident(n) for n in wanted) or "NULL AS none"}
+                FROM read_parquet(?, file_row_number = true)
+                WHERE file_row_number IN (SELECT n FROM wanted_rows) ORDER BY file_row_number""", [path])
+        finally:
+            self.con.unregister("wanted_rows")
+        return table.select(wanted).to_pylist() if wanted else [{} for _ in row_numbers]
+
     def doubtful_staged_rows(self, earliest_us: int, latest_us: int) -> np.ndarray:
         """Ordinals (``rowid``, 0-based among non-blank lines) of the staged rows the fast path
         was not sure of: no time, or a time outside ``[earliest_us, latest_us]`` (the precise

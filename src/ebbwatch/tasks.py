@@ -8,7 +8,10 @@ process or on a Dask worker.  A block is read from the dataset that
 
 from __future__ import annotations
 
+import json
 from concurrent.futures import ThreadPoolExecutor
+from datetime import date, datetime, time, timezone
+from decimal import Decimal
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -20,7 +23,7 @@ from .errors import InputError
 from .frames import FileResult, Reject
 from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
 from .ingest.line_index import LineIndex, read_spans
-from .ingest.readers import first_value_is_text, iter_lines, scan_file
+from .ingest.readers import first_value_is_text, is_parquet, iter_lines, scan_file
 from .series import NEVER_ACTIVE, Panel, build_panel
 
 # Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
@@ -71,6 +74,8 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     too with ``legacy_digest``); then nothing is staged.  Returns ``(digest, result,
     rejects)``, ``digest`` the hash to log, with ``result.skipped`` set for a skipped file.
     """
+    if is_parquet(path):
+        return _stage_parquet(st, path, display, rules, fields, skip_reason, legacy_digest)
     result = FileResult(file=display)
     rejects: list[Reject] = []
     # Hashing (and measuring the longest line, and noting where lines start) runs in a thread
@@ -111,22 +116,23 @@ def _settle_doubtful_lines(st, path, display, rules, fields, staged: int, index,
     result.lines = staged
     if not doubtful.size:
         return staged
-    numbers, starts, ends = index.nonblank_lines(path)
-    if numbers.size != staged:
+    nonblank, numbers, starts, ends = index.nonblank_lines(path, doubtful)
+    if nonblank != staged:
         return None  # the reader and the line index disagree on what a line is
     if doubtful.size > max(RECHECK_LINES, staged // 100):
-        sample = doubtful[:: max(1, doubtful.size // RECHECK_SAMPLE)][:RECHECK_SAMPLE]
+        pick = np.arange(0, doubtful.size, max(1, doubtful.size // RECHECK_SAMPLE))[:RECHECK_SAMPLE]
         trial = FileResult(file=display)
         accepted = precise_records(path, display, rules, trial, [],
-                                   zip(numbers[sample].tolist(), read_spans(path, starts[sample], ends[sample]))).num_rows
-        if accepted * 10 >= sample.size:  # doubted for their text, not bad: let DuckDB type them
+                                   zip(numbers[pick].tolist(), read_spans(path, starts[pick], ends[pick]))).num_rows
+        if accepted * 10 >= pick.size:  # doubted for their text, not bad: let DuckDB type them
             if st.stage_jsonl_fast(path, fields, rules.ts_format, typed=True) != staged:
                 return None
             doubtful = st.doubtful_staged_rows(rules.earliest_us, rules.latest_us)
-    lines = zip(numbers[doubtful].tolist(), read_spans(path, starts[doubtful], ends[doubtful]))
+            _, numbers, starts, ends = index.nonblank_lines(path, doubtful)
+    lines = zip(numbers.tolist(), read_spans(path, starts, ends))
     checked = FileResult(file=display)
     recovered = precise_records(path, display, rules, checked, rejects, lines)
-    ordinal_of_line = dict(zip(numbers[doubtful].tolist(), doubtful.tolist()))
+    ordinal_of_line = dict(zip(numbers.tolist(), doubtful.tolist()))
     recovered = recovered.append_column(
         "ordinal", pa.array([ordinal_of_line[n] for n in recovered["line"].to_pylist()], pa.int64())
     ).drop_columns(["line"])
@@ -136,6 +142,50 @@ def _settle_doubtful_lines(st, path, display, rules, fields, staged: int, index,
     # Lines the precise parser finds blank (a byte-order mark alone) are not lines it counts.
     result.lines = staged - doubtful.size + checked.lines
     return result.lines - sum(checked.rejected.values())
+
+
+def _stage_parquet(st, path, display, rules: LineRules, fields, skip_reason, legacy_digest):
+    """:func:`stage_file` for a Parquet file: DuckDB reads it by column type; the rows it doubts
+    are written as JSON objects and given to the precise parser, so a row is valid exactly when
+    the same values on a JSON line would be (a reject's ``line`` is the row's 1-based number)."""
+    result = FileResult(file=display)
+    rejects: list[Reject] = []
+    digests, _, _ = scan_file(path, legacy_digest)
+    reason = skip_reason(digests) if skip_reason else None
+    if reason is not None:
+        result.skipped = reason
+        return digests[0], result, rejects
+    staged = st.stage_parquet_fast(path, fields, rules.ts_format)
+    if staged is None:
+        raise InputError(f"cannot read {path} as Parquet")
+    result.lines = staged
+    doubtful = st.doubtful_staged_rows(rules.earliest_us, rules.latest_us)
+    if doubtful.size:
+        rows = st.parquet_rows(path, doubtful, fields)
+        lines = ((int(n) + 1, json.dumps(row, default=_json_value).encode()) for n, row in zip(doubtful, rows))
+        checked = FileResult(file=display)
+        recovered = precise_records(path, display, rules, checked, rejects, lines)
+        recovered = recovered.append_column("ordinal", pa.array(
+            [n - 1 for n in recovered["line"].to_pylist()], pa.int64())).drop_columns(["line"])
+        st.settle_doubtful_staged(doubtful, recovered)
+        result.rejected = checked.rejected
+        result.rechecked_lines = int(doubtful.size)
+    return digests[0], result, rejects
+
+
+def _json_value(value):
+    """A Parquet value that JSON has no type for, as the JSON value a producer would write."""
+    if isinstance(value, datetime):
+        if value.tzinfo is None:  # a TIMESTAMP without a time zone is read as UTC
+            value = value.replace(tzinfo=timezone.utc)
+        return value.astimezone(timezone.utc).isoformat().replace("+00:00", "Z")
+    if isinstance(value, (date, time)):
+        return value.isoformat()
+    if isinstance(value, Decimal):
+        return float(value)
+    if isinstance(value, bytes):
+        return {"bytes": value.hex()}  # not a string: a wrong type wherever a text is wanted
+    return str(value)
 
 
 @dataclass

@@ -1,5 +1,5 @@
-"""Ingest speed on realistic file shapes: ebbwatch vs a bare DuckDB read_json + GROUP BY (and
-pandas on the first shape), each shape generated and measured in one run.
+"""Ingest speed on realistic file shapes: ebbwatch vs a bare DuckDB read_json (read_parquet) +
+GROUP BY (and pandas on the first shape), each shape generated and measured in one run.
 
 Run by hand: ``python tests/benchmarks/ingest.py [--events N] [--shapes a,b]`` (default
 2,000,000 events a shape).  Each route runs in its own process (so peak memory is its own) on
@@ -27,7 +27,7 @@ from _common import run_measured  # noqa: E402
 # compression.  ``id``/``user``/``ts`` are SQL over ``i`` (the row), ``t`` (a timestamp),
 # ``u`` (a user number) and ``a`` (an account number); ``None`` leaves the field out.
 BASE = {"id": "CAST(uuid() AS VARCHAR)", "user": "'u-' || u || '-' || a",
-        "ts": "strftime(t, '%Y-%m-%dT%H:%M:%S.%gZ')", "bad_every": 0, "gzip": False}
+        "ts": "strftime(t, '%Y-%m-%dT%H:%M:%S.%gZ')", "bad_every": 0, "gzip": False, "parquet": False}
 SHAPES = {
     "uuid ids (base)": {},
     "decimal-string ids": {"id": "printf('%016d', i)"},
@@ -39,6 +39,7 @@ SHAPES = {
     "epoch-ms times": {"ts": "epoch_ms(t)"},
     "0.1% bad lines": {"bad_every": 1000},
     "gzip": {"gzip": True},
+    "Parquet (typed times)": {"ts": "t AT TIME ZONE 'UTC'", "parquet": True},
 }
 
 
@@ -65,7 +66,7 @@ def make_file(path: str, n_events: int, shape: dict, seed: int = 7):
                  {spec['user']} AS "user", 'acct-' || a AS account{id_column},
                  {{'src': 'web', 'ua': {{'os': 'linux', 'v': u}}}} AS attrs
           FROM rows ORDER BY i
-        ) TO '{raw}' (FORMAT json)
+        ) TO '{raw}' (FORMAT {"parquet" if spec["parquet"] else "json"})
     """)
     con.close()
     if raw == path:
@@ -81,6 +82,9 @@ def make_file(path: str, n_events: int, shape: dict, seed: int = 7):
 def bare_query(path: str, shape: dict) -> str:
     """The bare DuckDB route: read the four fields, count per account, UTC day and event."""
     spec = {**BASE, **shape}
+    if spec["parquet"]:
+        return f"""SELECT account, CAST(ts AS DATE) AS day, event, count(*) AS events, count(DISTINCT "user") AS users
+FROM read_parquet({path!r}) GROUP BY ALL"""
     ts_type, day = ("BIGINT", "CAST(make_timestamp(ts * 1000) AS DATE)") if spec["ts"].startswith("epoch_ms") \
         else ("VARCHAR", "CAST(CAST(ts AS TIMESTAMPTZ) AS DATE)")
     tolerate = ", ignore_errors=true" if spec["bad_every"] else ""
@@ -134,7 +138,8 @@ def main():
     for k, name in enumerate(names):
         shape = SHAPES[name]
         number = list(SHAPES).index(name)
-        path = os.path.join(tmp, f"events-{args.events}-{number}.jsonl" + (".gz" if shape.get("gzip") else ""))
+        suffix = ".parquet" if shape.get("parquet") else ".jsonl" + (".gz" if shape.get("gzip") else "")
+        path = os.path.join(tmp, f"events-{args.events}-{number}{suffix}")
         if not os.path.exists(path):
             make_file(path, args.events, shape)
         size_mb = os.path.getsize(path) / 1e6

@@ -51,30 +51,67 @@ class LineIndex:
         self._maybe_blank.append(maybe_blank.astype(np.int64) + self.size)
         self.size += len(block)
 
-    def _starts(self) -> np.ndarray:
-        if not self._relative:
-            return np.zeros(0, dtype=np.int64)
-        return np.concatenate([rel.astype(np.int64) + base for base, rel in zip(self._bases, self._relative)])
+    def _line_starts(self, lines: np.ndarray) -> np.ndarray:
+        """Byte offsets of the given 0-based line indices (ascending or not)."""
+        counts = np.array([rel.size for rel in self._relative], dtype=np.int64)
+        first_line = np.concatenate([[0], np.cumsum(counts)])
+        block = np.searchsorted(first_line, lines, side="right") - 1
+        out = np.empty(lines.size, dtype=np.int64)
+        for b in np.unique(block):
+            here = block == b
+            out[here] = self._relative[b][lines[here] - first_line[b]].astype(np.int64) + self._bases[b]
+        return out
 
-    def nonblank_lines(self, path: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """``(line_numbers, starts, ends)`` of the non-blank lines, in order: 1-based line
-        numbers, and byte offsets in the (decompressed) text of each line's first byte and of
-        its end (before ``\\n``).  Reads only the lines that may be blank."""
-        starts = self._starts()
-        ends = np.empty_like(starts)
-        ends[:-1] = starts[1:] - 1
-        if starts.size:
-            # The last line ends at the stream's end, or before a final newline.
-            ends[-1] = self.size - 1 if self._line_pending else self.size
-        keep = np.ones(starts.size, dtype=bool)
+    def _line_of_start(self, offsets: np.ndarray) -> np.ndarray:
+        """0-based line indices of lines starting at the given byte offsets."""
+        counts = np.array([rel.size for rel in self._relative], dtype=np.int64)
+        first_line = np.concatenate([[0], np.cumsum(counts)])
+        block = np.searchsorted(np.array(self._bases, dtype=np.int64), offsets, side="right") - 1
+        out = np.empty(offsets.size, dtype=np.int64)
+        for b in np.unique(block):
+            here = block == b
+            out[here] = first_line[b] + np.searchsorted(self._relative[b].astype(np.int64), offsets[here] - self._bases[b])
+        return out
+
+    @property
+    def line_count(self) -> int:
+        return int(sum(rel.size for rel in self._relative))
+
+    def _spans(self, lines: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        starts = self._line_starts(lines)
+        last = lines == self.line_count - 1
+        # A line ends before the next one's newline, or at the stream's end (less a final newline).
+        ends = np.where(last, self.size - 1 if self._line_pending else self.size,
+                        self._line_starts(np.where(last, 0, lines + 1)) - 1)
+        return starts, ends
+
+    def blank_lines(self, path: str) -> np.ndarray:
+        """0-based indices of the blank lines (only ``lines.LINE_SPACE``), ascending; reads only
+        the lines whose first byte is whitespace."""
         maybe = np.concatenate(self._maybe_blank) if self._maybe_blank else np.zeros(0, dtype=np.int64)
-        if maybe.size:
-            positions = np.searchsorted(starts, maybe)
-            for position, raw in zip(positions, read_spans(path, starts[positions], ends[positions])):
-                if not raw.strip(LINE_SPACE.encode()):
-                    keep[position] = False
-        numbers = np.flatnonzero(keep) + 1
-        return numbers, starts[keep], ends[keep]
+        if not maybe.size:
+            return maybe
+        lines = self._line_of_start(maybe)
+        starts, ends = self._spans(lines)
+        blank = [not raw.strip(LINE_SPACE.encode()) for raw in read_spans(path, starts, ends)]
+        return lines[np.array(blank, dtype=bool)]
+
+    def nonblank_lines(self, path: str, ordinals: np.ndarray) -> tuple[int, np.ndarray, np.ndarray, np.ndarray]:
+        """For the ``ordinals`` (0-based among non-blank lines, ascending): ``(nonblank_count,
+        line_numbers, starts, ends)``, the number of non-blank lines in all, the lines' 1-based
+        numbers, and the byte offsets in the (decompressed) text of each line's first byte and
+        of its end (before ``\\n``)."""
+        blank = self.blank_lines(path)
+        ordinals = np.asarray(ordinals, dtype=np.int64)
+        # The line index of ordinal k: k plus the blank lines at or before it (a fixed point).
+        lines = ordinals.copy()
+        while True:
+            moved = ordinals + np.searchsorted(blank, lines, side="right")
+            if np.array_equal(moved, lines):
+                break
+            lines = moved
+        starts, ends = self._spans(lines) if lines.size else (lines, lines)
+        return self.line_count - blank.size, lines + 1, starts, ends
 
 
 def read_spans(path: str, starts: np.ndarray, ends: np.ndarray) -> list[bytes]:

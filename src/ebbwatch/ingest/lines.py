@@ -58,6 +58,8 @@ def _identifier(value, field_name: str, required: bool) -> str | None:
 LINE_SPACE = " \t\r\n\x0b\x0c"
 _NON_FINITE = re.compile(r"-?(?:infinity|inf|nan)", re.IGNORECASE)
 _NON_FINITE_TEXT = {"n": "NaN", "i": "Infinity"}
+# A cheap first look: a line with none of these cannot be one the native reader takes.
+_NATIVE_EXTENSION = re.compile(r",[ \t\r\n]*[]}]|(?i:nan|inf)|[\x0b\x0c]")
 
 
 def _native_reader_json(text: str):
@@ -68,6 +70,8 @@ def _native_reader_json(text: str):
     vertical tab or form feed around the line.  Both paths must accept the same lines, so
     such a line is accepted here too: a non-finite number is then a number (a wrong type for
     the fields ebbwatch reads).  Only lines strict parsing refused come here."""
+    if not _NATIVE_EXTENSION.search(text):
+        return None  # none of the three: the line is bad for both parsers
     out, i, n, in_string, last = [], 0, len(text), False, ""
     text = text.strip(LINE_SPACE)
     n = len(text)

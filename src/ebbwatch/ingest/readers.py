@@ -19,11 +19,13 @@ from ..errors import InputError
 from .line_index import LineIndex
 
 JSONL_SUFFIXES = (".jsonl", ".ndjson", ".json", ".jsonl.gz", ".ndjson.gz", ".json.gz")
+EVENT_SUFFIXES = JSONL_SUFFIXES + (".parquet",)
 STDIN = "-"
 
 
 def expand_inputs(inputs: list[str]) -> list[str]:
-    """Files in the order given; directories expand to their JSON-lines files, recursively, sorted."""
+    """Files in the order given; directories expand to their JSON-lines and Parquet files,
+    recursively, sorted."""
     files: list[str] = []
     for item in inputs:
         if item == STDIN:
@@ -32,7 +34,7 @@ def expand_inputs(inputs: list[str]) -> list[str]:
         path = Path(item)
         if path.is_dir():
             found = sorted(
-                str(p) for p in path.rglob("*") if p.is_file() and p.name.lower().endswith(JSONL_SUFFIXES)
+                str(p) for p in path.rglob("*") if p.is_file() and p.name.lower().endswith(EVENT_SUFFIXES)
             )
             files.extend(found)
         elif path.exists():
@@ -172,6 +174,15 @@ def first_value_is_text(path: str, field: str, peek_bytes: int = 1 << 16) -> boo
         if isinstance(value, dict):
             return isinstance(value.get(field), str)
     return False
+
+
+def is_parquet(path: str) -> bool:
+    """Whether ``path`` starts with Parquet's magic bytes (the name does not decide)."""
+    try:
+        with open(path, "rb") as handle:
+            return handle.read(4) == b"PAR1"
+    except OSError:
+        return False
 
 
 def is_gzip(path: str) -> bool:
