@@ -74,3 +74,27 @@ def test_rfc3339_round_trip_with_any_offset(naive, offset_minutes):
     zone = timezone(timedelta(minutes=offset_minutes))
     aware = naive.replace(tzinfo=zone)
     assert parse_rfc3339(aware.isoformat()) == micros(aware.astimezone(timezone.utc))
+
+
+# -- local times (issue 22, item 3) --------------------------------------------------------------
+
+def test_a_time_without_offset_is_refused_saying_so():
+    from ebbwatch.ingest.timestamps import TimestampError, parse_rfc3339
+
+    with pytest.raises(TimestampError, match="no UTC offset"):
+        parse_rfc3339("2026-03-02T10:00:00")
+
+
+@pytest.mark.parametrize("local, utc", [
+    # Offsets of America/New_York from the IANA tz database: EST -05:00, EDT -04:00; clocks went
+    # forward at 02:00 on 2026-03-08 and back at 02:00 on 2026-11-01 (US rule since 2007).
+    ("2026-07-01T12:00:00", "2026-07-01T16:00:00Z"),
+    ("2026-01-15 08:30:00.250", "2026-01-15T13:30:00.250Z"),
+    ("2026-11-01T01:30:00", "2026-11-01T05:30:00Z"),  # occurs twice: the first (EDT)
+    ("2026-11-01T02:30:00", "2026-11-01T07:30:00Z"),
+    ("2026-03-08T02:30:00", "2026-03-08T07:30:00Z"),  # does not exist: read with the offset before
+])
+def test_local_times_are_read_in_the_configured_zone(local, utc):
+    from ebbwatch.ingest.timestamps import parse_rfc3339
+
+    assert parse_rfc3339(local, "America/New_York") == parse_rfc3339(utc)

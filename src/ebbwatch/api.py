@@ -43,6 +43,7 @@ def _line_rules(cfg: Config, now_us: int) -> LineRules:
         ts_field=f.ts, event_field=f.event, user_field=f.user, account_field=f.account, id_field=f.id,
         ts_format=ing.ts_format, max_line_bytes=ing.max_line_bytes, earliest_us=earliest,
         latest_us=now_us + int(ing.future_tolerance_hours * 3600 * 1_000_000),
+        naive_timezone=ing.naive_timezone or None,
     )
 
 
@@ -86,15 +87,20 @@ def ingest_files(
     identity_frame = csvs.read_identities(identities) if identities else None
     if daily is not None and not Path(daily).is_file():
         raise InputError(f"no such file: {daily}")
-    files = expand_inputs(list(inputs))
+    files, passed_over = expand_inputs(list(inputs))
+    if inputs and not files and not (accounts or identities or daily):
+        found = "; ".join(f"{p['file']}: {p['reason']}" for p in passed_over[:5]) or "nothing at all"
+        raise InputError(f"no event files to ingest in {', '.join(map(str, inputs))} (found {found})")
     if engine == "dask" and STDIN in files:
         raise UsageError("--engine dask reads files its workers can open; it cannot take - (stdin)")
     summary = {
         "files": 0, "lines": 0, "ingested": 0, "duplicates": 0, "rejected": {}, "unattributed": {},
         "skipped_files": [], "errors": [], "accounts_loaded": 0, "identities_loaded": 0,
         "daily_rows_loaded": 0, "paths": {"fast": 0, "precise": 0}, "lines_rechecked": 0, "held_back": {},
+        "files_over_reject_share": [], "max_reject_share": cfg.ingest.max_reject_share,
         "rejects_file": None,
     }
+    summary["skipped_files"].extend(passed_over)
     db_path = store_mod.resolve_path(db or cfg.store_path)
     rejects_path = rejects_path or str(Path(db_path).with_suffix("")) + ".rejects.jsonl"
     all_rejects: list[Reject] = []
@@ -118,6 +124,11 @@ def ingest_files(
         for display, outcome, rejects in outcomes:
             _add_to_summary(summary, display, outcome)
             all_rejects.extend(rejects)
+            if not isinstance(outcome, str) and not outcome.skipped and outcome.lines:
+                lost = sum(outcome.rejected.values())
+                if lost > cfg.ingest.max_reject_share * outcome.lines:
+                    summary["files_over_reject_share"].append(
+                        {"file": display, "lines": outcome.lines, "rejected": lost})
     if all_rejects:
         with open(rejects_path, "a", encoding="utf-8") as handle:
             for reject in all_rejects:

@@ -135,6 +135,9 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
     skipped. Bad lines go to the rejects file with their line number and reason; the rest of the
     file is ingested.
 
+    Exits 4 when a file lost more than [ingest] max_reject_share of its lines (10%; what could
+    be read is kept), 3 when a file could not be read at all.
+
     An event id counts once, however late it is redelivered (every id is remembered unless
     [ingest] dedupe_window_days bounds it; then events with older ids are held back and counted
     as beyond_dedupe_window, or added with --accept-beyond-window).
@@ -162,6 +165,13 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
         _print_ingest_summary(summary)
     if summary["errors"]:
         sys.exit(3)
+    if summary["files_over_reject_share"]:
+        sys.exit(EXIT_MOSTLY_REJECTED)
+
+
+# Ingest ran and kept what it could, but some file lost more than [ingest] max_reject_share of
+# its lines (a wrong format or settings, most likely): distinct from 3, where nothing was written.
+EXIT_MOSTLY_REJECTED = 4
 
 
 def _print_ingest_summary(s: dict):
@@ -185,6 +195,9 @@ def _print_ingest_summary(s: dict):
         err(f"Held back {sum(s['held_back'].values()):,} events ({reasons}): their ids are older than "
             "[ingest] dedupe_window_days, so a redelivery could not be recognised; "
             "--accept-beyond-window adds them.")
+    for lossy in s["files_over_reject_share"]:
+        err(f"Warning: {lossy['file']}: {lossy['rejected']:,} of {lossy['lines']:,} lines rejected "
+            f"(more than {s['max_reject_share']:.0%}); see the reasons above and in {s['rejects_file']}.")
     for skipped in s["skipped_files"]:
         err(f"Skipped {skipped['file']}: {skipped['reason']}.")
     for error in s["errors"]:

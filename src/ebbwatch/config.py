@@ -10,6 +10,7 @@ import dataclasses
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from .errors import ConfigError
 
@@ -36,6 +37,11 @@ class IngestConfig:
     # told from a redelivery) unless accept_beyond_dedupe_window.
     dedupe_window_days: int = 0
     accept_beyond_dedupe_window: bool = False
+    # An IANA time zone for producers that write local date-times without an offset ("" : such
+    # times are rejected as bad_time, "no UTC offset").
+    naive_timezone: str = ""
+    # A run where some file lost more than this share of its lines exits with code 4.
+    max_reject_share: float = 0.10
 
 
 @dataclass(frozen=True)
@@ -133,6 +139,15 @@ def config_from_dict(data: dict, source: str = "<dict>") -> Config:
                 )
             kwargs[key] = _coerce(section, key, item, defaults[key], source)
         parts[section] = cls(**kwargs)
+    naive = parts.get("ingest", IngestConfig()).naive_timezone
+    if naive:
+        try:
+            ZoneInfo(naive)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise ConfigError(f"[ingest] naive_timezone in {source}: unknown time zone {naive!r} "
+                              "(an IANA name such as 'Europe/Berlin')") from None
+    if not 0 <= parts.get("ingest", IngestConfig()).max_reject_share <= 1:
+        raise ConfigError(f"[ingest] max_reject_share in {source}: expected a share in [0, 1]")
     scan = parts.get("scan", ScanConfig())
     if scan.window_days < 1 or scan.window_days > 28:
         raise ConfigError(f"[scan] window_days in {source}: expected 1..28, got {scan.window_days}")

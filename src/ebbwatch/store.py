@@ -83,6 +83,33 @@ FAST_TS_PATTERN = (
     r"\d{4}-\d{2}-\d{2}[Tt ]([01]\d|2[0-3]):[0-5]\d:[0-5]\d(\.\d{1,9})?([Zz]|[+-]([01]\d|2[0-3]):[0-5]\d)"
 )
 
+# The same date-time without an offset (a local time, when ``naive_timezone`` is set).
+FAST_LOCAL_PATTERN = FAST_TS_PATTERN.removesuffix(r"([Zz]|[+-]([01]\d|2[0-3]):[0-5]\d)")
+
+
+def _text_time(expr: str, naive_timezone: str | None) -> tuple[str, str]:
+    """SQL for whether a text time takes the fast path, and its epoch microseconds.
+
+    A local time (no offset, read in ``naive_timezone``) is converted here only when the zone's
+    offset is the same a day before and a day after: on a day the clocks change, a local time
+    may occur twice, and DuckDB reads it as the second while the precise path reads the first,
+    so such rows are left NULL (doubted) and the precise path decides them."""
+    with_offset = f"regexp_full_match({expr}, {quote_literal(FAST_TS_PATTERN)})"
+    offset_us = f"epoch_us(TRY_CAST({expr} AS TIMESTAMPTZ))"
+    if not naive_timezone:
+        return with_offset, offset_us
+    zone = quote_literal(naive_timezone)
+    local = f"TRY_CAST({expr} AS TIMESTAMP)"
+
+    def offset(x):
+        return f"(epoch_us(timezone({zone}, {x})) - epoch_us({x}))"
+
+    local_us = (f"CASE WHEN {offset(local + ' - INTERVAL 1 DAY')} = {offset(local + ' + INTERVAL 1 DAY')} "
+                f"THEN epoch_us(timezone({zone}, {local})) END")
+    ok = f"({with_offset} OR regexp_full_match({expr}, {quote_literal(FAST_LOCAL_PATTERN)}))"
+    return ok, f"CASE WHEN {with_offset} THEN {offset_us} ELSE {local_us} END"
+
+
 
 def _id_hash(column: str) -> str:
     """SQL for an event id's 64-bit hash (NULL without an id), the same on both staging paths."""
@@ -233,7 +260,7 @@ class Store:
 
     # -- events: fast path -----------------------------------------------------------------
     def stage_jsonl_fast(self, path: str, fields, ts_format: str, ts_text: bool = False,
-                         typed: bool = False) -> int | None:
+                         typed: bool = False, naive_timezone: str | None = None) -> int | None:
         """Parse a JSON-lines file with DuckDB's native reader into the temp table ``staged``,
         one row per non-blank line in file order (``rowid`` is the line's ordinal among the
         non-blank lines).
@@ -320,12 +347,13 @@ class Store:
                 return f"NOT {may_be_non_string(col, integers_too=False)}"
 
             event_ok = f"{ev} <> '' AND NOT {may_be_non_string(ev, integers_too=True)}"
+        text_ok, text_us = _text_time(ts if ts_text else unquote(ts), naive_timezone)
         if ts_text:
-            ts_ok = f"regexp_full_match({ts}, {quote_literal(FAST_TS_PATTERN)})"
+            ts_ok = text_ok
         elif ts_format in ("epoch_s", "epoch_ms"):
             ts_ok = is_number(ts)
         else:
-            ts_ok = f"(CASE WHEN {is_string(ts)} THEN regexp_full_match({unquote(ts)}, {quote_literal(FAST_TS_PATTERN)}) ELSE {is_number(ts)} END)"
+            ts_ok = f"(CASE WHEN {is_string(ts)} THEN {text_ok} ELSE {is_number(ts)} END)"
         as_double = f"TRY_CAST({text(ts)} AS DOUBLE)"
         if ts_format == "epoch_s":
             numeric_us = f"CAST(round({as_double} * 1e6) AS BIGINT)"
@@ -338,10 +366,10 @@ class Store:
               f"AND {us} IS NOT NULL AND {value(us)} <> '' AND {id_ok(us)} "
               f"AND ({ac} IS NULL OR {id_ok(ac)}) AND ({idc} IS NULL OR {id_ok(idc)})")
         if ts_text:
-            time_us = f"CASE WHEN COALESCE({ok}, false) THEN epoch_us(TRY_CAST({ts} AS TIMESTAMPTZ)) END"
+            time_us = f"CASE WHEN COALESCE({ok}, false) THEN {text_us} END"
         else:
             time_us = (f"CASE WHEN NOT COALESCE({ok}, false) THEN NULL "
-                       f"WHEN {is_string(ts)} THEN epoch_us(TRY_CAST({unquote(ts)} AS TIMESTAMPTZ)) "
+                       f"WHEN {is_string(ts)} THEN {text_us} "
                        f"ELSE {numeric_us} END")
         try:
             # records=true: a line that is not an object is a doubtful row, not a reason to
@@ -361,7 +389,7 @@ class Store:
             return None
         return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
 
-    def stage_parquet_fast(self, path: str, fields, ts_format: str) -> int | None:
+    def stage_parquet_fast(self, path: str, fields, ts_format: str, naive_timezone: str | None = None) -> int | None:
         """Read a Parquet file of events into the temp table ``staged``, one row per file row in
         order (``rowid`` is the row's number), as :meth:`stage_jsonl_fast` does for JSON lines.
 
@@ -401,8 +429,8 @@ class Store:
         elif kind in ("TIMESTAMP", "TIMESTAMP_NS", "TIMESTAMP_MS", "TIMESTAMP_S") and ts_format in ("auto", "rfc3339"):
             time_us = f"epoch_us(CAST({ts} AS TIMESTAMP))"
         elif kind in text_types and ts_format in ("auto", "rfc3339"):
-            time_us = (f"CASE WHEN regexp_full_match({ts}, {quote_literal(FAST_TS_PATTERN)}) "
-                       f"THEN epoch_us(TRY_CAST({ts} AS TIMESTAMPTZ)) END")
+            text_ok, text_us = _text_time(ts, naive_timezone)
+            time_us = f"CASE WHEN {text_ok} THEN {text_us} END"
         elif kind in integer_types + ("DOUBLE", "FLOAT") and ts_format != "rfc3339":
             value = f"CAST({ts} AS DOUBLE)"
             if ts_format == "epoch_s":

@@ -9,6 +9,7 @@ process or on a Dask worker.  A block is read from the dataset that
 from __future__ import annotations
 
 import json
+import os
 from concurrent.futures import ThreadPoolExecutor
 from datetime import date, datetime, time, timezone
 from decimal import Decimal
@@ -23,7 +24,8 @@ from .errors import InputError
 from .frames import FileResult, Reject
 from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
 from .ingest.line_index import LineIndex, read_spans
-from .ingest.readers import first_value_is_text, is_parquet, iter_lines, scan_file
+from .ingest.readers import (copied_compression, decompressed_copy, first_value_is_text, is_parquet, iter_lines,
+                             looks_like_csv, remove_quietly, scan_file)
 from .series import NEVER_ACTIVE, Panel, build_panel
 
 # Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
@@ -74,9 +76,25 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     too with ``legacy_digest``); then nothing is staged.  Returns ``(digest, result,
     rejects)``, ``digest`` the hash to log, with ``result.skipped`` set for a skipped file.
     """
+    packed = copied_compression(path)
+    if packed:
+        plain = decompressed_copy(path, packed)
+        try:
+            return stage_file(st, plain, display, rules, fields, skip_reason, legacy_digest)
+        finally:
+            remove_quietly(plain)
+    result = FileResult(file=display)
+    if os.path.getsize(path) == 0:
+        # Not logged by content: every empty file has the same hash, and a second one is not
+        # "already ingested".
+        result.skipped = "empty file: nothing to ingest"
+        return None, result, []
     if is_parquet(path):
         return _stage_parquet(st, path, display, rules, fields, skip_reason, legacy_digest)
-    result = FileResult(file=display)
+    header = looks_like_csv(path)
+    if header is not None:
+        raise InputError(f"{display} looks like CSV (first line {header!r}), not JSON lines: daily counts go "
+                         "through --daily, accounts through --accounts, identities through --identities")
     rejects: list[Reject] = []
     # Hashing (and measuring the longest line, and noting where lines start) runs in a thread
     # beside the fast-path parse: both release the GIL.  Staging writes only temporary tables,
@@ -86,7 +104,8 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     with ThreadPoolExecutor(max_workers=1) as pool:
         scanning = pool.submit(scan_file, path, legacy_digest, index)
         try:
-            staged = st.stage_jsonl_fast(path, fields, rules.ts_format, ts_text=ts_text)
+            staged = st.stage_jsonl_fast(path, fields, rules.ts_format, ts_text=ts_text,
+                                         naive_timezone=rules.naive_timezone)
         finally:
             digests, longest_line, deepest = scanning.result()
     digest = digests[0]
@@ -125,7 +144,8 @@ def _settle_doubtful_lines(st, path, display, rules, fields, staged: int, index,
         accepted = precise_records(path, display, rules, trial, [],
                                    zip(numbers[pick].tolist(), read_spans(path, starts[pick], ends[pick]))).num_rows
         if accepted * 10 >= pick.size:  # doubted for their text, not bad: let DuckDB type them
-            if st.stage_jsonl_fast(path, fields, rules.ts_format, typed=True) != staged:
+            if st.stage_jsonl_fast(path, fields, rules.ts_format, typed=True,
+                                  naive_timezone=rules.naive_timezone) != staged:
                 return None
             doubtful = st.doubtful_staged_rows(rules.earliest_us, rules.latest_us)
             _, numbers, starts, ends = index.nonblank_lines(path, doubtful)
@@ -155,7 +175,7 @@ def _stage_parquet(st, path, display, rules: LineRules, fields, skip_reason, leg
     if reason is not None:
         result.skipped = reason
         return digests[0], result, rejects
-    staged = st.stage_parquet_fast(path, fields, rules.ts_format)
+    staged = st.stage_parquet_fast(path, fields, rules.ts_format, rules.naive_timezone)
     if staged is None:
         raise InputError(f"cannot read {path} as Parquet")
     result.lines = staged

@@ -28,6 +28,7 @@ class LineRules:
     max_line_bytes: int = 1_048_576
     earliest_us: int = 0
     latest_us: int = 2**62
+    naive_timezone: str | None = None  # IANA zone for date-times written without an offset
 
 
 class LineRejected(Exception):
@@ -156,7 +157,7 @@ def parse_line(raw: bytes, rules: LineRules) -> tuple[int, str, str, str | None,
     if not isinstance(ts_value, (str, int, float)) or isinstance(ts_value, bool):
         raise LineRejected("wrong_type", f"{rules.ts_field} is {type(ts_value).__name__}")
     try:
-        ts_us = parse_timestamp(ts_value, rules.ts_format)
+        ts_us = parse_timestamp(ts_value, rules.ts_format, rules.naive_timezone)
     except TimestampError as exc:
         raise LineRejected("bad_time", str(exc)) from None
     if ts_us > rules.latest_us:

@@ -19,29 +19,111 @@ from ..errors import InputError
 from .line_index import LineIndex
 
 JSONL_SUFFIXES = (".jsonl", ".ndjson", ".json", ".jsonl.gz", ".ndjson.gz", ".json.gz")
-EVENT_SUFFIXES = JSONL_SUFFIXES + (".parquet",)
+# Compressions read through a decompressed temporary copy (DuckDB's reader takes gzip itself).
+COPIED_COMPRESSIONS = {".bz2": "bz2", ".zst": "zstd"}
+EVENT_SUFFIXES = JSONL_SUFFIXES + tuple(
+    base + ext for base in (".jsonl", ".ndjson", ".json") for ext in COPIED_COMPRESSIONS) + (".parquet",)
+_CSV_SUFFIXES = (".csv", ".csv.gz", ".tsv")
 STDIN = "-"
 
 
-def expand_inputs(inputs: list[str]) -> list[str]:
+def _skip_reason(path: Path) -> str:
+    name = path.name.lower()
+    if name.endswith(_CSV_SUFFIXES):
+        return ("a CSV file, not events: daily counts go through --daily, accounts through --accounts, "
+                "identities through --identities")
+    return "not an events file (events are .jsonl, .ndjson, .json or .parquet, optionally .gz, .bz2 or .zst)"
+
+
+def expand_inputs(inputs: list[str]) -> tuple[list[str], list[dict]]:
     """Files in the order given; directories expand to their JSON-lines and Parquet files,
-    recursively, sorted."""
+    recursively, sorted.  Returns ``(files, skipped)``: ``skipped`` the other files found in
+    directories, each ``{"file", "reason"}`` (hidden files, starting with a dot, are passed over
+    without a word)."""
     files: list[str] = []
+    skipped: list[dict] = []
     for item in inputs:
         if item == STDIN:
             files.append(STDIN)
             continue
         path = Path(item)
         if path.is_dir():
-            found = sorted(
-                str(p) for p in path.rglob("*") if p.is_file() and p.name.lower().endswith(EVENT_SUFFIXES)
-            )
-            files.extend(found)
+            for found in sorted(p for p in path.rglob("*") if p.is_file()):
+                if any(part.startswith(".") for part in found.relative_to(path).parts):
+                    continue
+                if found.name.lower().endswith(EVENT_SUFFIXES):
+                    files.append(str(found))
+                else:
+                    skipped.append({"file": str(found), "reason": _skip_reason(found)})
         elif path.exists():
             files.append(str(path))
         else:
             raise InputError(f"no such file or directory: {item}")
-    return files
+    return files, skipped
+
+
+def copied_compression(path: str) -> str | None:
+    """"bz2" or "zstd" when ``path`` holds such a stream (by its magic bytes), else None."""
+    try:
+        with open(path, "rb") as handle:
+            head = handle.read(4)
+    except OSError:
+        return None
+    if head[:3] == b"BZh":
+        return "bz2"
+    if head == b"\x28\xb5\x2f\xfd":
+        return "zstd"
+    return None
+
+
+def decompressed_copy(path: str, compression: str) -> str:
+    """A temporary file holding ``path`` decompressed (the caller removes it).  zstd needs the
+    zstandard package (``pip install 'ebbwatch[zstd]'``)."""
+    if compression == "bz2":
+        import bz2
+
+        opener = bz2.open
+    else:
+        try:
+            import zstandard
+        except ImportError:
+            raise InputError(f"{path} is zstd-compressed; reading it needs the zstandard package "
+                             "(pip install 'ebbwatch[zstd]'), or decompress it first") from None
+
+        def opener(name, mode):
+            return zstandard.open(name, mode)
+    handle = tempfile.NamedTemporaryFile(prefix="ebbwatch-unpacked-", suffix=".jsonl", delete=False)
+    try:
+        with handle, opener(path, "rb") as source:
+            shutil.copyfileobj(source, handle, 1 << 20)
+    except Exception as exc:  # noqa: BLE001 - OSError, EOFError, or zstandard's own error type
+        remove_quietly(handle.name)
+        raise InputError(f"cannot read {path} to its end: {exc}") from exc
+    return handle.name
+
+
+def looks_like_csv(path: str, peek_bytes: int = 1 << 16) -> str | None:
+    """The first line when the (decompressed) file reads as comma-separated text rather than
+    JSON lines (a header and a row with the same number of commas, not JSON), else None."""
+    import json
+
+    try:
+        with (gzip.open if is_gzip(path) else open)(path, "rb") as handle:
+            head = handle.read(peek_bytes)
+    except (EOFError, OSError, zlib.error):
+        return None
+    lines = [line.strip() for line in head.split(b"\n")[:3] if line.strip()]
+    if len(lines) < 2 or lines[0].startswith((b"{", b"[", b"\xef\xbb\xbf{")):
+        return None
+    try:
+        json.loads(lines[0])
+        return None
+    except ValueError:
+        pass
+    commas = lines[0].count(b",")
+    if commas and lines[1].count(b",") == commas:
+        return lines[0][:80].decode("utf-8", errors="replace")
+    return None
 
 
 def spool_stdin(stream=None) -> str:

@@ -14,12 +14,15 @@ from __future__ import annotations
 import math
 import re
 from datetime import datetime, timedelta, timezone
+from zoneinfo import ZoneInfo
 
 RFC3339_PATTERN = (
     r"(\d{4})-(\d{2})-(\d{2})[Tt ](\d{2}):(\d{2}):(\d{2})(\.\d{1,9})?"
     r"([Zz]|[+-]\d{2}:\d{2})"
 )
 _RFC3339 = re.compile(RFC3339_PATTERN)
+# The same date-time with no offset: a local time, read in ``naive_timezone`` when one is set.
+_LOCAL = re.compile(RFC3339_PATTERN.removesuffix(r"([Zz]|[+-]\d{2}:\d{2})") + "()")
 EPOCH_SECONDS_LIMIT = 1e11
 EPOCH_MS_LIMIT = 1e14
 _EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
@@ -30,17 +33,25 @@ class TimestampError(ValueError):
     """The value is not a timestamp in an accepted form."""
 
 
-def parse_rfc3339(text: str) -> int:
+def parse_rfc3339(text: str, naive_timezone: str | None = None) -> int:
     """Microseconds since the epoch for an RFC 3339 date-time string.
 
     A leap second (``:60``) is read as the first instant of the next minute, as POSIX time does.
+    A date-time without an offset is a local time in ``naive_timezone`` (an IANA name) when one
+    is given; a local time that occurs twice (when clocks go back) is read as the first.
 
     >>> parse_rfc3339("1985-04-12T23:20:50.52Z")
     482196050520000
+    >>> parse_rfc3339("2026-07-01 12:00:00", "Europe/Paris") == parse_rfc3339("2026-07-01T10:00:00Z")
+    True
     """
     match = _RFC3339.fullmatch(text)
     if match is None:
-        raise TimestampError(f"not an RFC 3339 date-time: {text[:40]!r}")
+        match = _LOCAL.fullmatch(text)
+        if match is None:
+            raise TimestampError(f"not an RFC 3339 date-time: {text[:40]!r}")
+        if naive_timezone is None:
+            raise TimestampError(f"no UTC offset: {text[:40]!r} (set [ingest] naive_timezone for local times)")
     year, month, day, hour, minute, second = (int(g) for g in match.groups()[:6])
     fraction, offset = match.group(7), match.group(8)
     leap = second == 60
@@ -51,7 +62,10 @@ def parse_rfc3339(text: str) -> int:
     except ValueError as exc:
         raise TimestampError(f"invalid date or time: {text[:40]!r}") from exc
     micros = int((fraction[1:] + "000000")[:6]) if fraction else 0
-    if offset not in ("Z", "z"):
+    if not offset:
+        local = base.replace(tzinfo=ZoneInfo(naive_timezone), fold=0)
+        base = local.astimezone(timezone.utc)
+    elif offset not in ("Z", "z"):
         sign = 1 if offset[0] == "+" else -1
         off_h, off_m = int(offset[1:3]), int(offset[4:6])
         if off_h > 23 or off_m > 59:
@@ -82,11 +96,12 @@ def parse_epoch(value: float | int, unit: str = "auto") -> int:
     return round(value * scale)
 
 
-def parse_timestamp(value, ts_format: str = "auto") -> int:
-    """Microseconds since the epoch from a JSON value (string or number) under ``ts_format``."""
+def parse_timestamp(value, ts_format: str = "auto", naive_timezone: str | None = None) -> int:
+    """Microseconds since the epoch from a JSON value (string or number) under ``ts_format``;
+    ``naive_timezone`` as in :func:`parse_rfc3339`."""
     if isinstance(value, str):
         if ts_format in ("auto", "rfc3339"):
-            return parse_rfc3339(value)
+            return parse_rfc3339(value, naive_timezone)
         raise TimestampError(f"expected an epoch number ({ts_format}), got a string")
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         if ts_format == "rfc3339":
