@@ -80,3 +80,62 @@ def test_two_different_empty_files_are_each_just_empty(tmp_path, db):
     (tmp_path / "also-empty.jsonl").write_bytes(b"")
     s = ingest(db, [tmp_path / "empty.jsonl", tmp_path / "also-empty.jsonl"])
     assert [x["reason"] for x in s["skipped_files"]] == ["empty file: nothing to ingest"] * 2
+
+
+def test_the_daily_export_loads_back_and_a_failed_load_leaves_no_store(tmp_path, db):
+    # Issue 22, item 7: `export daily` writes `events`; `ingest --daily` takes it as the count.
+    (tmp_path / "daily.csv").write_text("account,day,event,count,users\na-1,2026-03-02,doc.edit,5,2\n"
+                                        "a-2,2026-03-03,doc.view,7,\n")
+    ingest(db, [], daily=str(tmp_path / "daily.csv"))
+    out = tmp_path / "export.csv"
+    result = CliRunner().invoke(main, ["export", "daily", "--db", db, "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    copy = str(tmp_path / "copy.duckdb")
+    ingest(copy, [], daily=str(out))
+    assert daily(copy) == daily(db)
+    bad = tmp_path / "bad.csv"
+    bad.write_text("account,day,event,count\na-1,yesterday,doc.edit,5\n")
+    fresh = tmp_path / "fresh.duckdb"
+    with pytest.raises(InputError, match="line 2"):
+        ingest(str(fresh), [], daily=str(bad))
+    assert not fresh.exists() and not (tmp_path / "fresh.duckdb.wal").exists()
+
+
+def test_events_for_accounts_the_accounts_file_does_not_know_are_reported_or_refused(tmp_path):
+    # Issue 22, item 5: a misspelt account id in the events creates no account unnoticed.
+    from ebbwatch.config import config_from_dict
+
+    (tmp_path / "accounts.csv").write_text("account,name\na-alpha,Alpha\na-beta,Beta\n")
+    rows = [ev("2026-03-02T10:00:00Z", account=a, user=f"u-{i}") for i, a in
+            enumerate(["a-alpha"] * 5 + ["A-ALPHA"] * 3 + ["a-alpah"] * 2 + ["a-beta"])]
+    path = tmp_path / "e.jsonl"
+    path.write_bytes(jsonl(rows))
+    db = str(tmp_path / "keep.duckdb")
+    s = ingest(db, [path], accounts=str(tmp_path / "accounts.csv"))
+    assert s["ingested"] == 11
+    assert s["unknown_accounts"] == {"accounts": 2, "events": 5, "top": [{"account": "A-ALPHA", "events": 3},
+                                                                       {"account": "a-alpah", "events": 2}]}
+    page = CliRunner().invoke(main, ["status", "--db", db])
+    assert "2 not in accounts.csv, 5 events: A-ALPHA (3), a-alpah (2)" in page.output
+    strict = config_from_dict({"ingest": {"unknown_accounts": "reject"}})
+    s = ingest(str(tmp_path / "strict.duckdb"), [path], accounts=str(tmp_path / "accounts.csv"), config=strict)
+    assert s["ingested"] == 6 and s["unattributed"] == {"unknown_account": 5}
+    assert s["unknown_accounts"]["accounts"] == 0
+
+
+def test_status_is_the_page_to_read_first(tmp_path):
+    # Issue 22, item 6.
+    (tmp_path / "accounts.csv").write_text("account,name\n" + "".join(f"a-{i},A{i}\n" for i in range(5)))
+    ingest(str(tmp_path / "new.duckdb"), [], accounts=str(tmp_path / "accounts.csv"))  # accounts, no events
+    empty = CliRunner().invoke(main, ["status", "--db", str(tmp_path / "new.duckdb")])
+    assert "no data yet" in empty.output and "None" not in empty.output
+    path = tmp_path / "e.jsonl"
+    path.write_bytes(jsonl([ev("2026-03-02T10:00:00Z", account="a-1"), ev("2026-03-02T10:00:00Z", account="a-2")])
+                     + b"not json\n")
+    db = str(tmp_path / "s.duckdb")
+    ingest(db, [path], accounts=str(tmp_path / "accounts.csv"))
+    page = CliRunner().invoke(main, ["status", "--db", db]).output
+    assert "2 with activity; 5 in accounts.csv" in page
+    assert "rejected 1" in page and "last scan      -" in page
+    stamp = page.split("last ingest    ")[1].split()[0]
+    assert len(stamp) == len("2026-12-04T10:00:00+00:00")  # to the second, no microseconds

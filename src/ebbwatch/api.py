@@ -4,6 +4,7 @@ config into plain arguments; the CLI is a thin shell over these functions."""
 from __future__ import annotations
 
 import json
+import os
 import time
 from contextlib import contextmanager
 from dataclasses import replace
@@ -104,31 +105,40 @@ def ingest_files(
     db_path = store_mod.resolve_path(db or cfg.store_path)
     rejects_path = rejects_path or str(Path(db_path).with_suffix("")) + ".rejects.jsonl"
     all_rejects: list[Reject] = []
-    with store_mod.open_store(db_path) as st:
-        problem = st.check_daily_file(daily) if daily is not None else None
-        if problem:
-            raise InputError(problem)
-        if account_frame is not None:
-            with st.transaction():
-                summary["accounts_loaded"] = st.upsert_accounts(account_frame)
-        if identity_frame is not None:
-            with st.transaction():
-                summary["identities_loaded"] = st.replace_identities(identity_frame)
-        if daily is not None:
-            with st.transaction():
-                summary["daily_rows_loaded"] = st.load_daily_file(daily)
-        if engine == "dask" and files:
-            outcomes = _ingest_on_dask(st, files, cfg, rules, scheduler, progress)
-        else:
-            outcomes = _ingest_here(st, files, cfg, rules, progress, stdin)
-        for display, outcome, rejects in outcomes:
-            _add_to_summary(summary, display, outcome)
-            all_rejects.extend(rejects)
-            if not isinstance(outcome, str) and not outcome.skipped and outcome.lines:
-                lost = sum(outcome.rejected.values())
-                if lost > cfg.ingest.max_reject_share * outcome.lines:
-                    summary["files_over_reject_share"].append(
-                        {"file": display, "lines": outcome.lines, "rejected": lost})
+    new_store = db_path != ":memory:" and not os.path.exists(db_path)
+    try:
+        with store_mod.open_store(db_path) as st:
+            problem = st.check_daily_file(daily) if daily is not None else None
+            if problem:
+                raise InputError(problem)
+            if account_frame is not None:
+                with st.transaction():
+                    summary["accounts_loaded"] = st.upsert_accounts(account_frame)
+            if identity_frame is not None:
+                with st.transaction():
+                    summary["identities_loaded"] = st.replace_identities(identity_frame)
+            if daily is not None:
+                with st.transaction():
+                    summary["daily_rows_loaded"] = st.load_daily_file(daily)
+            if engine == "dask" and files:
+                outcomes = _ingest_on_dask(st, files, cfg, rules, scheduler, progress)
+            else:
+                outcomes = _ingest_here(st, files, cfg, rules, progress, stdin)
+            for display, outcome, rejects in outcomes:
+                _add_to_summary(summary, display, outcome)
+                all_rejects.extend(rejects)
+                if not isinstance(outcome, str) and not outcome.skipped and outcome.lines:
+                    lost = sum(outcome.rejected.values())
+                    if lost > cfg.ingest.max_reject_share * outcome.lines:
+                        summary["files_over_reject_share"].append(
+                            {"file": display, "lines": outcome.lines, "rejected": lost})
+            summary["unknown_accounts"] = st.unknown_accounts()
+    except BaseException:
+        wrote = summary["files"] or any(summary[k] for k in ("accounts_loaded", "identities_loaded", "daily_rows_loaded"))
+        if new_store and not wrote:  # a run that failed before writing anything leaves no store behind
+            for leftover in (db_path, db_path + ".wal"):
+                remove_quietly(leftover)
+        raise
     if all_rejects:
         with open(rejects_path, "a", encoding="utf-8") as handle:
             for reject in all_rejects:
@@ -191,6 +201,7 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
         parsed = client.map(parse_file, [(f, f) for f in files], rules=rules, fields=cfg.fields,
                             accounts=reference[0], identities=reference[1], known_digests=known,
                             legacy_digest=st.has_legacy_digests(),
+                            known_accounts_only=cfg.ingest.unknown_accounts == "reject",
                             pure=False, retries=3)
         summaries = gather_in_order(
             client.map(ParsedFile.summary, parsed, pure=False, retries=3), "parsing",
@@ -234,7 +245,8 @@ def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_
     if result.skipped:
         return result
     with st.transaction():
-        merged = st.merge_staged(cfg.ingest.dedupe_window_days, cfg.ingest.accept_beyond_dedupe_window)
+        merged = st.merge_staged(cfg.ingest.dedupe_window_days, cfg.ingest.accept_beyond_dedupe_window,
+                                 cfg.ingest.unknown_accounts == "reject")
         result.ingested = merged["ingested"]
         result.duplicates = merged["duplicates"]
         if merged["held_back"]:

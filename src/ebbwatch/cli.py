@@ -195,6 +195,11 @@ def _print_ingest_summary(s: dict):
         err(f"Held back {sum(s['held_back'].values()):,} events ({reasons}): their ids are older than "
             "[ingest] dedupe_window_days, so a redelivery could not be recognised; "
             "--accept-beyond-window adds them.")
+    unknown = s.get("unknown_accounts")
+    if unknown and unknown["accounts"]:
+        names = ", ".join(f"{u['account']} ({u['events']:,})" for u in unknown["top"])
+        err(f"The store holds {unknown['events']:,} events for {unknown['accounts']:,} account(s) accounts.csv "
+            f"does not know: {names}. A misspelt id? [ingest] unknown_accounts = \"reject\" refuses them.")
     for lossy in s["files_over_reject_share"]:
         err(f"Warning: {lossy['file']}: {lossy['rejected']:,} of {lossy['lines']:,} lines rejected "
             f"(more than {s['max_reject_share']:.0%}); see the reasons above and in {s['rejects_file']}.")
@@ -209,7 +214,7 @@ def _print_ingest_summary(s: dict):
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True)
 @handle_errors
 def status(db, config_path, fmt):
-    """What the store holds: accounts, events, days covered, last ingest, data-gap days.
+    """Whether the store is healthy: what it holds, what ingest lost, last ingest and scan.
 
     \b
     Examples:
@@ -220,16 +225,29 @@ def status(db, config_path, fmt):
     if fmt == "json":
         click.echo(json.dumps(info, default=str))
         return
-    click.echo(f"store          {info['store']} (schema {info['schema_version']})")
-    click.echo(f"accounts       {info['accounts']:,}")
-    click.echo(f"events         {info['events']:,}")
-    click.echo(f"days           {info['first_day']} .. {info['last_day']}")
+    out = click.echo
+    out(f"store          {info['store']} (schema {info['schema_version']})")
+    loaded = f"; {info['accounts_loaded']:,} in accounts.csv" if info["accounts_loaded"] else ""
+    out(f"accounts       {info['accounts']:,} with activity{loaded}")
+    unknown = info["unknown_accounts"]
+    if unknown and unknown["accounts"]:
+        names = ", ".join(f"{u['account']} ({u['events']:,})" for u in unknown["top"])
+        out(f"               {unknown['accounts']:,} not in accounts.csv, {unknown['events']:,} events: {names}")
+    out(f"events         {info['events']:,}")
+    if info["first_day"] is None:
+        out("days           no data yet: ebbwatch ingest events/ (or --daily FILE)")
+    else:
+        out(f"days           {info['first_day']} .. {info['last_day']}")
     last = info["last_ingest"]
-    click.echo(f"last ingest    {'-' if last is None else last['at'] + ' ' + last['file']}")
+    out(f"last ingest    {'-' if last is None else last['at'] + ' ' + last['file']}")
+    out(f"lines read     {info['lines_read']:,}; rejected {info['rejected']:,}, unattributed "
+        f"{info['unattributed']:,}, duplicates {info['duplicates']:,}")
     dedupe = ("every id remembered" if not info["dedupe_window_days"]
               else f"ids remembered {info['dedupe_window_days']} days of event time")
-    click.echo(f"event ids      {info['ids_remembered']:,} ({dedupe}); "
-               f"{info['held_back']:,} events held back beyond the window")
+    out(f"event ids      {info['ids_remembered']:,} ({dedupe}); "
+        f"{info['held_back']:,} events held back beyond the window")
+    scan = info["last_scan"]
+    out(f"last scan      {'-' if scan is None else scan['as_of'] + ' (recorded ' + scan['at'] + ')'}")
     click.echo(f"data-gap days  {', '.join(info['gap_days']) or 'none'}")
 
 
@@ -251,7 +269,7 @@ def export():
               help="File to write (- is not supported for parquet).")
 @handle_errors
 def export_daily(db, config_path, fmt, output):
-    """Write account, day, event, events, users for every stored day.
+    """Write account, day, event, events, users for every stored day (ingest --daily loads it back).
 
     \b
     Examples:

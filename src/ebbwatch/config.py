@@ -42,6 +42,9 @@ class IngestConfig:
     naive_timezone: str = ""
     # A run where some file lost more than this share of its lines exits with code 4.
     max_reject_share: float = 0.10
+    # Events for accounts accounts.csv does not know: "keep" (reported in the summary and
+    # status) or "reject" (not attributed, reason unknown_account).  Only once accounts are loaded.
+    unknown_accounts: str = "keep"
 
 
 @dataclass(frozen=True)
@@ -79,6 +82,7 @@ class Config:
 _SECTIONS = {"fields": FieldsConfig, "ingest": IngestConfig, "index": IndexConfig, "scan": ScanConfig}
 _CHOICES = {
     ("ingest", "ts_format"): ("auto", "rfc3339", "epoch_s", "epoch_ms"),
+    ("ingest", "unknown_accounts"): ("keep", "reject"),
     ("index", "normalise"): ("none", "seats", "active_users"),
 }
 

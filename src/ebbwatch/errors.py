@@ -53,4 +53,5 @@ REJECT_REASONS = {
 UNATTRIBUTED_REASONS = {
     "unknown_user": "no account on the event and the user is not in the identities table",
     "no_identity_at_time": "the user is known but belonged to no account at the event's time",
+    "unknown_account": "the account is not in accounts.csv ([ingest] unknown_accounts = \"reject\")",
 }

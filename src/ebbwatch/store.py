@@ -19,6 +19,7 @@ from __future__ import annotations
 import os
 import time
 from contextlib import contextmanager
+from datetime import timezone
 from pathlib import Path
 
 import duckdb
@@ -114,6 +115,11 @@ def _text_time(expr: str, naive_timezone: str | None) -> tuple[str, str]:
 def _id_hash(column: str) -> str:
     """SQL for an event id's 64-bit hash (NULL without an id), the same on both staging paths."""
     return f"CASE WHEN {column} <> '' THEN hash({column}) END"
+
+
+def _daily_count_column(columns: list[str]) -> str:
+    """The daily-aggregate file's count column: ``count``, or ``events`` as the export writes it."""
+    return '"count"' if "count" in columns else "events"
 
 
 def _arrow(con, query: str, params=None) -> pa.Table:
@@ -534,8 +540,12 @@ class Store:
         return table.num_rows
 
     # -- events: merge (both paths) ----------------------------------------------------------
-    def prepare_staged(self) -> dict:
+    def prepare_staged(self, known_accounts_only: bool = False) -> dict:
         """Attribute the staged events and set aside repeats within the file.
+
+        With ``known_accounts_only`` (and accounts loaded), an event for an account the accounts
+        table does not know is not attributed (reason ``unknown_account``): a misspelt id in the
+        events then creates no account.
 
         Leaves the view ``prepared`` (``id_hash``, ``ts_us``, ``account``, ``day`` in the
         account's time zone, ``event``, ``user``): the attributed events, each id's first
@@ -583,6 +593,19 @@ class Store:
                 "SELECT unattributed, count(*) FROM attributed WHERE unattributed IS NOT NULL GROUP BY 1"
             ).fetchall())
             source = "attributed"
+        if known_accounts_only and con.execute("SELECT count(*) FROM (SELECT 1 FROM accounts LIMIT 1)").fetchone()[0]:
+            earlier = "s.unattributed" if without_account else "NULL"
+            con.execute(
+                f"""CREATE OR REPLACE TEMP TABLE known_checked AS
+                SELECT s.* {"EXCLUDE (unattributed)" if without_account else ""},
+                       COALESCE({earlier}, CASE WHEN a.account IS NULL THEN 'unknown_account' END) AS unattributed
+                FROM {source} s LEFT JOIN accounts a ON a.account = s.account""")
+            if source != base:
+                con.execute(f"DROP TABLE {source}")
+            source, without_account = "known_checked", True
+            unattributed = dict(con.execute(
+                "SELECT unattributed, count(*) FROM known_checked WHERE unattributed IS NOT NULL GROUP BY 1"
+            ).fetchall())
         conditions = ["s.unattributed IS NULL"] if without_account else []
         repeats = 0
         if repeated:
@@ -618,10 +641,11 @@ class Store:
 
     def drop_prepared(self):
         self.con.execute("DROP VIEW IF EXISTS prepared")
-        for table in ("staged", "staged_n", "attributed", "repeat_losers"):
+        for table in ("staged", "staged_n", "attributed", "known_checked", "repeat_losers"):
             self.con.execute(f"DROP TABLE IF EXISTS {table}")
 
-    def merge_staged(self, dedupe_window_days: int = 0, accept_beyond_window: bool = False) -> dict:
+    def merge_staged(self, dedupe_window_days: int = 0, accept_beyond_window: bool = False,
+                     known_accounts_only: bool = False) -> dict:
         """Attribute, dedupe and aggregate the staged events into the daily tables.
 
         Dedupe: the first delivery of an id wins, within this file (:meth:`prepare_staged`) and
@@ -630,7 +654,7 @@ class Store:
         ``unattributed`` (by reason), first and last day touched.
         """
         con = self.con
-        prepared = self.prepare_staged()
+        prepared = self.prepare_staged(known_accounts_only)
         fresh, fresh_count, held_back = self._fresh_events(
             "prepared", prepared["candidates"] - prepared["repeats"], dedupe_window_days, accept_beyond_window)
         newest_us = con.execute(f"SELECT max(ts_us) FROM {fresh}").fetchall()[0][0]
@@ -854,9 +878,12 @@ class Store:
             columns = [r[0] for r in self.con.execute(f"DESCRIBE SELECT * FROM {source}").fetchall()]
         except duckdb.Error as exc:
             return f"cannot read {path}: {str(exc).splitlines()[0]}"
-        missing = [c for c in ("account", "day", "event", "count") if c not in columns]
+        missing = [c for c in ("account", "day", "event", "count") if c not in columns
+                   and not (c == "count" and "events" in columns)]
         if missing:
-            return f"{path}: missing column(s) {', '.join(missing)}; expected account,day,event,count[,users]"
+            return (f"{path}: missing column(s) {', '.join(missing)}; expected account,day,event,count[,users] "
+                    "(or events for count, as `ebbwatch export daily` writes it)")
+        count = _daily_count_column(columns)
         users = "users" if "users" in columns else "NULL"
         try:
             bad = self.con.execute(
@@ -865,12 +892,12 @@ class Store:
                       CASE WHEN account IS NULL OR CAST(account AS VARCHAR) = '' THEN 'account must not be empty'
                            WHEN TRY_CAST(day AS DATE) IS NULL THEN 'day must be a date (YYYY-MM-DD)'
                            WHEN event IS NULL THEN 'event must not be empty'
-                           WHEN TRY_CAST("count" AS DOUBLE) IS NULL OR TRY_CAST("count" AS DOUBLE) < 0
-                                OR TRY_CAST("count" AS DOUBLE) <> floor(TRY_CAST("count" AS DOUBLE))
+                           WHEN TRY_CAST({count} AS DOUBLE) IS NULL OR TRY_CAST({count} AS DOUBLE) < 0
+                                OR TRY_CAST({count} AS DOUBLE) <> floor(TRY_CAST({count} AS DOUBLE))
                                 THEN 'count must be a whole number >= 0'
                            WHEN {users} IS NOT NULL AND CAST({users} AS VARCHAR) <> '' AND TRY_CAST({users} AS BIGINT) IS NULL
                                 THEN 'users must be a whole number' END AS problem,
-                      CAST(day AS VARCHAR) || ' / ' || CAST("count" AS VARCHAR) AS value
+                      CAST(day AS VARCHAR) || ' / ' || CAST({count} AS VARCHAR) AS value
                     FROM {source}) WHERE problem IS NOT NULL ORDER BY line LIMIT 1"""
             ).fetchone()
         except duckdb.Error as exc:
@@ -885,10 +912,11 @@ class Store:
         source = self._daily_source(path)
         columns = [r[0] for r in self.con.execute(f"DESCRIBE SELECT * FROM {source}").fetchall()]
         users = "NULLIF(CAST(users AS VARCHAR), '')" if "users" in columns else "NULL"
+        count = _daily_count_column(columns)
         self.con.execute(
             f"""CREATE OR REPLACE TEMP TABLE daily_in AS
             SELECT CAST(account AS VARCHAR) AS account, CAST(day AS DATE) AS day, CAST(event AS VARCHAR) AS event,
-                   sum(CAST(CAST("count" AS DOUBLE) AS BIGINT)) AS events, max(CAST({users} AS BIGINT)) AS users
+                   sum(CAST(CAST({count} AS DOUBLE) AS BIGINT)) AS events, max(CAST({users} AS BIGINT)) AS users
             FROM {source} GROUP BY ALL"""
         )
         empty = self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily LIMIT 1)").fetchall()[0][0] == 0
@@ -904,6 +932,8 @@ class Store:
 
     # -- reading -----------------------------------------------------------------------------
     def status(self) -> dict:
+        """What a person checks first: what the store holds, what ingest lost or held back, when
+        it was last fed and last judged.  Times are UTC to the second."""
         con = self.con
         accounts, events, first_day, last_day = con.execute(
             "SELECT count(DISTINCT account), COALESCE(sum(events), 0), min(day), max(day) FROM daily"
@@ -911,20 +941,46 @@ class Store:
         last = con.execute(
             "SELECT file, ingested_at, ingested FROM ingest_log ORDER BY ingested_at DESC LIMIT 1"
         ).fetchone()
+        lines, rejected, unattributed, duplicates, held_back = (int(v or 0) for v in con.execute(
+            "SELECT sum(lines), sum(rejected), sum(unattributed), sum(duplicates), sum(held_back) FROM ingest_log"
+        ).fetchone())
+        scanned = con.execute("SELECT max(as_of), max(recorded_at) FROM alert_log").fetchone()
+
+        def stamp(value):
+            return None if value is None else value.astimezone(timezone.utc).replace(microsecond=0).isoformat()
+
         return {
             "store": self.path,
             "schema_version": self.schema_version(),
             "accounts": int(accounts),
+            "accounts_loaded": con.execute("SELECT count(*) FROM accounts").fetchone()[0],
             "events": int(events),
             "first_day": first_day,
             "last_day": last_day,
             "files_ingested": con.execute("SELECT count(*) FROM ingest_log").fetchall()[0][0],
+            "lines_read": lines,
+            "rejected": rejected,
+            "unattributed": unattributed,
+            "duplicates": duplicates,
             "ids_remembered": con.execute("SELECT count(*) FROM seen_ids").fetchall()[0][0],
-            "held_back": int(con.execute("SELECT COALESCE(sum(held_back), 0) FROM ingest_log").fetchall()[0][0]),
+            "held_back": held_back,
+            "unknown_accounts": self.unknown_accounts(),
             "last_ingest": None
             if last is None
-            else {"file": last[0], "at": last[1].isoformat(), "events": int(last[2])},
+            else {"file": last[0], "at": stamp(last[1]), "events": int(last[2])},
+            "last_scan": None if scanned[0] is None else {"as_of": scanned[0].isoformat(), "at": stamp(scanned[1])},
         }
+
+    def unknown_accounts(self, top: int = 5) -> dict | None:
+        """Accounts with events that the accounts table does not know (``None`` while no
+        accounts are loaded): ``{"accounts", "events", "top": [{"account", "events"}, ...]}``."""
+        if not self.con.execute("SELECT count(*) FROM (SELECT 1 FROM accounts LIMIT 1)").fetchone()[0]:
+            return None
+        rows = self.con.execute(
+            """SELECT d.account, sum(d.events) AS events FROM daily d ANTI JOIN accounts a USING (account)
+            GROUP BY d.account ORDER BY events DESC, d.account""").fetchall()
+        return {"accounts": len(rows), "events": int(sum(n for _, n in rows)),
+                "top": [{"account": a, "events": int(n)} for a, n in rows[:top]]}
 
     def fleet_daily_totals(self) -> pd.DataFrame:
         return self.con.execute(

@@ -237,7 +237,7 @@ class ParsedFile:
 
 
 def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.Table, identities: pa.Table,
-               known_digests: dict, legacy_digest: bool = False) -> ParsedFile:
+               known_digests: dict, legacy_digest: bool = False, known_accounts_only: bool = False) -> ParsedFile:
     """Stage, attribute and date one event file in a scratch store holding the real store's
     accounts and identities (one task of a Dask ingest).  ``item``: (path, name to report);
     ``known_digests``: ``Store.ingested_digests``; ``legacy_digest``: ``Store.has_legacy_digests``."""
@@ -254,7 +254,7 @@ def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.
             return ParsedFile(display, error=str(exc))
         parsed = ParsedFile(display, digest, result, rejects)
         if result.skipped is None:
-            prepared = st.prepare_staged()
+            prepared = st.prepare_staged(known_accounts_only)
             result.unattributed = prepared["unattributed"]
             parsed.candidates, parsed.repeats = prepared["candidates"], prepared["repeats"]
             parsed.events = st.prepared_table()
