@@ -139,3 +139,12 @@ def test_status_is_the_page_to_read_first(tmp_path):
     assert "rejected 1" in page and "last scan      -" in page
     stamp = page.split("last ingest    ")[1].split()[0]
     assert len(stamp) == len("2026-12-04T10:00:00+00:00")  # to the second, no microseconds
+
+
+def test_an_unknown_account_suggests_the_nearest_ids(tmp_path, db):
+    # Issue 22, item 8 (the suggestion part).
+    path = tmp_path / "e.jsonl"
+    path.write_bytes(jsonl([ev("2026-03-02T10:00:00Z", account=a) for a in ("a-alpha", "a-beta", "z-other")]))
+    ingest(db, [path])
+    result = CliRunner().invoke(main, ["snooze", "A-ALPA", "--db", db, "--until", "2026-12-20", "--force"])
+    assert result.exit_code == 3 and "did you mean a-alpha?" in result.output, result.output

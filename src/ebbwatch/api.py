@@ -258,6 +258,16 @@ def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_
     return result
 
 
+def _nearest_ids(st, account: str) -> str:
+    """", did you mean …?" with up to three stored account ids close to ``account`` (case aside)."""
+    import difflib
+
+    ids = st.account_ids()
+    by_folded = {a.casefold(): a for a in ids}
+    close = difflib.get_close_matches(account.casefold(), list(by_folded), n=3, cutoff=0.6)
+    return f"; did you mean {', '.join(by_folded[c] for c in close)}?" if close else ""
+
+
 def status(*, db: str | None = None, config=None) -> dict:
     """What the store holds: accounts, events, first and last day, last ingest, data-gap days."""
     from .series import fleet_gap_days
@@ -821,7 +831,8 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
             as_of, _ = last_complete_day(st, today)
         check_as_of(st, as_of)
         if not st.has_account(account):
-            raise InputError(f"no account {account!r} in the store; `ebbwatch status` lists what is there")
+            raise InputError(f"no account {account!r} in the store{_nearest_ids(st, account)}; "
+                             "`ebbwatch status` lists what is there")
         accounts = st.account_ids()
         loader = PanelLoader(st, cfg, as_of, cfg.scan.history_days).fit_fleet(accounts)
         panel = loader([account])
@@ -913,7 +924,7 @@ def snooze(account: str, until, *, reason: str | None = None, force: bool = Fals
         raise UsageError(f"--until {until} is more than a year away; give --force if that is meant")
     with store_mod.open_store(db or cfg.store_path, must_exist=True) as st:
         if not st.has_account(account):
-            raise InputError(f"no account {account!r} in the store")
+            raise InputError(f"no account {account!r} in the store{_nearest_ids(st, account)}")
         st.add_snooze(account, until, reason)
     return {"account": account, "until": until.isoformat(), "reason": reason}
 
