@@ -88,6 +88,17 @@ FAST_TS_PATTERN = (
 FAST_LOCAL_PATTERN = FAST_TS_PATTERN.removesuffix(r"([Zz]|[+-]([01]\d|2[0-3]):[0-5]\d)")
 
 
+def _epoch_us(number: str, ts_format: str) -> str:
+    """SQL for epoch microseconds from a DOUBLE expression: seconds or milliseconds as
+    ``ts_format`` says, or under auto by magnitude (as ``ingest.timestamps.parse_epoch``)."""
+    if ts_format == "epoch_s":
+        return f"CAST(round({number} * 1e6) AS BIGINT)"
+    if ts_format == "epoch_ms":
+        return f"CAST(round({number} * 1e3) AS BIGINT)"
+    return (f"CASE WHEN abs({number}) < 1e11 THEN CAST(round({number} * 1e6) AS BIGINT) "
+            f"WHEN abs({number}) < 1e14 THEN CAST(round({number} * 1e3) AS BIGINT) END")
+
+
 def _text_time(expr: str, naive_timezone: str | None) -> tuple[str, str]:
     """SQL for whether a text time takes the fast path, and its epoch microseconds.
 
@@ -360,14 +371,7 @@ class Store:
             ts_ok = is_number(ts)
         else:
             ts_ok = f"(CASE WHEN {is_string(ts)} THEN {text_ok} ELSE {is_number(ts)} END)"
-        as_double = f"TRY_CAST({text(ts)} AS DOUBLE)"
-        if ts_format == "epoch_s":
-            numeric_us = f"CAST(round({as_double} * 1e6) AS BIGINT)"
-        elif ts_format == "epoch_ms":
-            numeric_us = f"CAST(round({as_double} * 1e3) AS BIGINT)"
-        else:
-            numeric_us = (f"CASE WHEN abs({as_double}) < 1e11 THEN CAST(round({as_double} * 1e6) AS BIGINT) "
-                          f"WHEN abs({as_double}) < 1e14 THEN CAST(round({as_double} * 1e3) AS BIGINT) END")
+        numeric_us = _epoch_us(f"TRY_CAST({text(ts)} AS DOUBLE)", ts_format)
         ok = (f"{ts} IS NOT NULL AND {ts_ok} AND {event_ok} "
               f"AND {us} IS NOT NULL AND {value(us)} <> '' AND {id_ok(us)} "
               f"AND ({ac} IS NULL OR {id_ok(ac)}) AND ({idc} IS NULL OR {id_ok(idc)})")
@@ -438,14 +442,7 @@ class Store:
             text_ok, text_us = _text_time(ts, naive_timezone)
             time_us = f"CASE WHEN {text_ok} THEN {text_us} END"
         elif kind in integer_types + ("DOUBLE", "FLOAT") and ts_format != "rfc3339":
-            value = f"CAST({ts} AS DOUBLE)"
-            if ts_format == "epoch_s":
-                time_us = f"CAST(round({value} * 1e6) AS BIGINT)"
-            elif ts_format == "epoch_ms":
-                time_us = f"CAST(round({value} * 1e3) AS BIGINT)"
-            else:
-                time_us = (f"CASE WHEN abs({value}) < 1e11 THEN CAST(round({value} * 1e6) AS BIGINT) "
-                           f"WHEN abs({value}) < 1e14 THEN CAST(round({value} * 1e3) AS BIGINT) END")
+            time_us = _epoch_us(f"CAST({ts} AS DOUBLE)", ts_format)
         else:
             time_us = "NULL"
         ok = f"{event} IS NOT NULL AND {event_ok} AND {user} IS NOT NULL AND {user_ok} AND {account_ok} AND {id_ok}"
