@@ -148,3 +148,22 @@ def test_an_unknown_account_suggests_the_nearest_ids(tmp_path, db):
     ingest(db, [path])
     result = CliRunner().invoke(main, ["snooze", "A-ALPA", "--db", db, "--until", "2026-12-20", "--force"])
     assert result.exit_code == 3 and "did you mean a-alpha?" in result.output, result.output
+
+
+def test_accounts_whose_zone_changes_after_their_days_are_stored_are_refused(tmp_path, db):
+    # Issue 22, item 2: never keep UTC days silently for an account that has a time zone.
+    path = tmp_path / "e.jsonl"
+    path.write_bytes(jsonl([ev(f"2026-03-0{d}T23:30:00Z", account="a-gym") for d in range(1, 6)]))
+    ingest(db, [path])
+    (tmp_path / "accounts.csv").write_text("account,name,timezone\na-gym,Gym,Australia/Sydney\na-new,New,Europe/Paris\n")
+    with pytest.raises(InputError, match="a-gym the time zone Australia/Sydney, but 5 day.*already stored by UTC"):
+        ingest(db, [], accounts=str(tmp_path / "accounts.csv"))
+    result = CliRunner().invoke(main, ["ingest", "--db", db, "--accounts", str(tmp_path / "accounts.csv")])
+    assert result.exit_code == 3 and "--keep-stored-days" in result.output
+    s = ingest(db, [], accounts=str(tmp_path / "accounts.csv"), keep_stored_days=True)
+    assert s["accounts_loaded"] == 2
+    # Loaded before their events, accounts with a zone are fine.
+    fresh = str(tmp_path / "fresh.duckdb")
+    ingest(fresh, [], accounts=str(tmp_path / "accounts.csv"))
+    ingest(fresh, [path])
+    assert sorted({d for _, d, _ in daily(fresh)}) == [f"2026-03-0{d}" for d in range(2, 7)]  # Sydney days

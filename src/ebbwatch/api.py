@@ -63,6 +63,7 @@ def ingest_files(
     engine: str = "local",
     scheduler: str | None = None,
     accept_beyond_window: bool | None = None,
+    keep_stored_days: bool = False,
 ) -> dict:
     """Ingest JSON-lines event files (and/or the accounts, identities and daily-aggregate files).
 
@@ -70,6 +71,8 @@ def ingest_files(
     Files that cannot be read are listed under ``errors``; the others are ingested.
     ``accept_beyond_window`` overrides ``[ingest] accept_beyond_dedupe_window``: with a bounded
     dedupe window, add events whose id is older than it instead of holding them back.
+    ``keep_stored_days``: load accounts whose time zone changes although their days are stored
+    (those days stay in the old zone); without it such a load is refused.
     ``engine="dask"``: the files are parsed, attributed and counted on a Dask cluster
     (``scheduler`` as in :func:`scan`; workers must read the same paths), and the store takes
     all of them in one transaction, with the same result as ingesting them in turn here.
@@ -112,6 +115,15 @@ def ingest_files(
             if problem:
                 raise InputError(problem)
             if account_frame is not None:
+                changed = st.zone_changes_on_stored_days(account_frame)
+                if changed and not keep_stored_days:
+                    account, old, new, days = changed[0]
+                    more = f" (and {len(changed) - 1} more account(s))" if len(changed) > 1 else ""
+                    raise InputError(
+                        f"{accounts} gives {account} the time zone {new}, but {days} day(s) of its events are "
+                        f"already stored by {old} days{more}; days are assigned at ingest, so load accounts "
+                        "before their events. To fix: ingest accounts.csv and then the events into a new "
+                        "store; or give --keep-stored-days to use the new zone for events from now on only.")
                 with st.transaction():
                     summary["accounts_loaded"] = st.upsert_accounts(account_frame)
             if identity_frame is not None:

@@ -111,11 +111,11 @@ def main():
 @main.command()
 @click.argument("inputs", nargs=-1, type=click.Path(allow_dash=True))
 @store_options
-@click.option("--accounts", type=click.Path(exists=True, dir_okay=False),
+@click.option("--accounts", type=click.Path(dir_okay=False),
               help="accounts.csv: account,name,seats,segment,timezone,mrr (load or update).")
-@click.option("--identities", type=click.Path(exists=True, dir_okay=False),
+@click.option("--identities", type=click.Path(dir_okay=False),
               help="identities.csv: user,account,valid_from,valid_to (replaces those users' rows).")
-@click.option("--daily", type=click.Path(exists=True, dir_okay=False),
+@click.option("--daily", type=click.Path(dir_okay=False),
               help="Pre-aggregated daily counts, CSV or Parquet: account,day,event,count[,users].")
 @click.option("--rejects", "rejects_path", type=click.Path(dir_okay=False),
               help="Where rejected lines go (JSON lines). Default: beside the store.")
@@ -124,10 +124,13 @@ def main():
 @click.option("--accept-beyond-window", is_flag=True, default=None,
               help="With [ingest] dedupe_window_days set: add events whose id is older than the window "
                    "(they cannot be checked for redelivery) instead of holding them back.")
+@click.option("--keep-stored-days", is_flag=True,
+              help="Load --accounts whose time zone changes although their days are already stored; "
+                   "those days stay in the old zone (without this the load is refused).")
 @engine_options
 @handle_errors
 def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, fmt, accept_beyond_window,
-           engine, scheduler):
+           keep_stored_days, engine, scheduler):
     """Ingest JSON-lines events into the activity store.
 
     INPUTS are .jsonl, .jsonl.gz or .parquet files, directories (searched recursively, in sorted
@@ -158,7 +161,7 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
     summary = api.ingest_files(list(inputs), db=db, config=config_path, accounts=accounts,
                                identities=identities, daily=daily, rejects_path=rejects_path,
                                progress=_progress_printer("ingest"), engine=engine, scheduler=scheduler,
-                               accept_beyond_window=accept_beyond_window)
+                               accept_beyond_window=accept_beyond_window, keep_stored_days=keep_stored_days)
     if fmt == "json":
         click.echo(json.dumps(summary, default=str))
     else:
@@ -515,7 +518,7 @@ def report(db, config_path, html_path, as_of, limit):
 
 @main.command("backtest")
 @store_options
-@click.option("--outcomes", required=True, type=click.Path(exists=True, dir_okay=False),
+@click.option("--outcomes", required=True, type=click.Path(dir_okay=False),
               help="CSV account,date,outcome with outcome churned, contracted or expanded.")
 @click.option("--from", "start", help="First day replayed (default: once the minimum history is there).")
 @click.option("--to", "end", help="Last day replayed (default: the last complete day).")

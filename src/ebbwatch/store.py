@@ -214,6 +214,21 @@ class Store:
             self.con.unregister("incoming_accounts")
         return len(frame)
 
+    def zone_changes_on_stored_days(self, frame: pd.DataFrame) -> list[tuple]:
+        """Accounts in ``frame`` whose time zone differs from the one their stored days were
+        assigned in (none = UTC): ``[(account, stored_zone, new_zone, days), ...]``.  Days are
+        assigned at ingest, so such a change would leave those days in the old zone."""
+        _register(self.con, "incoming_accounts", frame)
+        try:
+            return self.con.execute(
+                """SELECT i.account, COALESCE(a.timezone, 'UTC'), COALESCE(i.timezone, 'UTC'), d.days
+                FROM incoming_accounts i LEFT JOIN accounts a USING (account)
+                JOIN (SELECT account, count(DISTINCT day) AS days FROM daily GROUP BY account) d USING (account)
+                WHERE COALESCE(a.timezone, 'UTC') <> COALESCE(i.timezone, 'UTC')
+                ORDER BY d.days DESC, i.account""").fetchall()
+        finally:
+            self.con.unregister("incoming_accounts")
+
     def replace_identities(self, frame: pd.DataFrame) -> int:
         """Replace the identity intervals of every user in ``frame``."""
         _register(self.con, "incoming_identities", frame)

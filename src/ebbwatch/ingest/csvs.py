@@ -5,6 +5,7 @@ Each error names the file, the line (1 = header) and the value.
 
 from __future__ import annotations
 
+from pathlib import Path
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import numpy as np
@@ -14,6 +15,8 @@ from ..errors import InputError
 
 
 def _read_csv(path: str, required: tuple[str, ...]) -> pd.DataFrame:
+    if not Path(path).is_file():
+        raise InputError(f"no such file: {path}")
     try:
         frame = pd.read_csv(path, dtype=str, keep_default_na=False, encoding="utf-8")
     except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:

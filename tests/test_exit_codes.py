@@ -1,0 +1,55 @@
+"""One test per row of the README's exit-code table (issue 22, item 8)."""
+
+import gzip
+import json
+
+from click.testing import CliRunner
+
+from ebbwatch.cli import main
+
+from .conftest import write_jsonl
+
+GOOD = {"ts": "2026-03-02T10:00:00Z", "event": "doc.edit", "user": "u-1", "account": "a-1"}
+
+
+def run(*args):
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def test_0_ran(tmp_path):
+    path = write_jsonl(tmp_path / "e.jsonl", [GOOD] * 20, raw_lines=[b"not json"])  # 1 of 21 lost
+    assert run("ingest", path, "--db", tmp_path / "s.duckdb").exit_code == 0
+
+
+# 1: alerts found with --fail-on-alert — tests/test_scan.py::test_cli_table_kind_filter_and_fail_on_alert
+# checks both sides (1 with alerts, 0 with --max-alerts 0) on a planted fleet.
+
+
+def test_2_the_command_line_or_config_is_wrong(tmp_path):
+    db = tmp_path / "s.duckdb"
+    assert run("ingest", "--db", db).exit_code == 2  # nothing to ingest
+    assert run("ingest", "--db", db, "--no-such-option").exit_code == 2
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[ingest]\nnaive_timezone = 'Mars/Olympus'\n")
+    assert run("ingest", write_jsonl(tmp_path / "e.jsonl", [GOOD]), "--db", db, "--config", bad).exit_code == 2
+    assert run("snooze", "a-1", "--db", db, "--until", "2001-01-01").exit_code == 2  # in the past
+
+
+def test_3_an_input_account_or_store_cannot_be_used(tmp_path):
+    db = tmp_path / "s.duckdb"
+    missing_events = run("ingest", tmp_path / "missing.jsonl", "--db", db)
+    missing_identities = run("ingest", write_jsonl(tmp_path / "e.jsonl", [GOOD]), "--db", db,
+                             "--identities", tmp_path / "missing.csv")
+    assert (missing_events.exit_code, missing_identities.exit_code) == (3, 3)
+    assert "no such file" in missing_events.output and "no such file" in missing_identities.output
+    run("ingest", tmp_path / "e.jsonl", "--db", db)
+    assert run("explain", "a-2", "--db", db).exit_code == 3  # an unknown account
+    whole = gzip.compress(b"".join(json.dumps(GOOD).encode() + b"\n" for _ in range(3000)))
+    (tmp_path / "cut.jsonl.gz").write_bytes(whole[: len(whole) // 2])
+    assert run("ingest", tmp_path / "cut.jsonl.gz", "--db", db).exit_code == 3
+
+
+def test_4_a_file_lost_more_than_the_share_of_its_lines(tmp_path):
+    path = write_jsonl(tmp_path / "e.jsonl", [GOOD] * 5, raw_lines=[b"not json"] * 5)
+    result = run("ingest", path, "--db", tmp_path / "s.duckdb")
+    assert result.exit_code == 4 and "5 of 10 lines rejected" in result.output
