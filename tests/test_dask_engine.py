@@ -127,7 +127,7 @@ def _store_tables(db):
     try:
         return {name: con.execute(f"SELECT * EXCLUDE ({skip}) FROM {name} ORDER BY ALL").fetchall() if skip
                 else con.execute(f"SELECT * FROM {name} ORDER BY ALL").fetchall()
-                for name, skip in (("daily", ""), ("user_daily", ""), ("seen_ids", ""),
+                for name, skip in (("daily", ""), ("user_daily", ""), ("seen_ids", ""), ("unattributed_events", ""),
                                    ("ingest_log", "ingested_at"))}
     finally:
         con.close()

@@ -167,3 +167,29 @@ def test_accounts_whose_zone_changes_after_their_days_are_stored_are_refused(tmp
     ingest(fresh, [], accounts=str(tmp_path / "accounts.csv"))
     ingest(fresh, [path])
     assert sorted({d for _, d, _ in daily(fresh)}) == [f"2026-03-0{d}" for d in range(2, 7)]  # Sydney days
+
+
+def test_identities_loaded_after_the_events_attribute_the_events_kept(tmp_path):
+    # Issue 22, item 1: forgetting --identities on the first ingest can be undone.
+    rows = [ev(f"2026-03-0{1 + i % 5}T10:{i % 60:02d}:00Z", user=f"u-{i % 6}", account=None, id=f"e-{i}")
+            for i in range(120)] + [ev("2026-03-02T11:00:00Z", user="u-stranger", account=None, id="s-1")]
+    path = tmp_path / "e.jsonl"
+    path.write_bytes(jsonl(rows))
+    ids = tmp_path / "identities.csv"
+    ids.write_text("user,account,valid_from,valid_to\n" + "".join(f"u-{i},a-{i % 2},,\n" for i in range(6)))
+    forgot = str(tmp_path / "forgot.duckdb")
+    first = ingest(forgot, [path])
+    assert first["unattributed"] == {"unknown_user": 121} and first["ingested"] == 0
+    again = ingest(forgot, [path])
+    assert "already ingested" in again["skipped_files"][0]["reason"]
+    later = ingest(forgot, [], identities=str(ids))
+    assert later["recovered"] == 120
+    right = str(tmp_path / "right.duckdb")
+    ingest(right, [path], identities=str(ids))
+    assert daily(forgot) == daily(right)
+    page = CliRunner().invoke(main, ["status", "--db", forgot]).output
+    assert "1 still waiting for identities" in page  # u-stranger is in no identities file
+    # The same events delivered again count once, whether they were kept or attributed.
+    resent = tmp_path / "resent.jsonl"
+    resent.write_bytes(jsonl(rows[:10]))
+    assert ingest(forgot, [resent])["duplicates"] == 10

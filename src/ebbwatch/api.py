@@ -100,7 +100,7 @@ def ingest_files(
     summary = {
         "files": 0, "lines": 0, "ingested": 0, "duplicates": 0, "rejected": {}, "unattributed": {},
         "skipped_files": [], "errors": [], "accounts_loaded": 0, "identities_loaded": 0,
-        "daily_rows_loaded": 0, "paths": {"fast": 0, "precise": 0}, "lines_rechecked": 0, "held_back": {},
+        "daily_rows_loaded": 0, "paths": {"fast": 0, "precise": 0}, "lines_rechecked": 0, "held_back": {}, "recovered": 0,
         "files_over_reject_share": [], "max_reject_share": cfg.ingest.max_reject_share,
         "rejects_file": None,
     }
@@ -129,6 +129,11 @@ def ingest_files(
             if identity_frame is not None:
                 with st.transaction():
                     summary["identities_loaded"] = st.replace_identities(identity_frame)
+                    if st.stage_unattributed():  # events kept from earlier ingests: attribute them now
+                        merged = st.merge_staged(cfg.ingest.dedupe_window_days, cfg.ingest.accept_beyond_dedupe_window,
+                                                 cfg.ingest.unknown_accounts == "reject")
+                        summary["recovered"] = merged["ingested"]
+                        st.note_newest_event(merged["newest_us"])
             if daily is not None:
                 with st.transaction():
                     summary["daily_rows_loaded"] = st.load_daily_file(daily)
@@ -219,7 +224,7 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
             client.map(ParsedFile.summary, parsed, pure=False, retries=3), "parsing",
             progress=None if progress is None else (lambda i, n: progress(files[i - 1], i, n)))
         with st.transaction():
-            waiting, seen_before = [], []  # files to count: (place in outcomes, digest, parsed future)
+            waiting, seen_before, kept_unattributed = [], [], []  # files to count: (place in outcomes, digest, parsed future)
             first_of_content = {}
             for future, light in zip(parsed, summaries):
                 result = light.result
@@ -232,10 +237,14 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
                 seen_before.append(st.claim_ids(*light.ids, cfg.ingest.dedupe_window_days,
                                                 cfg.ingest.accept_beyond_dedupe_window))
                 waiting.append((len(outcomes), light.digest, future))
+                if light.unattributed is not None and light.unattributed.num_rows:
+                    kept_unattributed.append(light.unattributed)
                 outcomes.append((light.file, None, light.rejects))
             counted = gather_in_order(client.map(count_parsed, [f for *_, f in waiting], seen_before,
                                                  pure=False, retries=3), "counting")
             st.merge_user_daily([table for table, *_ in counted])
+            for table in kept_unattributed:
+                st.keep_unattributed(table)
             for (place, digest, _), (_, result, first_day, last_day, newest_us) in zip(waiting, counted):
                 name, _, rejects = outcomes[place]
                 st.log_ingest(name, digest, result, first_day, last_day)

@@ -190,9 +190,12 @@ def _print_ingest_summary(s: dict):
         total = sum(s["rejected"].values())
         reasons = ", ".join(f"{k} {v:,}" for k, v in sorted(s["rejected"].items()))
         err(f"Rejected {total:,} lines ({reasons}); see {s['rejects_file']}.")
+    if s["recovered"]:
+        err(f"Attributed {s['recovered']:,} events kept from earlier ingests, now that identities are loaded.")
     if s["unattributed"]:
         reasons = ", ".join(f"{k} {v:,}" for k, v in sorted(s["unattributed"].items()))
-        err(f"Unattributed {sum(s['unattributed'].values()):,} events ({reasons}).")
+        err(f"Unattributed {sum(s['unattributed'].values()):,} events ({reasons}); they are kept, and "
+            "loading identities later (ingest --identities FILE) attributes them.")
     if s["held_back"]:
         reasons = ", ".join(f"{k} {v:,}" for k, v in sorted(s["held_back"].items()))
         err(f"Held back {sum(s['held_back'].values()):,} events ({reasons}): their ids are older than "
@@ -244,7 +247,8 @@ def status(db, config_path, fmt):
     last = info["last_ingest"]
     out(f"last ingest    {'-' if last is None else last['at'] + ' ' + last['file']}")
     out(f"lines read     {info['lines_read']:,}; rejected {info['rejected']:,}, unattributed "
-        f"{info['unattributed']:,}, duplicates {info['duplicates']:,}")
+        f"{info['unattributed']:,} ({info['unattributed_waiting']:,} still waiting for identities), "
+        f"duplicates {info['duplicates']:,}")
     dedupe = ("every id remembered" if not info["dedupe_window_days"]
               else f"ids remembered {info['dedupe_window_days']} days of event time")
     out(f"event ids      {info['ids_remembered']:,} ({dedupe}); "

@@ -6,6 +6,8 @@ Tables (schema version ``SCHEMA_VERSION``; ``MIGRATIONS`` brings older stores fo
 - ``user_daily``: account × local day × event × user → events (drivers, active users, and exact
   distinct-user counts when late events arrive for a day already stored).
 - ``accounts``, ``identities`` (user → account over ``[valid_from, valid_to)``).
+- ``unattributed_events``: valid events no account was found for (time, event, user, id hash),
+  attributed when identities are loaded later.
 - ``seen_ids``: event ids (every id, or those within a configured dedupe window) with their
   event times; ``ingest_log``: one row per file ingested.
 - ``alert_log``: one row per recorded scan day and open alert (the lifecycle); ``snoozes``.
@@ -29,7 +31,7 @@ import pyarrow as pa
 
 from .errors import StoreError
 
-SCHEMA_VERSION = 4
+SCHEMA_VERSION = 5
 DEFAULT_PATH = "ebbwatch.duckdb"
 
 # Schema as a list of migrations: MIGRATIONS[v] takes a store at version v to v + 1.
@@ -75,6 +77,12 @@ MIGRATIONS: dict[int, list[str]] = {
     # forgotten); events held back because their id is older than a configured window.
     3: [
         "ALTER TABLE ingest_log ADD COLUMN held_back BIGINT DEFAULT 0",
+    ],
+    # v5: events no account could be found for are kept (what attribution needs), so identities
+    # loaded later attribute them.
+    4: [
+        """CREATE TABLE unattributed_events (ts_us BIGINT NOT NULL, event VARCHAR NOT NULL,
+               "user" VARCHAR NOT NULL, id_hash UBIGINT)""",
     ],
 }
 
@@ -645,13 +653,46 @@ class Store:
             SELECT s.id_hash, s.ts_us, s.account, {day} AS day, s.event, s."user"
             FROM {source} s {join} WHERE {" AND ".join(conditions) or "true"}"""
         )
+        # Events no account was found for, each id's first delivery: kept for identities to come.
+        waiting = ["s.unattributed IN ('unknown_user', 'no_identity_at_time')" if without_account else "false"]
+        if repeated:
+            waiting.append("s.line_order NOT IN (SELECT line_order FROM repeat_losers)")
+        con.execute(
+            f"""CREATE OR REPLACE TEMP VIEW unattributed_kept AS
+            SELECT s.ts_us, s.event, s."user", s.id_hash FROM {source} s WHERE {" AND ".join(waiting)}""")
         return {"candidates": candidates, "repeats": repeats, "unattributed": unattributed}
 
     def prepared_table(self) -> pa.Table:
         """The ``prepared`` view as an Arrow table (what a Dask worker keeps for a file)."""
         return _arrow(self.con, "SELECT * FROM prepared")
 
+    def unattributed_table(self) -> pa.Table:
+        """The ``unattributed_kept`` view as an Arrow table (what a Dask worker keeps for a file)."""
+        return _arrow(self.con, "SELECT * FROM unattributed_kept")
+
+    def keep_unattributed(self, table: pa.Table | None = None):
+        """Keep a file's unattributed events: ``table`` (from a worker) or the ``unattributed_kept``
+        view of :meth:`prepare_staged`."""
+        if table is None:
+            self.con.execute("INSERT INTO unattributed_events SELECT * FROM unattributed_kept")
+            return
+        _register(self.con, "incoming_unattributed", table)
+        try:
+            self.con.execute('INSERT INTO unattributed_events SELECT ts_us, event, "user", id_hash FROM incoming_unattributed')
+        finally:
+            self.con.unregister("incoming_unattributed")
+
+    def stage_unattributed(self) -> int:
+        """Move every kept unattributed event back into ``staged`` (to be attributed again by
+        :meth:`merge_staged`, which keeps those still without an account).  Returns how many."""
+        self.con.execute(
+            """CREATE OR REPLACE TEMP TABLE staged AS
+            SELECT ts_us, event, "user", CAST(NULL AS VARCHAR) AS account, id_hash FROM unattributed_events""")
+        self.con.execute("DELETE FROM unattributed_events")
+        return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
+
     def drop_prepared(self):
+        self.con.execute("DROP VIEW IF EXISTS unattributed_kept")
         self.con.execute("DROP VIEW IF EXISTS prepared")
         for table in ("staged", "staged_n", "attributed", "known_checked", "repeat_losers"):
             self.con.execute(f"DROP TABLE IF EXISTS {table}")
@@ -670,6 +711,8 @@ class Store:
         fresh, fresh_count, held_back = self._fresh_events(
             "prepared", prepared["candidates"] - prepared["repeats"], dedupe_window_days, accept_beyond_window)
         newest_us = con.execute(f"SELECT max(ts_us) FROM {fresh}").fetchall()[0][0]
+        if prepared["unattributed"]:
+            self.keep_unattributed()
         grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
         if self._user_daily_is_empty():
             # A first load (a backfill) has nothing to merge with: group straight into the table.
@@ -973,6 +1016,7 @@ class Store:
             "lines_read": lines,
             "rejected": rejected,
             "unattributed": unattributed,
+            "unattributed_waiting": con.execute("SELECT count(*) FROM unattributed_events").fetchone()[0],
             "duplicates": duplicates,
             "ids_remembered": con.execute("SELECT count(*) FROM seen_ids").fetchall()[0][0],
             "held_back": held_back,

@@ -226,6 +226,7 @@ class ParsedFile:
     events: pa.Table | None = None
     error: str | None = None
     ids: tuple | None = None  # (id_hash uint64, ts_us int64) of the events with an id
+    unattributed: pa.Table | None = None  # events no account was found for, kept for identities to come
 
     def summary(self) -> "ParsedFile":
         """This file without its events but with their ids: what the driver needs to dedupe."""
@@ -258,6 +259,8 @@ def parse_file(item: tuple[str, str], *, rules: LineRules, fields, accounts: pa.
             result.unattributed = prepared["unattributed"]
             parsed.candidates, parsed.repeats = prepared["candidates"], prepared["repeats"]
             parsed.events = st.prepared_table()
+            if prepared["unattributed"]:
+                parsed.unattributed = st.unattributed_table()
             st.drop_prepared()
         return parsed
     finally:
