@@ -6,6 +6,8 @@ import json
 import os
 
 import pytest
+
+import ebbwatch
 import zstandard
 from click.testing import CliRunner
 
@@ -193,3 +195,50 @@ def test_identities_loaded_after_the_events_attribute_the_events_kept(tmp_path):
     resent = tmp_path / "resent.jsonl"
     resent.write_bytes(jsonl(rows[:10]))
     assert ingest(forgot, [resent])["duplicates"] == 10
+
+
+def test_a_file_ingested_with_the_wrong_settings_is_taken_back_and_ingested_again(tmp_path):
+    # Issue 22, item 1, second half: one transaction, and the store ends as if it had been right.
+    from ebbwatch.config import config_from_dict
+
+    right_zone = config_from_dict({"ingest": {"naive_timezone": "America/New_York"}})
+    wrong_zone = config_from_dict({"ingest": {"naive_timezone": "Asia/Tokyo"}})
+    shared = tmp_path / "a.jsonl"  # times with offsets: read the same under both settings
+    shared.write_bytes(jsonl([ev(f"2026-03-0{1 + i % 4}T{i % 24:02d}:00:00Z", user=f"u-{i % 5}", id=f"a-{i}")
+                              for i in range(200)]))
+    local = tmp_path / "b.jsonl"  # local times: the zone decides their days
+    local.write_bytes(jsonl([ev(f"2026-03-0{1 + i % 4}T{i % 24:02d}:30:00", user=f"u-{i % 7}", id=f"b-{i}")
+                             for i in range(300)]))
+    db, reference = str(tmp_path / "s.duckdb"), str(tmp_path / "ref.duckdb")
+    ingest(db, [shared, local], config=wrong_zone)
+    before = daily(db)
+    s = ingest(db, [local], config=right_zone, again=True)
+    assert (s["taken_back"], s["ingested"], s["duplicates"]) == (1, 300, 0)
+    ingest(reference, [shared, local], config=right_zone)
+    assert daily(db) == daily(reference) != before
+    # Its ids are back: the same lines delivered under another name are duplicates.
+    copy = tmp_path / "b-copy.jsonl"
+    copy.write_bytes(local.read_bytes() + b"\n")
+    assert ingest(db, [copy], config=right_zone)["duplicates"] == 300
+    assert ebbwatch.status(db=db)["files_ingested"] == 3
+
+
+def test_again_refuses_the_dask_engine(tmp_path):
+    from ebbwatch.errors import UsageError
+
+    with pytest.raises(UsageError, match="--again"):
+        ingest(str(tmp_path / "s.duckdb"), [tmp_path], engine="dask", again=True)
+
+
+def test_a_file_ingested_without_its_contribution_recorded_cannot_be_taken_back(tmp_path):
+    from ebbwatch.config import config_from_dict
+    from ebbwatch.errors import StoreError
+
+    lean = config_from_dict({"ingest": {"keep_file_contributions": False}})
+    path = tmp_path / "e.jsonl"
+    path.write_bytes(jsonl([ev("2026-03-02T10:00:00Z", id="x")]))
+    db = str(tmp_path / "s.duckdb")
+    ingest(db, [path], config=lean)
+    with pytest.raises(StoreError, match="keep_file_contributions = false"):
+        ingest(db, [path], config=lean, again=True)
+    assert daily(db) == {("a-1", "2026-03-02", "doc.edit"): (1, 1)}  # nothing changed

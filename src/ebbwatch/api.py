@@ -64,6 +64,7 @@ def ingest_files(
     scheduler: str | None = None,
     accept_beyond_window: bool | None = None,
     keep_stored_days: bool = False,
+    again: bool = False,
 ) -> dict:
     """Ingest JSON-lines event files (and/or the accounts, identities and daily-aggregate files).
 
@@ -72,13 +73,17 @@ def ingest_files(
     ``accept_beyond_window`` overrides ``[ingest] accept_beyond_dedupe_window``: with a bounded
     dedupe window, add events whose id is older than it instead of holding them back.
     ``keep_stored_days``: load accounts whose time zone changes although their days are stored
-    (those days stay in the old zone); without it such a load is refused.
+    (those days stay in the old zone); without it such a load is refused.  ``again``: ingest
+    files whose content was ingested before, taking the earlier contribution back out first in
+    the same transaction (for a file ingested with the wrong settings; local engine only).
     ``engine="dask"``: the files are parsed, attributed and counted on a Dask cluster
     (``scheduler`` as in :func:`scan`; workers must read the same paths), and the store takes
     all of them in one transaction, with the same result as ingesting them in turn here.
     """
     if engine not in ("local", "dask"):
         raise UsageError(f"unknown engine {engine!r}; expected local or dask")
+    if engine == "dask" and again:
+        raise UsageError("--again runs on the local engine (it takes a file back out and ingests it in one transaction)")
     cfg = _config(config)
     if accept_beyond_window is not None:
         cfg = replace(cfg, ingest=replace(cfg.ingest, accept_beyond_dedupe_window=bool(accept_beyond_window)))
@@ -100,7 +105,7 @@ def ingest_files(
     summary = {
         "files": 0, "lines": 0, "ingested": 0, "duplicates": 0, "rejected": {}, "unattributed": {},
         "skipped_files": [], "errors": [], "accounts_loaded": 0, "identities_loaded": 0,
-        "daily_rows_loaded": 0, "paths": {"fast": 0, "precise": 0}, "lines_rechecked": 0, "held_back": {}, "recovered": 0,
+        "daily_rows_loaded": 0, "paths": {"fast": 0, "precise": 0}, "lines_rechecked": 0, "held_back": {}, "recovered": 0, "taken_back": 0,
         "files_over_reject_share": [], "max_reject_share": cfg.ingest.max_reject_share,
         "rejects_file": None,
     }
@@ -129,18 +134,18 @@ def ingest_files(
             if identity_frame is not None:
                 with st.transaction():
                     summary["identities_loaded"] = st.replace_identities(identity_frame)
-                    if st.stage_unattributed():  # events kept from earlier ingests: attribute them now
-                        merged = st.merge_staged(cfg.ingest.dedupe_window_days, cfg.ingest.accept_beyond_dedupe_window,
-                                                 cfg.ingest.unknown_accounts == "reject")
-                        summary["recovered"] = merged["ingested"]
-                        st.note_newest_event(merged["newest_us"])
+                    # Events kept from earlier ingests: attribute them now, file by file, so what
+                    # they add still belongs to the file they came in.
+                    for file_no in st.unattributed_files():
+                        if st.stage_unattributed(file_no):
+                            summary["recovered"] += _merge(st, cfg, file_no)["ingested"]
             if daily is not None:
                 with st.transaction():
                     summary["daily_rows_loaded"] = st.load_daily_file(daily)
             if engine == "dask" and files:
                 outcomes = _ingest_on_dask(st, files, cfg, rules, scheduler, progress)
             else:
-                outcomes = _ingest_here(st, files, cfg, rules, progress, stdin)
+                outcomes = _ingest_here(st, files, cfg, rules, progress, stdin, again)
             for display, outcome, rejects in outcomes:
                 _add_to_summary(summary, display, outcome)
                 all_rejects.extend(rejects)
@@ -178,12 +183,13 @@ def _add_to_summary(summary: dict, display: str, outcome):
     for key in ("lines", "ingested", "duplicates"):
         summary[key] += getattr(outcome, key)
     summary["lines_rechecked"] += outcome.rechecked_lines
+    summary["taken_back"] += outcome.taken_back
     for group in ("rejected", "unattributed", "held_back"):
         for reason, n in getattr(outcome, group).items():
             summary[group][reason] = summary[group].get(reason, 0) + n
 
 
-def _ingest_here(st, files, cfg, rules, progress, stdin):
+def _ingest_here(st, files, cfg, rules, progress, stdin, again=False):
     """Each file in turn, one transaction each: ``(name, FileResult or error, rejects)``."""
     legacy_digest = st.has_legacy_digests()  # files this run logs use the new hash alone
     for position, item in enumerate(files, start=1):
@@ -193,7 +199,7 @@ def _ingest_here(st, files, cfg, rules, progress, stdin):
             progress(display, position, len(files))
         rejects: list[Reject] = []
         try:
-            result = _ingest_one(st, path, display, cfg, rules, rejects, legacy_digest)
+            result = _ingest_one(st, path, display, cfg, rules, rejects, legacy_digest, again)
         except InputError as exc:
             yield display, str(exc), []
             continue
@@ -224,7 +230,7 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
             client.map(ParsedFile.summary, parsed, pure=False, retries=3), "parsing",
             progress=None if progress is None else (lambda i, n: progress(files[i - 1], i, n)))
         with st.transaction():
-            waiting, seen_before, kept_unattributed = [], [], []  # files to count: (place in outcomes, digest, parsed future)
+            waiting, seen_before = [], []  # files to count: (place in outcomes, digest, parsed future, number)
             first_of_content = {}
             for future, light in zip(parsed, summaries):
                 result = light.result
@@ -234,31 +240,35 @@ def _ingest_on_dask(st, files, cfg, rules, scheduler, progress):
                     outcomes.append((light.file, light.error or result, []))
                     continue
                 first_of_content[light.digest] = light.file
+                file_no = st.next_file_no()
                 seen_before.append(st.claim_ids(*light.ids, cfg.ingest.dedupe_window_days,
-                                                cfg.ingest.accept_beyond_dedupe_window))
-                waiting.append((len(outcomes), light.digest, future))
+                                                cfg.ingest.accept_beyond_dedupe_window, file_no))
+                waiting.append((len(outcomes), light.digest, future, file_no))
                 if light.unattributed is not None and light.unattributed.num_rows:
-                    kept_unattributed.append(light.unattributed)
+                    st.keep_unattributed(file_no, light.unattributed)
                 outcomes.append((light.file, None, light.rejects))
-            counted = gather_in_order(client.map(count_parsed, [f for *_, f in waiting], seen_before,
+            counted = gather_in_order(client.map(count_parsed, [w[2] for w in waiting], seen_before,
                                                  pure=False, retries=3), "counting")
             st.merge_user_daily([table for table, *_ in counted])
-            for table in kept_unattributed:
-                st.keep_unattributed(table)
-            for (place, digest, _), (_, result, first_day, last_day, newest_us) in zip(waiting, counted):
+            for (place, digest, _, file_no), (table, result, first_day, last_day, newest_us) in zip(waiting, counted):
+                if cfg.ingest.keep_file_contributions:
+                    st.add_contributions(file_no, table)
                 name, _, rejects = outcomes[place]
-                st.log_ingest(name, digest, result, first_day, last_day)
+                st.log_ingest(name, digest, result, first_day, last_day, file_no)
                 st.note_newest_event(newest_us)
                 outcomes[place] = (name, result, rejects)
     return outcomes
 
 
 def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_rejects: list,
-                legacy_digest: bool) -> FileResult:
+                legacy_digest: bool, again: bool = False) -> FileResult:
     from .tasks import stage_file
 
+    seen_digests: list[str] = []
+
     def earlier_copy(digests):
-        earlier = st.already_ingested(digests)
+        seen_digests.extend(digests)
+        earlier = None if again else st.already_ingested(digests)
         return None if earlier is None else f"already ingested (same content as {earlier})"
 
     digest, result, file_rejects = stage_file(st, path, display, rules, cfg.fields, skip_reason=earlier_copy,
@@ -266,17 +276,28 @@ def _ingest_one(st, path: str, display: str, cfg: Config, rules: LineRules, all_
     if result.skipped:
         return result
     with st.transaction():
-        merged = st.merge_staged(cfg.ingest.dedupe_window_days, cfg.ingest.accept_beyond_dedupe_window,
-                                 cfg.ingest.unknown_accounts == "reject")
+        if again:  # the earlier ingests of the same content come out first, in this transaction
+            for earlier in st.files_with_content(seen_digests):
+                st.take_back(earlier)
+                result.taken_back += 1
+        file_no = st.next_file_no()
+        merged = _merge(st, cfg, file_no)
         result.ingested = merged["ingested"]
         result.duplicates = merged["duplicates"]
         if merged["held_back"]:
             result.held_back = {"beyond_dedupe_window": merged["held_back"]}
         result.unattributed = merged["unattributed"]
-        st.log_ingest(display, digest, result, merged["first_day"], merged["last_day"])
-        st.note_newest_event(merged["newest_us"])
+        st.log_ingest(display, digest, result, merged["first_day"], merged["last_day"], file_no)
     all_rejects.extend(file_rejects)
     return result
+
+
+def _merge(st, cfg: Config, file_no: int | None) -> dict:
+    """``Store.merge_staged`` under the config's dedupe and account rules."""
+    merged = st.merge_staged(cfg.ingest.dedupe_window_days, cfg.ingest.accept_beyond_dedupe_window,
+                             cfg.ingest.unknown_accounts == "reject", file_no, cfg.ingest.keep_file_contributions)
+    st.note_newest_event(merged["newest_us"])
+    return merged
 
 
 def _nearest_ids(st, account: str) -> str:

@@ -124,13 +124,16 @@ def main():
 @click.option("--accept-beyond-window", is_flag=True, default=None,
               help="With [ingest] dedupe_window_days set: add events whose id is older than the window "
                    "(they cannot be checked for redelivery) instead of holding them back.")
+@click.option("--again", is_flag=True,
+              help="Ingest files whose content was ingested before: what the earlier ingest added is taken "
+                   "back out first, in the same transaction (a file ingested with the wrong settings).")
 @click.option("--keep-stored-days", is_flag=True,
               help="Load --accounts whose time zone changes although their days are already stored; "
                    "those days stay in the old zone (without this the load is refused).")
 @engine_options
 @handle_errors
 def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, fmt, accept_beyond_window,
-           keep_stored_days, engine, scheduler):
+           again, keep_stored_days, engine, scheduler):
     """Ingest JSON-lines events into the activity store.
 
     INPUTS are .jsonl, .jsonl.gz or .parquet files, directories (searched recursively, in sorted
@@ -161,7 +164,8 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
     summary = api.ingest_files(list(inputs), db=db, config=config_path, accounts=accounts,
                                identities=identities, daily=daily, rejects_path=rejects_path,
                                progress=_progress_printer("ingest"), engine=engine, scheduler=scheduler,
-                               accept_beyond_window=accept_beyond_window, keep_stored_days=keep_stored_days)
+                               accept_beyond_window=accept_beyond_window, keep_stored_days=keep_stored_days,
+                               again=again)
     if fmt == "json":
         click.echo(json.dumps(summary, default=str))
     else:
@@ -190,6 +194,8 @@ def _print_ingest_summary(s: dict):
         total = sum(s["rejected"].values())
         reasons = ", ".join(f"{k} {v:,}" for k, v in sorted(s["rejected"].items()))
         err(f"Rejected {total:,} lines ({reasons}); see {s['rejects_file']}.")
+    if s["taken_back"]:
+        err(f"Took back what {s['taken_back']} earlier ingest(s) of the same content had added, then ingested again.")
     if s["recovered"]:
         err(f"Attributed {s['recovered']:,} events kept from earlier ingests, now that identities are loaded.")
     if s["unattributed"]:

@@ -61,4 +61,5 @@ class FileResult:
     held_back: dict = field(default_factory=dict)  # by reason: events not added though valid (beyond_dedupe_window)
     skipped: str | None = None  # reason the whole file was skipped (e.g. already ingested)
     path_taken: str = "fast"  # "fast" (native reader) or "precise" (line by line)
+    taken_back: int = 0  # earlier ingests of the same content taken back out first (ingest --again)
     rechecked_lines: int = 0  # lines of a fast-path file the native reader left to the precise parser

@@ -8,6 +8,8 @@ Tables (schema version ``SCHEMA_VERSION``; ``MIGRATIONS`` brings older stores fo
 - ``accounts``, ``identities`` (user → account over ``[valid_from, valid_to)``).
 - ``unattributed_events``: valid events no account was found for (time, event, user, id hash),
   attributed when identities are loaded later.
+- ``file_contributions``: what each ingested file (``ingest_log.file_no``) added to ``user_daily``,
+  so it can be taken back out (:meth:`Store.take_back`).
 - ``seen_ids``: event ids (every id, or those within a configured dedupe window) with their
   event times; ``ingest_log``: one row per file ingested.
 - ``alert_log``: one row per recorded scan day and open alert (the lifecycle); ``snoozes``.
@@ -80,9 +82,16 @@ MIGRATIONS: dict[int, list[str]] = {
     ],
     # v5: events no account could be found for are kept (what attribution needs), so identities
     # loaded later attribute them.
+    # Each ingested file has a number; what it added (per-user daily counts, ids, kept events)
+    # carries it, so a file ingested with the wrong settings can be taken back out.
     4: [
         """CREATE TABLE unattributed_events (ts_us BIGINT NOT NULL, event VARCHAR NOT NULL,
-               "user" VARCHAR NOT NULL, id_hash UBIGINT)""",
+               "user" VARCHAR NOT NULL, id_hash UBIGINT, file_no BIGINT)""",
+        "CREATE SEQUENCE ingest_file_no START 1",
+        "ALTER TABLE ingest_log ADD COLUMN file_no BIGINT",
+        "ALTER TABLE seen_ids ADD COLUMN file_no BIGINT",
+        """CREATE TABLE file_contributions (file_no BIGINT NOT NULL, account VARCHAR NOT NULL,
+               day DATE NOT NULL, event VARCHAR NOT NULL, "user" VARCHAR NOT NULL, events BIGINT NOT NULL)""",
     ],
 }
 
@@ -278,11 +287,15 @@ class Store:
         ).fetchone()
         return None if row is None else row[0]
 
-    def log_ingest(self, file: str, digest: str, result, first_day, last_day):
+    def next_file_no(self) -> int:
+        """A new number for a file about to be merged (what it adds carries it)."""
+        return self.con.execute("SELECT nextval('ingest_file_no')").fetchone()[0]
+
+    def log_ingest(self, file: str, digest: str, result, first_day, last_day, file_no: int | None = None):
         self.con.execute(
             """INSERT INTO ingest_log (file, content_hash, ingested_at, lines, ingested, duplicates, rejected,
-                                       unattributed, path_taken, first_day, last_day, held_back)
-            VALUES (?, ?, now(), ?, ?, ?, ?, ?, ?, ?, ?, ?)""",
+                                       unattributed, path_taken, first_day, last_day, held_back, file_no)
+            VALUES (?, ?, now(), ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)""",
             [
                 file,
                 digest,
@@ -295,6 +308,7 @@ class Store:
                 first_day,
                 last_day,
                 sum(result.held_back.values()),
+                file_no,
             ],
         )
 
@@ -670,26 +684,91 @@ class Store:
         """The ``unattributed_kept`` view as an Arrow table (what a Dask worker keeps for a file)."""
         return _arrow(self.con, "SELECT * FROM unattributed_kept")
 
-    def keep_unattributed(self, table: pa.Table | None = None):
+    def keep_unattributed(self, file_no: int | None, table: pa.Table | None = None):
         """Keep a file's unattributed events: ``table`` (from a worker) or the ``unattributed_kept``
         view of :meth:`prepare_staged`."""
         if table is None:
-            self.con.execute("INSERT INTO unattributed_events SELECT * FROM unattributed_kept")
+            self.con.execute("INSERT INTO unattributed_events SELECT *, ? FROM unattributed_kept", [file_no])
             return
         _register(self.con, "incoming_unattributed", table)
         try:
-            self.con.execute('INSERT INTO unattributed_events SELECT ts_us, event, "user", id_hash FROM incoming_unattributed')
+            self.con.execute('INSERT INTO unattributed_events SELECT ts_us, event, "user", id_hash, ? '
+                             "FROM incoming_unattributed", [file_no])
         finally:
             self.con.unregister("incoming_unattributed")
 
-    def stage_unattributed(self) -> int:
-        """Move every kept unattributed event back into ``staged`` (to be attributed again by
-        :meth:`merge_staged`, which keeps those still without an account).  Returns how many."""
+    def unattributed_files(self) -> list:
+        """The file numbers (``None`` included) of the kept unattributed events."""
+        return [r[0] for r in self.con.execute(
+            "SELECT DISTINCT file_no FROM unattributed_events ORDER BY file_no NULLS FIRST").fetchall()]
+
+    def stage_unattributed(self, file_no) -> int:
+        """Move the kept unattributed events of file ``file_no`` back into ``staged`` (to be
+        attributed again by :meth:`merge_staged`, which keeps those still without an account).
+        Returns how many."""
+        where = "file_no IS NULL" if file_no is None else f"file_no = {int(file_no)}"
         self.con.execute(
-            """CREATE OR REPLACE TEMP TABLE staged AS
-            SELECT ts_us, event, "user", CAST(NULL AS VARCHAR) AS account, id_hash FROM unattributed_events""")
-        self.con.execute("DELETE FROM unattributed_events")
+            f"""CREATE OR REPLACE TEMP TABLE staged AS
+            SELECT ts_us, event, "user", CAST(NULL AS VARCHAR) AS account, id_hash FROM unattributed_events
+            WHERE {where}""")
+        self.con.execute(f"DELETE FROM unattributed_events WHERE {where}")
         return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
+
+    def add_contributions(self, file_no: int | None, table: pa.Table | None = None):
+        """Record what file ``file_no`` adds: ``table`` (account, day, event, user, events) or the
+        temp table ``new_user_daily``."""
+        if file_no is None:
+            return
+        if table is None:
+            self.con.execute("INSERT INTO file_contributions SELECT ?, * FROM new_user_daily", [file_no])
+            return
+        _register(self.con, "incoming_contributions", table)
+        try:
+            self.con.execute('INSERT INTO file_contributions SELECT ?, account, day, event, "user", events '
+                             "FROM incoming_contributions", [file_no])
+        finally:
+            self.con.unregister("incoming_contributions")
+
+    def files_with_content(self, digests: list[str]) -> list[int]:
+        """Numbers of the logged files with one of these content hashes (files logged before
+        schema 5 have none and cannot be taken back)."""
+        return [r[0] for r in self.con.execute(
+            "SELECT file_no FROM ingest_log WHERE content_hash IN (SELECT unnest(?)) AND file_no IS NOT NULL",
+            [list(digests)]).fetchall()]
+
+    def take_back(self, file_no: int):
+        """Take file ``file_no``'s contribution back out: its per-user counts from ``user_daily``
+        (``daily`` recomputed for the keys it touched), its ids, its kept events, its log row.
+        Events other files delivered with the same ids were counted as duplicates then and
+        stay uncounted; ingesting the file again (``ingest --again``) brings its ids back."""
+        con = self.con
+        added, kept = con.execute(
+            """SELECT (SELECT sum(ingested) FROM ingest_log WHERE file_no = ?),
+                      (SELECT count(*) FROM (SELECT 1 FROM file_contributions WHERE file_no = ? LIMIT 1))""",
+            [file_no, file_no]).fetchone()
+        if added and not kept:
+            file = con.execute("SELECT file FROM ingest_log WHERE file_no = ?", [file_no]).fetchone()[0]
+            raise StoreError(f"{file} was ingested with [ingest] keep_file_contributions = false: what it "
+                             "added was not recorded, so it cannot be taken back out")
+        con.execute("""CREATE OR REPLACE TEMP TABLE taken AS
+            SELECT account, day, event, "user", sum(events) AS events FROM file_contributions
+            WHERE file_no = ? GROUP BY ALL""", [file_no])
+        con.execute("""CREATE OR REPLACE TEMP TABLE remaining AS
+            SELECT u.account, u.day, u.event, u."user", u.events - t.events AS events
+            FROM user_daily u JOIN taken t USING (account, day, event, "user")""")
+        con.execute("""DELETE FROM user_daily USING taken t WHERE user_daily.account = t.account
+            AND user_daily.day = t.day AND user_daily.event = t.event AND user_daily."user" = t."user\"""")
+        con.execute("INSERT INTO user_daily SELECT * FROM remaining WHERE events > 0")
+        con.execute("CREATE OR REPLACE TEMP TABLE taken_keys AS SELECT DISTINCT account, day, event FROM taken")
+        con.execute("""DELETE FROM daily USING taken_keys t
+            WHERE daily.account = t.account AND daily.day = t.day AND daily.event = t.event""")
+        con.execute("""INSERT INTO daily SELECT u.account, u.day, u.event, sum(u.events), count(*)
+            FROM user_daily u SEMI JOIN taken_keys t ON u.account = t.account AND u.day = t.day AND u.event = t.event
+            GROUP BY ALL""")
+        for table in ("seen_ids", "unattributed_events", "file_contributions", "ingest_log"):
+            con.execute(f"DELETE FROM {table} WHERE file_no = ?", [file_no])
+        for table in ("taken", "remaining", "taken_keys"):
+            con.execute(f"DROP TABLE {table}")
 
     def drop_prepared(self):
         self.con.execute("DROP VIEW IF EXISTS unattributed_kept")
@@ -698,7 +777,8 @@ class Store:
             self.con.execute(f"DROP TABLE IF EXISTS {table}")
 
     def merge_staged(self, dedupe_window_days: int = 0, accept_beyond_window: bool = False,
-                     known_accounts_only: bool = False) -> dict:
+                     known_accounts_only: bool = False, file_no: int | None = None,
+                     keep_contributions: bool = True) -> dict:
         """Attribute, dedupe and aggregate the staged events into the daily tables.
 
         Dedupe: the first delivery of an id wins, within this file (:meth:`prepare_staged`) and
@@ -709,12 +789,14 @@ class Store:
         con = self.con
         prepared = self.prepare_staged(known_accounts_only)
         fresh, fresh_count, held_back = self._fresh_events(
-            "prepared", prepared["candidates"] - prepared["repeats"], dedupe_window_days, accept_beyond_window)
+            "prepared", prepared["candidates"] - prepared["repeats"], dedupe_window_days, accept_beyond_window,
+            file_no)
         newest_us = con.execute(f"SELECT max(ts_us) FROM {fresh}").fetchall()[0][0]
         if prepared["unattributed"]:
-            self.keep_unattributed()
+            self.keep_unattributed(file_no)
         grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
-        if self._user_daily_is_empty():
+        keep_contributions = keep_contributions and file_no is not None
+        if self._user_daily_is_empty() and not keep_contributions:
             # A first load (a backfill) has nothing to merge with: group straight into the table.
             con.execute(f"INSERT INTO user_daily {grouped}")
             con.execute("INSERT INTO daily SELECT account, day, event, sum(events), count(*) FROM user_daily GROUP BY ALL")
@@ -725,6 +807,8 @@ class Store:
             con.execute(f"CREATE OR REPLACE TEMP TABLE new_user_daily AS {grouped}")
             self.drop_prepared()
             con.execute("DROP TABLE IF EXISTS fresh")
+            if keep_contributions:
+                self.add_contributions(file_no)
             first_day, last_day = self._merge_new_user_daily()
         return {
             "ingested": fresh_count,
@@ -748,7 +832,8 @@ class Store:
             [int(dedupe_window_days)],
         ).fetchone()[0]
 
-    def _fresh_events(self, source: str, candidates: int, dedupe_window_days: int, accept_beyond_window: bool):
+    def _fresh_events(self, source: str, candidates: int, dedupe_window_days: int, accept_beyond_window: bool,
+                      file_no: int | None = None):
         """The events of ``source`` (id_hash, ts_us, ...) whose id was not seen before, and
         record their ids.  Returns ``(table, count, held_back)``.
 
@@ -782,8 +867,8 @@ class Store:
         # Only ids the window keeps are written (a backfill longer than the window would
         # otherwise write ids only to delete them again).
         keep = "" if cutoff is None else "AND make_timestamptz(ts_us) >= ?"
-        con.execute(f"INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us) FROM {fresh} "
-                    f"WHERE id_hash IS NOT NULL {keep}", [] if cutoff is None else [cutoff])
+        con.execute(f"INSERT INTO seen_ids SELECT id_hash, make_timestamptz(ts_us), ? FROM {fresh} "
+                    f"WHERE id_hash IS NOT NULL {keep}", [file_no] + ([] if cutoff is None else [cutoff]))
         self.forget_old_ids(dedupe_window_days)
         return fresh, fresh_count, held_back
 
@@ -833,7 +918,7 @@ class Store:
         )
 
     def claim_ids(self, id_hash: np.ndarray, ts_us: np.ndarray, dedupe_window_days: int = 0,
-                  accept_beyond_window: bool = False) -> tuple[np.ndarray, np.ndarray]:
+                  accept_beyond_window: bool = False, file_no: int | None = None) -> tuple[np.ndarray, np.ndarray]:
         """One file's event ids (first deliveries within it) against the ids already seen.
 
         Returns ``(seen, held_back)``: the hashes already seen (those events are duplicates) and
@@ -849,7 +934,7 @@ class Store:
                 "SELECT c.id_hash FROM claimed_ids c SEMI JOIN seen_ids s ON s.id_hash = c.id_hash"
             ).fetchnumpy()["id_hash"]
             fresh, _, held = self._fresh_events("claimed_ids", len(id_hash) - len(seen), dedupe_window_days,
-                                                accept_beyond_window)
+                                                accept_beyond_window, file_no)
             held_hashes = np.zeros(0, dtype=np.uint64)
             if held:
                 kept = con.execute(f"SELECT id_hash FROM {fresh}").fetchnumpy()["id_hash"]
