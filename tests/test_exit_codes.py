@@ -21,8 +21,16 @@ def test_0_ran(tmp_path):
     assert run("ingest", path, "--db", tmp_path / "s.duckdb").exit_code == 0
 
 
-# 1: alerts found with --fail-on-alert — tests/test_scan.py::test_cli_table_kind_filter_and_fail_on_alert
-# checks both sides (1 with alerts, 0 with --max-alerts 0) on a planted fleet.
+def test_1_alerts_found_with_fail_on_alert(tmp_path):
+    from ebbwatch.datasets import make_fleet
+
+    fleet = make_fleet(40, 200, seed=4, share_changed=0.5)  # invented fleet with planted changes
+    daily = tmp_path / "daily.parquet"
+    fleet.daily_frame().to_parquet(daily)
+    db = tmp_path / "s.duckdb"
+    assert run("ingest", "--db", db, "--daily", daily).exit_code == 0
+    assert run("scan", "--db", db, "--as-of", fleet.as_of, "--fail-on-alert").exit_code == 1
+    assert run("scan", "--db", db, "--as-of", fleet.as_of, "--fail-on-alert", "--max-alerts", "0").exit_code == 0
 
 
 def test_2_the_command_line_or_config_is_wrong(tmp_path):

@@ -90,8 +90,9 @@ MIGRATIONS: dict[int, list[str]] = {
         "CREATE SEQUENCE ingest_file_no START 1",
         "ALTER TABLE ingest_log ADD COLUMN file_no BIGINT",
         "ALTER TABLE seen_ids ADD COLUMN file_no BIGINT",
-        """CREATE TABLE file_contributions (file_no BIGINT NOT NULL, account VARCHAR NOT NULL,
-               day DATE NOT NULL, event VARCHAR NOT NULL, "user" VARCHAR NOT NULL, events BIGINT NOT NULL)""",
+        # By the 64-bit hash of (account, day, event, user), as ids are kept: a third of the cost
+        # of writing the four columns (0.09 s against 0.28 s for 1.38M rows).
+        "CREATE TABLE file_contributions (file_no BIGINT NOT NULL, key_hash UBIGINT NOT NULL, events BIGINT NOT NULL)",
     ],
 }
 
@@ -143,6 +144,10 @@ def _text_time(expr: str, naive_timezone: str | None) -> tuple[str, str]:
 def _id_hash(column: str) -> str:
     """SQL for an event id's 64-bit hash (NULL without an id), the same on both staging paths."""
     return f"CASE WHEN {column} <> '' THEN hash({column}) END"
+
+
+# A per-user daily row's key as one 64-bit hash (``file_contributions``).
+_USER_DAY_KEY = 'hash(account, day, event, "user")'
 
 
 def _daily_count_column(columns: list[str]) -> str:
@@ -714,18 +719,19 @@ class Store:
         self.con.execute(f"DELETE FROM unattributed_events WHERE {where}")
         return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
 
-    def add_contributions(self, file_no: int | None, table: pa.Table | None = None):
-        """Record what file ``file_no`` adds: ``table`` (account, day, event, user, events) or the
-        temp table ``new_user_daily``."""
+    def add_contributions(self, file_no: int | None, source: str | pa.Table = "new_user_daily"):
+        """Record what file ``file_no`` adds: the rows (account, day, event, user, events) of the
+        temp table named ``source``, or of an Arrow table (from a worker)."""
         if file_no is None:
             return
-        if table is None:
-            self.con.execute("INSERT INTO file_contributions SELECT ?, * FROM new_user_daily", [file_no])
+        key = _USER_DAY_KEY
+        if isinstance(source, str):
+            self.con.execute(f"INSERT INTO file_contributions SELECT ?, {key}, events FROM {source}", [file_no])
             return
-        _register(self.con, "incoming_contributions", table)
+        _register(self.con, "incoming_contributions", source)
         try:
-            self.con.execute('INSERT INTO file_contributions SELECT ?, account, day, event, "user", events '
-                             "FROM incoming_contributions", [file_no])
+            self.con.execute(f"INSERT INTO file_contributions SELECT ?, {key}, events FROM incoming_contributions",
+                             [file_no])
         finally:
             self.con.unregister("incoming_contributions")
 
@@ -751,15 +757,15 @@ class Store:
             raise StoreError(f"{file} was ingested with [ingest] keep_file_contributions = false: what it "
                              "added was not recorded, so it cannot be taken back out")
         con.execute("""CREATE OR REPLACE TEMP TABLE taken AS
-            SELECT account, day, event, "user", sum(events) AS events FROM file_contributions
-            WHERE file_no = ? GROUP BY ALL""", [file_no])
-        con.execute("""CREATE OR REPLACE TEMP TABLE remaining AS
+            SELECT key_hash, sum(events) AS events FROM file_contributions WHERE file_no = ? GROUP BY ALL""",
+                    [file_no])
+        con.execute(f"""CREATE OR REPLACE TEMP TABLE remaining AS
             SELECT u.account, u.day, u.event, u."user", u.events - t.events AS events
-            FROM user_daily u JOIN taken t USING (account, day, event, "user")""")
-        con.execute("""DELETE FROM user_daily USING taken t WHERE user_daily.account = t.account
-            AND user_daily.day = t.day AND user_daily.event = t.event AND user_daily."user" = t."user\"""")
+            FROM (SELECT *, {_USER_DAY_KEY} AS key_hash FROM user_daily) u JOIN taken t USING (key_hash)""")
+        con.execute("""DELETE FROM user_daily USING remaining r WHERE user_daily.account = r.account
+            AND user_daily.day = r.day AND user_daily.event = r.event AND user_daily."user" = r."user\"""")
         con.execute("INSERT INTO user_daily SELECT * FROM remaining WHERE events > 0")
-        con.execute("CREATE OR REPLACE TEMP TABLE taken_keys AS SELECT DISTINCT account, day, event FROM taken")
+        con.execute("CREATE OR REPLACE TEMP TABLE taken_keys AS SELECT DISTINCT account, day, event FROM remaining")
         con.execute("""DELETE FROM daily USING taken_keys t
             WHERE daily.account = t.account AND daily.day = t.day AND daily.event = t.event""")
         con.execute("""INSERT INTO daily SELECT u.account, u.day, u.event, sum(u.events), count(*)
@@ -796,9 +802,12 @@ class Store:
             self.keep_unattributed(file_no)
         grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
         keep_contributions = keep_contributions and file_no is not None
-        if self._user_daily_is_empty() and not keep_contributions:
-            # A first load (a backfill) has nothing to merge with: group straight into the table.
+        if self._user_daily_is_empty():
+            # A first load (a backfill) has nothing to merge with: group straight into the table,
+            # which then holds exactly what this file adds.
             con.execute(f"INSERT INTO user_daily {grouped}")
+            if keep_contributions:
+                self.add_contributions(file_no, "user_daily")
             con.execute("INSERT INTO daily SELECT account, day, event, sum(events), count(*) FROM user_daily GROUP BY ALL")
             first_day, last_day = con.execute("SELECT min(day), max(day) FROM user_daily").fetchone()
             self.drop_prepared()
