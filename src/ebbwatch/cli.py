@@ -136,8 +136,9 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
            again, keep_stored_days, engine, scheduler):
     """Ingest JSON-lines events into the activity store.
 
-    INPUTS are .jsonl, .jsonl.gz or .parquet files, directories (searched recursively, in sorted
-    order) or - for standard input. Each file is one transaction; a file already ingested (same content) is
+    INPUTS are JSON-lines files (.jsonl, .ndjson or .json; plain, .gz, .bz2 or .zst), .parquet
+    files, directories (searched recursively, in sorted order; other files there are listed with
+    the reason they were passed over) or - for standard input. Each file is one transaction; a file already ingested (same content) is
     skipped. Bad lines go to the rejects file with their line number and reason; the rest of the
     file is ingested.
 
@@ -157,6 +158,8 @@ def ingest(inputs, db, config_path, accounts, identities, daily, rejects_path, f
       ebbwatch ingest /mnt/events/2026-11/ --engine dask --scheduler tcp://10.0.0.5:8786
       zcat today.jsonl.gz | ebbwatch ingest -
       ebbwatch ingest exports/events-2026-11.parquet
+      ebbwatch ingest --identities identities.csv        # attribute events kept without an account
+      ebbwatch ingest events/2026-11-30.jsonl --again    # take back and redo, after fixing the config
       ebbwatch ingest --daily warehouse_daily.parquet
     """
     if not (inputs or accounts or identities or daily):
