@@ -295,3 +295,32 @@ def test_explain_text_never_shows_a_placeholder_for_a_missing_value():
     line = _recent({"window_days": 7, "level": 2.0, "usual_level": None, "change_pct": None, "percentile": None,
                     "p_low": 0.5, "p_high": 0.5})
     assert "usual -" not in line and "-%" not in line and "no usual level yet" in line
+
+
+@pytest.mark.parametrize("name", [
+    "acct-054", "22.0", "#1 +2 -3 .4 !5", "*bold* _it_ `code` ~~gone~~", "[link](http://x) ![img](http://y)",
+    "a|b", "back\\slash &amp; &copy;", "Zeta <i>GmbH</i> @here",
+])
+def test_markdown_cells_escape_only_what_markdown_reads(name):
+    # Issue 24: rendered by markdown-it-py (a CommonMark reference implementation, with GitHub's
+    # table and strikethrough rules on), every cell shows its text as given and no markup; ids and
+    # numbers are written as typed, without backslashes.
+    import html
+    import re
+
+    import pandas as pd
+    from markdown_it import MarkdownIt
+
+    from ebbwatch.frames import ALERT_COLUMNS
+    from ebbwatch.report import render_alerts
+    from ebbwatch.textsafe import plain_text
+
+    frame = pd.DataFrame([{c: None for c in ALERT_COLUMNS} | {
+        "account": "acct-054", "name": name, "kind": "drop", "severity": 22.0, "change_pct": -40.0,
+        "message": name}])
+    text = render_alerts(frame, "markdown")
+    assert "acct-054 |" in text and "22.0" in text  # no escaping where none is needed
+    rendered = MarkdownIt("commonmark").enable("table").enable("strikethrough").render(text)
+    assert not re.search(r"<(em|strong|code|a|img|s|del)\b", rendered)
+    cells = re.findall(r"<td>(.*?)</td>", rendered)
+    assert html.unescape(cells[1]) == plain_text(name) == html.unescape(cells[-1])

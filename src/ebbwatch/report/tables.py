@@ -6,6 +6,7 @@ import csv
 import io
 import json
 import math
+import re
 
 from ..alerts import SCHEMA_VERSION
 from ..textsafe import csv_cell, plain_text
@@ -34,11 +35,15 @@ def alert_records(alerts) -> list[dict]:
     return out
 
 
+# What Markdown (CommonMark and GitHub's tables) could read as markup inside a table cell: the
+# escape itself, code, emphasis, links and images (an escaped "[" disarms "![...](...)"),
+# strikethrough, entities and the cell separator.  "#", "-", "+", "." and "!" mark up only at
+# the start of a line, which a cell never is, so ids such as acct-054 and numbers stay as typed.
+_MARKDOWN_SPECIAL = re.compile(r"([\\`*_\[\]~&|])")
+
+
 def _markdown_cell(value) -> str:
-    text = plain_text("" if value is None else value)
-    for ch in "\\`*_{}[]()#+-.!|~":
-        text = text.replace(ch, "\\" + ch)
-    return text
+    return _MARKDOWN_SPECIAL.sub(r"\\\1", plain_text("" if value is None else value))
 
 
 def _fmt(value, column) -> str:
