@@ -123,8 +123,11 @@ def test_cli_table_kind_filter_and_fail_on_alert(fleet_store):
     table = runner.invoke(main, ["scan", "--db", db, "--kind", "surge"])
     assert table.exit_code == 0
     body = table.stdout.splitlines()
-    assert body[0].split()[:3] == ["account", "name", "kind"]
+    assert body[0].split()[:4] == ["Account", "Name", "State", "Kind"]  # words, not field names
     assert all(" surge " in line for line in body[2:])
+    assert "Baseline model" not in table.stdout and "log-normal" not in table.stdout
+    wide = runner.invoke(main, ["scan", "--db", db, "--kind", "surge", "--wide"]).stdout
+    assert "Percentile" in wide.splitlines()[0] and "Baseline model" in wide.splitlines()[0]
     assert "accounts judged" in table.stderr
     assert runner.invoke(main, ["scan", "--db", db, "--fail-on-alert"]).exit_code == 1
     assert runner.invoke(main, ["scan", "--db", db, "--fail-on-alert", "--max-alerts", "0"]).exit_code == 0
@@ -142,7 +145,7 @@ def test_cli_other_formats(fleet_store, fmt):
         doc = json.loads(result.stdout)
         assert len(doc["alerts"]) == 3 and doc["summary"]["judged"] > 0
     else:
-        assert result.stdout.startswith("| account | name | kind")
+        assert result.stdout.startswith("| Account | Name | State | Kind")
 
 
 def test_cli_errors_map_to_exit_codes(tmp_path, fleet_store):

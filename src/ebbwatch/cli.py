@@ -338,14 +338,17 @@ def export_index(db, config_path, output, as_of, history_days, accounts_per_part
 @click.option("--chunk-size", type=click.IntRange(min=1), default=10_000, show_default=True,
               help="Accounts scored at once (bounds memory).")
 @click.option("--all", "show_all", is_flag=True, help="Print every open alert, not only new and escalated ones.")
+@click.option("--wide", is_flag=True,
+              help="The table and Markdown add the model's details: level and usual level, window, "
+                   "percentile, p- and q-value, baseline model.")
 @click.option("--record/--no-record", default=None,
               help="Record the day's alert states. Default: record when --as-of is not given.")
 @threads_option
 @engine_options
 @shared_dir_option
 @handle_errors
-def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, record, threads, engine,
-         scheduler, shared_dir):
+def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_size, show_all, wide, record, threads,
+         engine, scheduler, shared_dir):
     """Judge every account's recent days against its own history and print ranked alerts.
 
     Kinds: drop (a sudden fall), stop (no activity, unusual for the account), slide (a gradual
@@ -363,6 +366,7 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
       ebbwatch scan --format jsonl | python examples/post_to_chat.py
       ebbwatch scan --as-of 2026-11-30 --kind drop --kind stop --max-alerts 20 --fail-on-alert
       ebbwatch scan --all --format csv > open-alerts.csv
+      ebbwatch scan --wide                 # with levels, percentile, p- and q-values
 
     \b
     Exit codes: 0 ran; 1 alerts found with --fail-on-alert; 2 usage or config error;
@@ -376,7 +380,7 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
     from .report import render_alerts
 
     summary = alerts.attrs["summary"]
-    click.echo(render_alerts(alerts, fmt, summary), nl=False)
+    click.echo(render_alerts(alerts, fmt, summary, wide=wide), nl=False)
     # On stderr whatever the format, so a cron log that keeps the JSON lines records what happened.
     click.echo(
         f"{summary['alerts']} alert(s) shown of {summary['open_alerts']} open as of {summary['as_of']}"

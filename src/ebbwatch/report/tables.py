@@ -12,7 +12,15 @@ from ..alerts import SCHEMA_VERSION
 from ..textsafe import csv_cell, plain_text
 
 ALERT_FORMATS = ("table", "jsonl", "csv", "markdown", "json")
-TABLE_COLUMNS = ("account", "name", "kind", "severity", "change_pct", "percentile", "onset", "baseline")
+# The terminal and Markdown tables: what a person reads by default, then the model's details
+# (--wide).  Headers are words, not field names; the JSON field each shows is in the README.
+TABLE_COLUMNS = ("account", "name", "state", "kind", "severity", "change_pct", "onset")
+WIDE_COLUMNS = TABLE_COLUMNS + ("level", "baseline_level", "window_days", "percentile", "p_value", "q_value",
+                                "baseline")
+HEADERS = {"account": "Account", "name": "Name", "state": "State", "kind": "Kind", "severity": "Severity",
+           "change_pct": "Change", "onset": "Since", "level": "Level", "baseline_level": "Usual",
+           "window_days": "Days", "percentile": "Percentile", "p_value": "p", "q_value": "q",
+           "baseline": "Baseline model"}
 
 
 def _clean(value):
@@ -53,14 +61,18 @@ def _fmt(value, column) -> str:
         return f"{value:+.0f}%"
     if column == "percentile":
         return f"{value:.1f}"
-    if column == "severity":
+    if column in ("severity", "level", "baseline_level"):
         return f"{value:.1f}"
+    if column in ("p_value", "q_value"):
+        return f"{value:.2g}"
     return plain_text(value)
 
 
-def render_alerts(alerts, fmt: str = "table", summary: dict | None = None) -> str:
-    """The alerts as text in ``fmt`` (one of ``ALERT_FORMATS``); ends with a newline if not empty."""
+def render_alerts(alerts, fmt: str = "table", summary: dict | None = None, wide: bool = False) -> str:
+    """The alerts as text in ``fmt`` (one of ``ALERT_FORMATS``); ends with a newline if not empty.
+    ``wide``: the table and Markdown formats add the model's details (``WIDE_COLUMNS``)."""
     records = alert_records(alerts)
+    columns = [c for c in (WIDE_COLUMNS if wide else TABLE_COLUMNS) if c in alerts.columns]
     if fmt == "jsonl":
         return "".join(json.dumps(r, ensure_ascii=False) + "\n" for r in records)
     if fmt == "json":
@@ -75,19 +87,21 @@ def render_alerts(alerts, fmt: str = "table", summary: dict | None = None) -> st
             writer.writerow({k: csv_cell(json.dumps(v) if isinstance(v, (list, dict)) else v) for k, v in r.items()})
         return buffer.getvalue()
     if fmt == "markdown":
-        lines = ["| " + " | ".join(TABLE_COLUMNS) + " | message |", "|" + "---|" * (len(TABLE_COLUMNS) + 1)]
+        lines = ["| " + " | ".join(HEADERS[c] for c in columns) + " | Message |", "|" + "---|" * (len(columns) + 1)]
         for r in records:
-            cells = [_markdown_cell(_fmt(r[c], c)) for c in TABLE_COLUMNS] + [_markdown_cell(r["message"])]
+            cells = [_markdown_cell(_fmt(r[c], c)) for c in columns] + [_markdown_cell(r["message"])]
             lines.append("| " + " | ".join(cells) + " |")
         return "\n".join(lines) + "\n"
     if fmt == "table":
         if not records:
             return "No alerts.\n"
-        rows = [[_fmt(r[c], c) for c in TABLE_COLUMNS] for r in records]
-        widths = [min(max(len(c), *(len(row[i]) for row in rows)), 32) for i, c in enumerate(TABLE_COLUMNS)]
+        heads = [HEADERS[c] for c in columns]
+        rows = [[_fmt(r[c], c) for c in columns] for r in records]
+        widths = [min(max(len(h), *(len(row[i]) for row in rows)), 32) for i, h in enumerate(heads)]
+
         def line(cells):
             return "  ".join(str(cell)[:w].ljust(w) for cell, w in zip(cells, widths)).rstrip()
-        out = [line(TABLE_COLUMNS), line(["-" * w for w in widths])]
+        out = [line(heads), line(["-" * w for w in widths])]
         out += [line(row) for row in rows]
         return "\n".join(out) + "\n"
     raise ValueError(f"unknown format {fmt!r}; expected one of {', '.join(ALERT_FORMATS)}")
