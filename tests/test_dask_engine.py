@@ -128,6 +128,7 @@ def _store_tables(db):
         return {name: con.execute(f"SELECT * EXCLUDE ({skip}) FROM {name} ORDER BY ALL").fetchall() if skip
                 else con.execute(f"SELECT * FROM {name} ORDER BY ALL").fetchall()
                 for name, skip in (("daily", ""), ("user_daily", ""), ("seen_ids", ""), ("unattributed_events", ""),
+                                   ("file_contributions", ""),
                                    ("ingest_log", "ingested_at"))}
     finally:
         con.close()
