@@ -627,15 +627,31 @@ def demo(directory, n_accounts, n_days, seed):
     for row in stories.itertuples():
         mark = "flagged" if row.account in found else "quiet"
         click.echo(f"  {row.account}  {row.story:<30} expect {row.expect:<6} got {mark:<8} {row.detail}")
+    planted = set(stories["account"])
+    outside = alerts[~alerts["account"].isin(planted)]
+    if len(outside):
+        click.echo("\nAlerts outside the planted stories (no story was planted there; the invented noise, "
+                   "holidays and seasons made them):")
+        for row in outside.itertuples():
+            click.echo(f"  {row.account}  {row.kind:<6} severity {row.severity:.1f}  {row.message}")
+    from datetime import timedelta
     from pathlib import Path
 
-    db = str(Path(scenario.directory) / "ebbwatch.duckdb")
-    report_path = str(Path(scenario.directory) / "report.html")
-    api.write_report(report_path, db=db, today=scenario.as_of + __import__("datetime").timedelta(days=1))
+    folder = Path(scenario.directory)
+    db = str(folder / "ebbwatch.duckdb")
+    report_path = str(folder / "report.html")
+    api.write_report(report_path, db=db, today=scenario.as_of + timedelta(days=1))
     top = alerts["account"].iloc[0] if len(alerts) else scenario.stories["account"].iloc[0]
-    say(f"\nThe store is {db}; the HTML report is {report_path}. Try next: "
-        f"ebbwatch explain {top} --db {db} ; ebbwatch backtest --db {db} --outcomes {scenario.outcomes_csv} --step 7 ; "
-        f"ebbwatch scan --db {db} --format jsonl")
+    say(f"\nThe store is {db}; the HTML report is {report_path}. Try next:")
+    for command in (f"ebbwatch explain {top} --db {db}",
+                    f"ebbwatch backtest --db {db} --outcomes {scenario.outcomes_csv} --step 7",
+                    f"ebbwatch scan --db {db} --format jsonl",
+                    f"ebbwatch status --db {db}"):
+        say(f"  {command}")
+    if directory is None:
+        size = sum(f.stat().st_size for f in folder.rglob("*") if f.is_file())
+        say(f"The demo's files ({size / 1e6:.0f} MB) are in a temporary folder, {folder}; remove them with "
+            f"rm -r {folder} (or give --dir to choose where they go).")
 
 
 if __name__ == "__main__":  # pragma: no cover
