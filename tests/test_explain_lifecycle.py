@@ -324,3 +324,17 @@ def test_markdown_cells_escape_only_what_markdown_reads(name):
     assert not re.search(r"<(em|strong|code|a|img|s|del)\b", rendered)
     cells = re.findall(r"<td>(.*?)</td>", rendered)
     assert html.unescape(cells[1]) == plain_text(name) == html.unescape(cells[-1])
+
+
+def test_mrr_and_segment_show_only_when_accounts_csv_gives_them():
+    import pandas as pd
+
+    from ebbwatch.frames import ALERT_COLUMNS
+    from ebbwatch.report import render_alerts
+
+    frame = pd.DataFrame([{c: None for c in ALERT_COLUMNS} | {"account": a, "name": a, "kind": "drop", "severity": 5.0,
+                                                              "state": "new", "message": "m"} for a in ("a-1", "a-2")])
+    assert "MRR" not in render_alerts(frame, "table") and "Segment" not in render_alerts(frame, "markdown")
+    frame.attrs["account_details"] = {"a-1": {"mrr": 1250.0, "segment": None}, "a-2": {"mrr": None, "segment": None}}
+    table = render_alerts(frame, "table").splitlines()
+    assert table[0].split()[:3] == ["Account", "Name", "MRR"] and "1,250" in table[2] and "-" in table[3].split()

@@ -123,7 +123,11 @@ def test_cli_table_kind_filter_and_fail_on_alert(fleet_store):
     table = runner.invoke(main, ["scan", "--db", db, "--kind", "surge"])
     assert table.exit_code == 0
     body = table.stdout.splitlines()
-    assert body[0].split()[:4] == ["Account", "Name", "State", "Kind"]  # words, not field names
+    # Words, not field names; MRR and segment from accounts.csv (issue 24).
+    assert body[0].split()[:6] == ["Account", "Name", "Segment", "MRR", "State", "Kind"]
+    first = body[2].split()
+    account = fleet.accounts.set_index("account").loc[first[0]]
+    assert first[-7:-5] == [account["segment"], f"{account['mrr']:,.0f}"]
     assert all(" surge " in line for line in body[2:])
     assert "Baseline model" not in table.stdout and "log-normal" not in table.stdout
     wide = runner.invoke(main, ["scan", "--db", db, "--kind", "surge", "--wide"]).stdout
@@ -145,7 +149,7 @@ def test_cli_other_formats(fleet_store, fmt):
         doc = json.loads(result.stdout)
         assert len(doc["alerts"]) == 3 and doc["summary"]["judged"] > 0
     else:
-        assert result.stdout.startswith("| Account | Name | State | Kind")
+        assert result.stdout.startswith("| Account | Name | Segment | MRR | State | Kind")
 
 
 def test_cli_errors_map_to_exit_codes(tmp_path, fleet_store):

@@ -757,6 +757,10 @@ def scan(
         shown = alerts[wanted].head(limit).reset_index(drop=True)  # alerts come most severe first
         if drivers and len(shown):
             _add_drivers(st, loader, scores, shown, as_of, cfg.scan.window_days)
+        known = st.accounts().set_index("account")
+        # What accounts.csv says of the shown accounts (MRR, segment), for the tables people read.
+        details = {a: {"mrr": _clean_value(known.at[a, "mrr"]), "segment": _clean_value(known.at[a, "segment"])}
+                   for a in shown["account"] if a in known.index}
     masked_days = [
         (date(1970, 1, 1) + timedelta(days=loader.start_day + int(i))).isoformat()
         for i in np.flatnonzero(loader.masked)
@@ -785,7 +789,15 @@ def scan(
     shown.attrs["fleet_factor"] = loader.fleet_factor
     shown.attrs["masked"] = loader.masked
     shown.attrs["start_day"] = loader.start_day
+    shown.attrs["account_details"] = details
     return shown
+
+
+def _clean_value(value):
+    """A cell from accounts.csv, with pandas' missing values as None."""
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return None
+    return value.item() if hasattr(value, "item") else value
 
 
 def _period_days(start_day: int, end_day: int, masked, panel_start: int) -> np.ndarray:

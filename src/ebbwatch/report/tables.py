@@ -20,7 +20,7 @@ WIDE_COLUMNS = TABLE_COLUMNS + ("level", "baseline_level", "window_days", "perce
 HEADERS = {"account": "Account", "name": "Name", "state": "State", "kind": "Kind", "severity": "Severity",
            "change_pct": "Change", "onset": "Since", "level": "Level", "baseline_level": "Usual",
            "window_days": "Days", "percentile": "Percentile", "p_value": "p", "q_value": "q",
-           "baseline": "Baseline model"}
+           "baseline": "Baseline model", "mrr": "MRR", "segment": "Segment"}
 
 
 def _clean(value):
@@ -65,6 +65,8 @@ def _fmt(value, column) -> str:
         return f"{value:.1f}"
     if column in ("p_value", "q_value"):
         return f"{value:.2g}"
+    if column == "mrr":
+        return f"{value:,.0f}"
     return plain_text(value)
 
 
@@ -73,6 +75,14 @@ def render_alerts(alerts, fmt: str = "table", summary: dict | None = None, wide:
     ``wide``: the table and Markdown formats add the model's details (``WIDE_COLUMNS``)."""
     records = alert_records(alerts)
     columns = [c for c in (WIDE_COLUMNS if wide else TABLE_COLUMNS) if c in alerts.columns]
+    if fmt in ("table", "markdown"):
+        # MRR and segment from accounts.csv, when it gives them for any shown account.
+        details = alerts.attrs.get("account_details") or {}
+        for key in ("segment", "mrr"):
+            if any((details.get(r["account"]) or {}).get(key) is not None for r in records):
+                columns.insert(columns.index("state"), key)
+                for r in records:
+                    r[key] = (details.get(r["account"]) or {}).get(key)
     if fmt == "jsonl":
         return "".join(json.dumps(r, ensure_ascii=False) + "\n" for r in records)
     if fmt == "json":
