@@ -119,3 +119,34 @@ def test_renders_in_headless_chromium(report, tmp_path):
     shot = tmp_path / "report.png"
     assert chromium(path.as_uri(), tmp_path, f"--screenshot={shot}", "--window-size=1200,2000").returncode == 0
     assert shot.stat().st_size > 10_000
+
+
+def _relative_luminance(hex_colour: str) -> float:
+    # WCAG 2.1, "relative luminance" (sRGB channels linearised, then 0.2126 R + 0.7152 G + 0.0722 B).
+    def linear(c):
+        return c / 12.92 if c <= 0.03928 else ((c + 0.055) / 1.055) ** 2.4
+    r, g, b = (int(hex_colour[i:i + 2], 16) / 255 for i in (1, 3, 5))
+    return 0.2126 * linear(r) + 0.7152 * linear(g) + 0.0722 * linear(b)
+
+
+def _contrast(a: str, b: str) -> float:
+    # WCAG 2.1, "contrast ratio": (L1 + 0.05) / (L2 + 0.05), L1 the lighter.
+    high, low = sorted((_relative_luminance(a), _relative_luminance(b)), reverse=True)
+    return (high + 0.05) / (low + 0.05)
+
+
+def test_up_and_down_have_their_own_colours_that_pass_wcag_contrast(report):
+    # Issue 24: colour shows direction, beside the shapes (solid/dashed border, ▼/▲) that serve
+    # greyscale and colour-blind readers.  Checked against WCAG 2.1 SC 1.4.3 (4.5:1 for text, as
+    # the arrows are text) on the page's white, which also covers SC 1.4.11 (3:1 for the borders).
+    from ebbwatch.report.html import CSS, DOWN, UP
+
+    assert _contrast("#000000", "#ffffff") == pytest.approx(21.0)  # the formula's known extreme
+    assert DOWN != UP
+    for colour in (DOWN, UP):
+        assert _contrast(colour, "#ffffff") >= 4.5
+    assert f"border-left: 5px solid {DOWN}" in CSS and f"border-left: 5px dashed {UP}" in CSS
+    _, text, alerts = report
+    directions = set(alerts["direction"])
+    assert all(f'<div class="card {d}"' in text for d in directions)
+    assert '<span class="dir">' in text

@@ -17,6 +17,11 @@ WINDOW = "#c7a34a"
 ONSET = "#5b3f8c"
 SEGMENT = "#8c2d04"
 MASK = "#9aa5ad"
+# Direction: a burnt orange for falls and a blue for rises, a pair that colour-blind readers tell
+# apart; both reach 4.5:1 on white (WCAG 2.1 text contrast), and the solid/dashed border and the
+# ▼/▲ arrow still say the direction in greyscale.
+DOWN = "#a6470a"
+UP = "#2166ac"
 
 CSS = f"""
 body {{ font-family: system-ui, -apple-system, "Segoe UI", sans-serif; color: {INK}; margin: 2rem auto;
@@ -28,7 +33,8 @@ h1 {{ font-size: 1.5rem; margin-bottom: .2rem; }} h2 {{ font-size: 1.15rem; marg
 .tile b {{ display: block; font-size: 1.4rem; }}
 .cards {{ display: grid; grid-template-columns: repeat(auto-fill, minmax(330px, 1fr)); gap: 1rem; }}
 .card {{ border: 1px solid #c9d2d8; border-radius: 6px; padding: .7rem .9rem; }}
-.card.down {{ border-left: 5px solid {INK}; }} .card.up {{ border-left: 5px dashed {INK}; }}
+.card.down {{ border-left: 5px solid {DOWN}; }} .card.up {{ border-left: 5px dashed {UP}; }}
+.card.down .dir {{ color: {DOWN}; }} .card.up .dir {{ color: {UP}; }}
 .card h3 {{ font-size: 1rem; margin: 0 0 .3rem 0; }}
 .card p {{ margin: .25rem 0; font-size: .9rem; }}
 .tag {{ display: inline-block; border: 1px solid {INK}; border-radius: 3px; padding: 0 .35rem; font-size: .8rem; }}
@@ -136,7 +142,7 @@ def render_report(data: dict) -> str:
         drivers = "; ".join(esc(d) for d in c["driver_words"]) or "no single driver stands out"
         out.append(
             f'<div class="card {esc(c["direction"])}" data-account="{esc(c["account"])}">'
-            f'<h3>{arrow} {esc(c["name"])} <span class="muted">({esc(c["account"])})</span></h3>'
+            f'<h3><span class="dir">{arrow}</span> {esc(c["name"])} <span class="muted">({esc(c["account"])})</span></h3>'
             f'<p><span class="tag">{esc(c["kind"])}</span> <span class="tag">{esc(c["state"])}</span> '
             f'severity {c["severity"]:.1f}</p>'
             + series_chart(c["series"], band=c["band"], window=c["window"], onset_index=c["onset_index"], masked=c["masked"],
