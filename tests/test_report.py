@@ -78,6 +78,11 @@ def test_one_card_per_alert_ranked(report):
     # Each card's chart draws the segments of the account's history (at least one level each).
     for card in text.split('<div class="card ')[1:]:
         assert '<line class="segment"' in card.split("</svg>")[0]
+    # Each card gives the account's MRR and segment from accounts.csv (issue 24).
+    known = make_fleet(80, 200, seed=41, share_changed=0.3).accounts.set_index("account")
+    for account, card in zip(cards, text.split('<div class="card ')[1:]):
+        facts = known.loc[account]
+        assert f"MRR {facts['mrr']:,.0f}; segment {facts['segment']}</p>" in card
 
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")

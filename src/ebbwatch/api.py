@@ -1209,6 +1209,7 @@ def report_data(*, as_of=None, limit: int = 50, db: str | None = None, config=No
             "masked": [j for j, m in enumerate(masked[-shown_days:]) if m],
             "segments": [(max(a, first_shown) - first_shown, b - first_shown, level)
                          for a, b, level in all_segments[i] if b >= first_shown],
+            **alerts.attrs.get("account_details", {}).get(alert["account"], {"mrr": None, "segment": None}),
         })
     idx, _, value, _, _ = totals
     activity = np.bincount(idx, weights=value, minlength=len(all_accounts))

@@ -44,6 +44,16 @@ svg {{ display: block; }}
 """
 
 
+def _account_facts(card) -> str:
+    """"; MRR 1,250; segment team" from accounts.csv, as far as it gives them."""
+    facts = []
+    if card.get("mrr") is not None:
+        facts.append(f"MRR {card['mrr']:,.0f}")
+    if card.get("segment"):
+        facts.append(f"segment {esc(card['segment'])}")
+    return "".join(f"; {f}" for f in facts)
+
+
 def esc(value) -> str:
     return html.escape("" if value is None else str(value), quote=True)
 
@@ -144,7 +154,7 @@ def render_report(data: dict) -> str:
             f'<div class="card {esc(c["direction"])}" data-account="{esc(c["account"])}">'
             f'<h3><span class="dir">{arrow}</span> {esc(c["name"])} <span class="muted">({esc(c["account"])})</span></h3>'
             f'<p><span class="tag">{esc(c["kind"])}</span> <span class="tag">{esc(c["state"])}</span> '
-            f'severity {c["severity"]:.1f}</p>'
+            f'severity {c["severity"]:.1f}{_account_facts(c)}</p>'
             + series_chart(c["series"], band=c["band"], window=c["window"], onset_index=c["onset_index"], masked=c["masked"],
                            segments=c.get("segments", ()))
             + f'<p>Change {esc(c["change"])} vs its usual level; {esc(c["rank"] or "no history of its own to rank against")}; '
