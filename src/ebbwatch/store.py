@@ -220,6 +220,11 @@ class Store:
         else:
             self.con.execute("COMMIT")
 
+    def _has_rows(self, table: str, where: str = "", params=()) -> bool:
+        """Whether ``table`` holds a row (matching ``where``), reading at most one."""
+        return bool(self.con.execute(
+            f"SELECT count(*) FROM (SELECT 1 FROM {table} {where} LIMIT 1)", list(params)).fetchone()[0])
+
     def schema_version(self) -> int:
         return int(self.con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchall()[0][0])
 
@@ -632,7 +637,7 @@ class Store:
                 "SELECT unattributed, count(*) FROM attributed WHERE unattributed IS NOT NULL GROUP BY 1"
             ).fetchall())
             source = "attributed"
-        if known_accounts_only and con.execute("SELECT count(*) FROM (SELECT 1 FROM accounts LIMIT 1)").fetchone()[0]:
+        if known_accounts_only and self._has_rows("accounts"):
             earlier = "s.unattributed" if without_account else "NULL"
             con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE known_checked AS
@@ -748,11 +753,8 @@ class Store:
         Events other files delivered with the same ids were counted as duplicates then and
         stay uncounted; ingesting the file again (``ingest --again``) brings its ids back."""
         con = self.con
-        added, kept = con.execute(
-            """SELECT (SELECT sum(ingested) FROM ingest_log WHERE file_no = ?),
-                      (SELECT count(*) FROM (SELECT 1 FROM file_contributions WHERE file_no = ? LIMIT 1))""",
-            [file_no, file_no]).fetchone()
-        if added and not kept:
+        added = con.execute("SELECT sum(ingested) FROM ingest_log WHERE file_no = ?", [file_no]).fetchone()[0]
+        if added and not self._has_rows("file_contributions", "WHERE file_no = ?", [file_no]):
             file = con.execute("SELECT file FROM ingest_log WHERE file_no = ?", [file_no]).fetchone()[0]
             raise StoreError(f"{file} was ingested with [ingest] keep_file_contributions = false: what it "
                              "added was not recorded, so it cannot be taken back out")
@@ -854,7 +856,7 @@ class Store:
         """
         con = self.con
         cutoff = self._window_cutoff(source, dedupe_window_days)
-        if not con.execute("SELECT count(*) FROM (SELECT 1 FROM seen_ids LIMIT 1)").fetchall()[0][0] and cutoff is None:
+        if cutoff is None and not self._has_rows("seen_ids"):
             fresh, fresh_count, held_back = source, candidates, 0
         else:
             con.execute(
@@ -971,13 +973,13 @@ class Store:
         return self._merge_new_user_daily()
 
     def _user_daily_is_empty(self) -> bool:
-        return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM user_daily LIMIT 1)").fetchall()[0][0] == 0
+        return not self._has_rows("user_daily")
 
     def _merge_new_user_daily(self) -> tuple:
         """Fold the temp table ``new_user_daily`` into ``user_daily`` and ``daily`` (the touched
         account-days are recomputed whole).  Returns the first and last day touched."""
         con = self.con
-        touched_any = con.execute("SELECT count(*) FROM (SELECT 1 FROM new_user_daily LIMIT 1)").fetchall()[0][0] > 0
+        touched_any = self._has_rows("new_user_daily")
         store_empty = self._user_daily_is_empty()
         first_day, last_day = con.execute("SELECT min(day), max(day) FROM new_user_daily").fetchone()
         if touched_any and store_empty:
@@ -1068,7 +1070,7 @@ class Store:
                    sum(CAST(CAST({count} AS DOUBLE) AS BIGINT)) AS events, max(CAST({users} AS BIGINT)) AS users
             FROM {source} GROUP BY ALL"""
         )
-        empty = self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily LIMIT 1)").fetchall()[0][0] == 0
+        empty = not self._has_rows("daily")
         if not empty:
             self.con.execute(
                 """DELETE FROM daily USING daily_in t
@@ -1124,7 +1126,7 @@ class Store:
     def unknown_accounts(self, top: int = 5) -> dict | None:
         """Accounts with events that the accounts table does not know (``None`` while no
         accounts are loaded): ``{"accounts", "events", "top": [{"account", "events"}, ...]}``."""
-        if not self.con.execute("SELECT count(*) FROM (SELECT 1 FROM accounts LIMIT 1)").fetchone()[0]:
+        if not self._has_rows("accounts"):
             return None
         rows = self.con.execute(
             """SELECT d.account, sum(d.events) AS events FROM daily d ANTI JOIN accounts a USING (account)
@@ -1444,7 +1446,7 @@ class Store:
             self.con.unregister("driver_accounts")
 
     def has_account(self, account: str) -> bool:
-        return self.con.execute("SELECT count(*) FROM (SELECT 1 FROM daily WHERE account = ? LIMIT 1)", [account]).fetchall()[0][0] > 0
+        return self._has_rows("daily", "WHERE account = ?", [account])
 
 
 def _migrate(con, path: str):

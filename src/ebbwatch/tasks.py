@@ -149,19 +149,25 @@ def _settle_doubtful_lines(st, path, display, rules, fields, staged: int, index,
                 return None
             doubtful = st.doubtful_staged_rows(rules.earliest_us, rules.latest_us)
             _, numbers, starts, ends = index.nonblank_lines(path, doubtful)
-    lines = zip(numbers.tolist(), read_spans(path, starts, ends))
-    checked = FileResult(file=display)
-    recovered = precise_records(path, display, rules, checked, rejects, lines)
-    ordinal_of_line = dict(zip(numbers.tolist(), doubtful.tolist()))
-    recovered = recovered.append_column(
-        "ordinal", pa.array([ordinal_of_line[n] for n in recovered["line"].to_pylist()], pa.int64())
-    ).drop_columns(["line"])
-    st.settle_doubtful_staged(doubtful, recovered)
-    result.rejected = checked.rejected
-    result.rechecked_lines = int(doubtful.size)
+    checked = _decide_doubtful(st, path, display, rules, doubtful, numbers, read_spans(path, starts, ends),
+                               result, rejects)
     # Lines the precise parser finds blank (a byte-order mark alone) are not lines it counts.
     result.lines = staged - doubtful.size + checked.lines
     return result.lines - sum(checked.rejected.values())
+
+
+def _decide_doubtful(st, path, display, rules, doubtful, line_numbers, raw_lines, result, rejects) -> FileResult:
+    """The precise parser's verdict on the doubted rows (``doubtful`` ordinals, ascending, with
+    their ``line_numbers`` and bytes): valid ones replace their rows in ``staged``, bad ones are
+    counted in ``result`` and added to ``rejects``.  Returns the precise parser's own counts."""
+    checked = FileResult(file=display)
+    recovered = precise_records(path, display, rules, checked, rejects, zip(line_numbers.tolist(), raw_lines))
+    ordinals = doubtful[np.searchsorted(line_numbers, recovered["line"].to_numpy())]
+    st.settle_doubtful_staged(doubtful, recovered.append_column("ordinal", pa.array(ordinals, pa.int64()))
+                              .drop_columns(["line"]))
+    result.rejected = checked.rejected
+    result.rechecked_lines = int(doubtful.size)
+    return checked
 
 
 def _stage_parquet(st, path, display, rules: LineRules, fields, skip_reason, legacy_digest):
@@ -170,7 +176,7 @@ def _stage_parquet(st, path, display, rules: LineRules, fields, skip_reason, leg
     the same values on a JSON line would be (a reject's ``line`` is the row's 1-based number)."""
     result = FileResult(file=display)
     rejects: list[Reject] = []
-    digests, _, _ = scan_file(path, legacy_digest)
+    digests, _, _ = scan_file(path, legacy_digest, measure_lines=False)
     reason = skip_reason(digests) if skip_reason else None
     if reason is not None:
         result.skipped = reason
@@ -181,15 +187,8 @@ def _stage_parquet(st, path, display, rules: LineRules, fields, skip_reason, leg
     result.lines = staged
     doubtful = st.doubtful_staged_rows(rules.earliest_us, rules.latest_us)
     if doubtful.size:
-        rows = st.parquet_rows(path, doubtful, fields)
-        lines = ((int(n) + 1, json.dumps(row, default=_json_value).encode()) for n, row in zip(doubtful, rows))
-        checked = FileResult(file=display)
-        recovered = precise_records(path, display, rules, checked, rejects, lines)
-        recovered = recovered.append_column("ordinal", pa.array(
-            [n - 1 for n in recovered["line"].to_pylist()], pa.int64())).drop_columns(["line"])
-        st.settle_doubtful_staged(doubtful, recovered)
-        result.rejected = checked.rejected
-        result.rechecked_lines = int(doubtful.size)
+        rows = [json.dumps(row, default=_json_value).encode() for row in st.parquet_rows(path, doubtful, fields)]
+        _decide_doubtful(st, path, display, rules, doubtful, doubtful + 1, rows, result, rejects)
     return digests[0], result, rejects
 
 

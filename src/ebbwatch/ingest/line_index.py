@@ -51,10 +51,13 @@ class LineIndex:
         self._maybe_blank.append(maybe_blank.astype(np.int64) + self.size)
         self.size += len(block)
 
+    def _first_lines(self) -> np.ndarray:
+        """The index of each block's first line, and the line count at the end."""
+        return np.concatenate([[0], np.cumsum([rel.size for rel in self._relative], dtype=np.int64)])
+
     def _line_starts(self, lines: np.ndarray) -> np.ndarray:
         """Byte offsets of the given 0-based line indices (ascending or not)."""
-        counts = np.array([rel.size for rel in self._relative], dtype=np.int64)
-        first_line = np.concatenate([[0], np.cumsum(counts)])
+        first_line = self._first_lines()
         block = np.searchsorted(first_line, lines, side="right") - 1
         out = np.empty(lines.size, dtype=np.int64)
         for b in np.unique(block):
@@ -64,8 +67,7 @@ class LineIndex:
 
     def _line_of_start(self, offsets: np.ndarray) -> np.ndarray:
         """0-based line indices of lines starting at the given byte offsets."""
-        counts = np.array([rel.size for rel in self._relative], dtype=np.int64)
-        first_line = np.concatenate([[0], np.cumsum(counts)])
+        first_line = self._first_lines()
         block = np.searchsorted(np.array(self._bases, dtype=np.int64), offsets, side="right") - 1
         out = np.empty(offsets.size, dtype=np.int64)
         for b in np.unique(block):
@@ -75,7 +77,7 @@ class LineIndex:
 
     @property
     def line_count(self) -> int:
-        return int(sum(rel.size for rel in self._relative))
+        return int(self._first_lines()[-1])
 
     def _spans(self, lines: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         starts = self._line_starts(lines)

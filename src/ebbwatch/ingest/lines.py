@@ -73,9 +73,8 @@ def _native_reader_json(text: str):
     the fields ebbwatch reads).  Only lines strict parsing refused come here."""
     if not _NATIVE_EXTENSION.search(text):
         return None  # none of the three: the line is bad for both parsers
-    out, i, n, in_string, last = [], 0, len(text), False, ""
     text = text.strip(LINE_SPACE)
-    n = len(text)
+    out, i, n, in_string, last = [], 0, len(text), False, ""
     while i < n:
         c = text[i]
         if in_string:

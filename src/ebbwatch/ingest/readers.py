@@ -183,7 +183,8 @@ CONTENT_HASH = "xxh3-128"
 LEGACY_CONTENT_HASH = "sha256"
 
 
-def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None) -> tuple[list[str], int, int]:
+def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None,
+              measure_lines: bool = True) -> tuple[list[str], int, int]:
     """One pass over a file: its content hashes (of the bytes as stored), its longest line in
     bytes and an upper bound of its deepest bracket nesting (of the decompressed text for gzip).
     DuckDB's reader enforces neither a per-line size limit nor Python's nesting limit, so the
@@ -195,7 +196,8 @@ def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None) -
     new one, and on the ingest benchmark's 285 MB it takes 0.012 s against 0.17 s, in a thread
     that competes with DuckDB for the same two cores.  It is not a cryptographic hash: whoever
     can write the input files could craft one to be skipped (they could as well remove lines).
-    With ``index``, the same pass records where each line starts (see ``LineIndex``).
+    With ``index``, the same pass records where each line starts (see ``LineIndex``); without
+    ``measure_lines`` (a Parquet file has no lines) it only hashes, and returns 0 and 0.
     """
     hashers = [(CONTENT_HASH, xxhash.xxh3_128())]
     if legacy:
@@ -203,6 +205,8 @@ def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None) -
     longest = _LongestLine()
 
     def feed(text: bytes):
+        if not measure_lines:
+            return
         newlines = np.flatnonzero(np.frombuffer(text, dtype=np.uint8) == 10)
         longest.feed(text, newlines)
         if index is not None:
