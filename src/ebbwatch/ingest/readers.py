@@ -113,7 +113,9 @@ def looks_like_csv(path: str, peek_bytes: int = 1 << 16) -> str | None:
     except (EOFError, OSError, zlib.error):
         return None
     lines = [line.strip() for line in head.split(b"\n")[:3] if line.strip()]
-    if len(lines) < 2 or lines[0].startswith((b"{", b"[", b"\xef\xbb\xbf{")):
+    # Any line that opens a JSON object or array makes it JSON lines (with some bad lines: the
+    # same fields give JSON lines equal comma counts too, so those alone do not decide).
+    if len(lines) < 2 or any(line.lstrip(b"\xef\xbb\xbf").startswith((b"{", b"[")) for line in lines):
         return None
     try:
         json.loads(lines[0])
