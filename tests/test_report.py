@@ -1,9 +1,12 @@
 """The HTML report: self-contained, escaped, and rendered by a real browser."""
 
+import json
+import os
 import re
 import shutil
 import subprocess
 from html.parser import HTMLParser
+from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
@@ -14,6 +17,9 @@ from ebbwatch.datasets import make_fleet
 
 HOSTILE = '<script>alert("x")</script><img src=x onerror=alert(1)> & "Co"'
 HOSTILE_EVENT = "<b>doc.edit</b>"
+HOSTILE_SEGMENT = "<i>team</i> & co"
+# Where the browser test keeps its screenshot after the run (a test artifact to look at).
+ARTIFACTS = Path(os.environ.get("EBBWATCH_TEST_ARTIFACTS", Path(__file__).resolve().parents[1] / "build" / "test-artifacts"))
 
 
 @pytest.fixture(scope="module")
@@ -25,6 +31,7 @@ def report(tmp_path_factory):
     daily.to_parquet(tmp / "daily.parquet")
     accounts = fleet.accounts.copy()
     accounts["name"] = [f"{HOSTILE} {i}" for i in range(len(accounts))]
+    accounts.loc[accounts["segment"] == "team", "segment"] = HOSTILE_SEGMENT
     accounts.to_csv(tmp / "accounts.csv", index=False)
     db = str(tmp / "s.duckdb")
     ebbwatch.ingest_files([], db=db, daily=str(tmp / "daily.parquet"), accounts=str(tmp / "accounts.csv"))
@@ -67,6 +74,10 @@ def test_data_values_are_escaped(report):
     body = "".join(parsed.text)
     assert HOSTILE in body  # it is shown, as text
     assert HOSTILE_EVENT in body
+    assert HOSTILE_SEGMENT not in text and f"segment {HOSTILE_SEGMENT}" in body
+    # The index shows every account's name, as text.
+    index = text.split('<table class="index">')[1]
+    assert HOSTILE not in index and "&lt;script&gt;" in index
 
 
 def test_one_card_per_alert_ranked(report):
@@ -80,9 +91,42 @@ def test_one_card_per_alert_ranked(report):
         assert '<line class="segment"' in card.split("</svg>")[0]
     # Each card gives the account's MRR and segment from accounts.csv (issue 24).
     known = make_fleet(80, 200, seed=41, share_changed=0.3).accounts.set_index("account")
+    known.loc[known["segment"] == "team", "segment"] = HOSTILE_SEGMENT
     for account, card in zip(cards, text.split('<div class="card ')[1:]):
         facts = known.loc[account]
-        assert f"MRR {facts['mrr']:,.0f}; segment {facts['segment']}</p>" in card
+        segment = facts["segment"].replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+        assert f"MRR {facts['mrr']:,.0f}; segment {segment}</p>" in card
+
+
+def test_alerts_also_ordered_by_mrr_and_the_overview_gives_mrr_at_stake(report):
+    _, text, alerts = report
+    known = make_fleet(80, 200, seed=41, share_changed=0.3).accounts.set_index("account")
+    table = text.split('<table class="by-mrr">')[1].split("</table>")[0]
+    listed = re.findall(r'\(([^)]+)\)</span></td>', table)
+    assert sorted(listed) == sorted(alerts["account"])
+    mrr = [known.loc[a, "mrr"] for a in listed]
+    assert mrr == sorted(mrr, reverse=True)
+    # Each row links to its card.
+    for number in re.findall(r'href="#card-(\d+)"', table):
+        assert f'id="card-{number}"' in text
+    # The overview's MRR at stake: the MRR of accounts with open downward alerts, shown or not.
+    open_ = alerts.attrs["lifecycle"]
+    down = sorted(set(open_.loc[(open_["direction"] == "down") & (open_["state"] != "resolved"), "account"]))
+    stake = known.loc[down, "mrr"].sum()
+    assert f"MRR in accounts with open downward alerts<b>{stake:,.0f}</b>" in text
+
+
+def test_index_lists_every_account_the_scan_saw(report):
+    path, text, alerts = report
+    scores = alerts.attrs["scores"]
+    index = text.split('<table class="index">')[1].split("</table>")[0]
+    rows = re.findall(r'<tr data-account="([^"]+)">(.*?)</tr>', index)
+    assert [a for a, _ in rows] == sorted(scores["account"])
+    states = dict(rows)
+    for account, kind in zip(alerts["account"], alerts["kind"]):
+        assert f"{kind} (new)" in states[account]
+    judged = scores.loc[scores["status"] == "judged", "account"]
+    assert all("<svg class=\"spark\"" in states[a] for a in judged)
 
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
@@ -108,21 +152,73 @@ def test_console_check_catches_errors(tmp_path):
     assert console_errors(chromium(bad.as_uri(), tmp_path, "--dump-dom").stderr)
 
 
+# Run in the browser on a copy of the report (the report itself has no scripts): where each
+# card's title, chart and tick labels were laid out, written into the page for --dump-dom.
+LAYOUT_PROBE = """<script>
+const box = e => { const r = e.getBoundingClientRect(); return [r.left, r.top, r.right, r.bottom]; };
+const out = {cards: [], fleet: null, index_rows: document.querySelectorAll("table.index tbody tr").length};
+const chart = svg => ({svg: box(svg), ticks: [...svg.querySelectorAll("text.tick")].map(t => ({
+  axis: t.classList.contains("x") ? "x" : "y", text: t.textContent, box: box(t)}))});
+for (const card of document.querySelectorAll("div.card")) {
+  out.cards.push({title: box(card.querySelector("h3")), ...chart(card.querySelector("svg.chart"))});
+}
+out.fleet = chart(document.querySelector("svg.fleet"));
+const pre = document.createElement("pre"); pre.id = "layout"; pre.textContent = JSON.stringify(out);
+document.body.appendChild(pre);
+</script>"""
+
+
+def _overlap(a, b) -> bool:
+    return a[0] < b[2] - 0.5 and b[0] < a[2] - 0.5 and a[1] < b[3] - 0.5 and b[1] < a[3] - 0.5
+
+
+def _check_chart(chart, what):
+    ticks = chart["ticks"]
+    assert sum(t["axis"] == "x" for t in ticks) >= 2 and sum(t["axis"] == "y" for t in ticks) >= 2, (what, ticks)
+    for t in ticks:
+        left, top, right, bottom = t["box"]
+        assert right - left > 2 and bottom - top > 2, (what, t)  # rendered, with a size
+        svg = chart["svg"]
+        assert left >= svg[0] - 0.5 and right <= svg[2] + 0.5 and top >= svg[1] - 0.5 and bottom <= svg[3] + 0.5, (what, t)
+    for i, a in enumerate(ticks):
+        for b in ticks[i + 1:]:
+            assert not _overlap(a["box"], b["box"]), (what, a, b)
+    x_labels = [t["text"] for t in ticks if t["axis"] == "x"]
+    assert all(re.fullmatch(r"(Jan|Feb|Mar|Apr|May|Jun|Jul|Aug|Sep|Oct|Nov|Dec) \d{1,2}( \d{4})?", x) for x in x_labels), x_labels
+
+
 @pytest.mark.skipif(CHROMIUM is None, reason="Chromium is not installed (.ci/run installs Debian's chromium)")
 def test_renders_in_headless_chromium(report, tmp_path):
-    path, _, alerts = report
+    path, text, alerts = report
     dom = chromium(path.as_uri(), tmp_path, "--dump-dom")
     assert dom.returncode == 0
     assert not console_errors(dom.stderr)
     cards = re.findall(r'<div class="card (?:down|up)"', dom.stdout)
     assert len(cards) == len(alerts)
-    charts = re.findall(r'<svg class="chart".*?</svg>', dom.stdout, flags=re.S)
+    charts = re.findall(r'<svg class="chart[^"]*".*?</svg>', dom.stdout, flags=re.S)
     assert len(charts) == len(alerts) + 1  # one per card and the fleet factor
     for chart in charts:
-        d = re.search(r'<path d="([^"]*)"', chart).group(1)
+        d = re.search(r'<path class="level" d="([^"]*)"', chart).group(1)
         assert re.match(r"M[\d.]+,[\d.]+(\s*[ML][\d.]+,[\d.]+)+", d), d[:80]
-    shot = tmp_path / "report.png"
-    assert chromium(path.as_uri(), tmp_path, f"--screenshot={shot}", "--window-size=1200,2000").returncode == 0
+
+    # Layout as the browser drew it: axis labels present, inside their chart, not on top of each
+    # other, and each card's title above its chart, not over it.
+    probed = tmp_path / "probed.html"
+    probed.write_text(text.replace("</body>", LAYOUT_PROBE + "</body>"))
+    layout_dom = chromium(probed.as_uri(), tmp_path, "--dump-dom", "--window-size=1200,2000")
+    layout = json.loads(re.search(r'<pre id="layout">(.*?)</pre>', layout_dom.stdout, flags=re.S).group(1)
+                        .replace("&quot;", '"').replace("&amp;", "&").replace("&lt;", "<").replace("&gt;", ">"))
+    assert len(layout["cards"]) == len(alerts)
+    for n, card in enumerate(layout["cards"]):
+        assert card["title"][3] <= card["svg"][1] + 0.5, f"card {n}: title runs into its chart"
+        _check_chart(card, f"card {n}")
+    _check_chart(layout["fleet"], "fleet chart")
+    assert layout["index_rows"] == len(alerts.attrs["scores"])
+
+    # A screenshot kept as an artifact of the run, for a person to look at.
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    shot = ARTIFACTS / "report.png"
+    assert chromium(path.as_uri(), tmp_path, f"--screenshot={shot}", "--window-size=1200,2400").returncode == 0
     assert shot.stat().st_size > 10_000
 
 

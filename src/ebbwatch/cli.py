@@ -519,10 +519,12 @@ def alerts_command(db, config_path, states, accounts, start, end, fmt, limit):
 @click.option("--limit", type=click.IntRange(min=0), default=50, show_default=True, help="At most this many alert cards.")
 @handle_errors
 def report(db, config_path, html_path, as_of, limit):
-    """Write a self-contained HTML report: fleet overview and one chart per alert.
+    """Write a self-contained HTML report: fleet overview, one chart per alert, an account index.
 
-    The file has no scripts and fetches nothing, so it opens offline and can be attached to an
-    email. Every account, user and event name in it is escaped.
+    Cards come most severe first, then the same alerts by MRR, then every account the scan saw
+    with its state, level against its usual level and a sparkline. The file has no scripts and
+    fetches nothing, so it opens offline and can be attached to an email. Every account, user
+    and event name in it is escaped.
 
     \b
     Examples:

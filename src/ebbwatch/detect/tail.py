@@ -52,3 +52,18 @@ def rolling_window(values, window: int, expected=None, min_valid: int | None = N
         levels = np.divide(sums, weights, out=sums)
     levels[~keep] = np.nan
     return levels, levels * full_weights
+
+
+def trailing_levels(values, weekday_factors, weekdays, window: int = 7) -> np.ndarray:
+    """Each day's weekday-adjusted level over the ``window`` days ending on it, (A, D), NaN for
+    the first ``window - 1`` days and where under half the window's days are valid.
+
+    ``values`` (A, D) activity a day, NaN where missing; ``weekday_factors`` (A, 7) Monday first,
+    each weekday's usual share times seven; ``weekdays`` (D,) 0 = Monday.  A level is in the
+    values' units a day, so it can be drawn with the usual band of 7-day levels on one scale."""
+    values = np.asarray(values, float)
+    expected = np.asarray(weekday_factors, float)[:, np.asarray(weekdays)]
+    out = np.full(values.shape, np.nan)
+    if values.shape[1] >= window:
+        out[:, window - 1:], _ = rolling_window(values, window, expected=expected)
+    return out
