@@ -29,12 +29,18 @@ def test_newer_schema_is_refused_and_left_alone(db):
     con.close()
 
 
+def _pin_schema(monkeypatch, version: int):
+    """Make this build's schema ``version`` (read where the migration and the open check use it)."""
+    monkeypatch.setattr(store_mod.schema, "SCHEMA_VERSION", version)
+    monkeypatch.setattr(store_mod.connection, "SCHEMA_VERSION", version)
+
+
 def test_older_schema_is_migrated(db, monkeypatch):
     # A store at the current version opened by a build one version newer runs the next migration.
     with store_mod.open_store(db):
         pass
     current = store_mod.SCHEMA_VERSION
-    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", current + 1)
+    _pin_schema(monkeypatch, current + 1)
     monkeypatch.setitem(store_mod.MIGRATIONS, current, ["ALTER TABLE accounts ADD COLUMN region VARCHAR"])
     with store_mod.open_store(db) as st:
         assert st.schema_version() == current + 1
@@ -94,7 +100,7 @@ def test_hostile_field_names_stay_quoted(tmp_path, db):
 
 def test_version_1_store_migrates_to_2_keeping_its_data(db, monkeypatch):
     """A store written by the first release (schema 1) opens with today's code and keeps its rows."""
-    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", 1)
+    _pin_schema(monkeypatch, 1)
     with store_mod.open_store(db) as st:
         st.con.execute("INSERT INTO accounts (account) VALUES ('a-1')")
         assert st.schema_version() == 1
@@ -150,7 +156,7 @@ def test_version_2_store_still_recognises_files_logged_by_sha256(tmp_path, db, m
 
     old = tmp_path / "old.jsonl"
     old.write_text('{"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "acc"}\n')
-    monkeypatch.setattr(store_mod, "SCHEMA_VERSION", 2)
+    _pin_schema(monkeypatch, 2)
     with store_mod.open_store(db) as st:
         st.con.execute("INSERT INTO ingest_log (file, sha256, ingested_at, ingested) VALUES (?, ?, now(), 1)",
                        [str(old), hashlib.sha256(old.read_bytes()).hexdigest()])
