@@ -12,6 +12,7 @@ LAYERS = [
     {"tasks"},
     {"config"},
     {"report"},
+    {"outcomes"},
     {"backtest"},
     {"alerts", "explain"},
     {"detect"},

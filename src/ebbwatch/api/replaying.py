@@ -18,7 +18,7 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
              budget: float | None = None, target_precision: float | None = None, db: str | None = None,
              config=None, progress=None, today: date | None = None, chunk_size: int = 10_000,
              engine: str = "local", scheduler: str | None = None, shared_dir: str | None = None,
-             threads: int | None = None) -> dict:
+             threads: int | None = None, save_rates: bool = False) -> dict:
     """Replay the daily scan from ``start`` to ``end`` every ``step`` days against ``outcomes``
     (a CSV ``account,date,outcome``) and return the metrics, a severity sweep and a calibration.
 
@@ -26,6 +26,12 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     process or, with ``engine="dask"``, on a cluster as in :func:`scan`.  Each day's fleet factor
     comes from one fleet-wide sample and each day's Benjamini–Hochberg step sees the whole
     fleet, so the blocks give the same alerts as one pass over every account.
+
+    ``save_rates``: keep in the store what the replay's alerts led to (``outcomes.outcome_counts``:
+    per alert kind and severity band, how many episodes were followed by each outcome within
+    the horizon, and the base rate of accounts with no alert), counting only replay days whose
+    whole horizon had passed by the store's last complete day; ``scan`` then adds the rates to
+    its alerts.
     """
     import functools
 
@@ -50,12 +56,14 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         first_day = st.status()["first_day"]
         if first_day is None:
             raise InputError("the store has no activity yet; ingest events or --daily first")
-        end = end or last_complete_day(st, today)[0]
+        known_until = last_complete_day(st, today)[0]
+        end = end or known_until
         check_as_of(st, end, "--to")
         start = start or first_day + timedelta(days=cfg.scan.min_history_days + cfg.scan.window_days)
         if start > end:
             raise UsageError(f"--from {start} is after --to {end}")
         accounts = st.account_ids()
+        segments = st.accounts().set_index("account")["segment"].dropna().to_dict()
         history = max((end - first_day).days + 1, cfg.scan.window_days + 14)
         loader = PanelLoader(st, cfg, end, history)
         sampled = list(range((start - EPOCH).days, (end - EPOCH).days + 1, step))
@@ -113,6 +121,10 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     if (budget or target_precision) and chosen is None:
         result["calibration"] = {"min_severity": None, "budget": budget, "target_precision": target_precision,
                                  "note": "no severity threshold in the sweep meets it"}
+    if save_rates:
+        result["saved_rates"] = _save_rates(db or cfg.store_path, alerts, exposure, outcome_frame, loader, churn, cfg,
+                                            horizon_days=horizon_days, known_until=known_until, segments=segments,
+                                            replay={"from": start, "to": end, "step_days": step})
     result["_lead_times"] = _lead_list(alerts, outcome_frame, horizon_days)
     result["_alerts"], result["_exposure"] = alerts, exposure  # every replayed alert, for programs
     return result
@@ -133,3 +145,29 @@ def _lead_list(alerts, outcomes, horizon_days) -> list:
         if len(mine):
             leads.append(int((d - mine["as_of"].min()).days))
     return leads
+
+
+def _save_rates(path, alerts, exposure, outcome_frame, loader, churn, cfg, *, horizon_days, known_until, segments,
+                replay) -> dict:
+    """Count what the replay's alerts led to and save it in the store; returns what was saved."""
+    import pandas as pd
+
+    from ..outcomes import NO_ALERT, outcome_counts
+
+    first_judged = {a: d + cfg.scan.min_history_days for a, d in loader.first_full().items()}
+    last_day = (known_until - EPOCH).days
+    eligible = pd.DataFrame({
+        "account": list(first_judged),
+        "first_day": [EPOCH + timedelta(days=int(d)) for d in first_judged.values()],
+        "last_day": [EPOCH + timedelta(days=int(min(churn.get(a, last_day + 1) - 1, last_day))) for a in first_judged],
+    })
+    counts = outcome_counts(alerts, exposure, outcome_frame, horizon_days=horizon_days, known_until=known_until,
+                            eligible=eligible, segments=segments)
+    settings = {"fdr": cfg.scan.fdr, "min_change_pct": cfg.scan.min_change_pct, "min_severity": cfg.scan.min_severity}
+    saved = {**{k: (v.isoformat() if hasattr(v, "isoformat") else v) for k, v in replay.items()},
+             "horizon_days": horizon_days, "known_until": known_until.isoformat(), "settings": settings}
+    with store_mod.open_store(path) as st:
+        st.save_outcome_counts(counts, saved)
+    per_outcome = counts[counts["outcome"] == "churned"] if len(counts) else counts
+    return {**saved, "alert_episodes": int(per_outcome.loc[per_outcome["kind"] != NO_ALERT, "n"].sum()) if len(counts) else 0,
+            "base_accounts": int(per_outcome.loc[per_outcome["kind"] == NO_ALERT, "n"].sum()) if len(counts) else 0}

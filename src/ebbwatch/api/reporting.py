@@ -6,6 +6,7 @@ from datetime import date, timedelta
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from .. import store as store_mod
 from ..alerts import day_to_date
@@ -59,6 +60,7 @@ def report_data(*, as_of=None, limit: int = 50, index_limit: int = INDEX_LIMIT, 
         panel = loader(list(alerts["account"])) if len(alerts) else None
         index_panel = loader(index_accounts) if index_accounts else None
         states = st.alert_log()
+        saved = st.saved_outcome_counts()
         totals = st.weighted_daily(loader.weights, st.account_ids(), as_of - timedelta(days=27), as_of)
         all_accounts = st.account_ids()
     window = cfg.scan.window_days
@@ -121,6 +123,8 @@ def report_data(*, as_of=None, limit: int = 50, index_limit: int = INDEX_LIMIT, 
         "down_accounts": len(down), "cards": cards,
         "index": _index_rows(index_panel, scores, open_alerts, meta, window) if index_panel is not None else [],
         "index_total": len(scores),
+        "at_risk": summary.get("at_risk"),
+        "segments": _segments(meta, open_alerts, saved[0] if saved else None),
         "fleet": {"days": [day_to_date(d).isoformat() for d in range(loader.start_day, loader.end_day + 1)],
                   "factor": [float(f) for f in alerts.attrs["fleet_factor"]], "masked": [bool(m) for m in masked],
                   "masked_days": summary["masked_days"]},
@@ -156,3 +160,15 @@ def write_report(path: str, **kwargs) -> dict:
     data = report_data(**kwargs)
     Path(path).write_text(render_report(data), encoding="utf-8")
     return data
+
+
+def _segments(meta, open_alerts, counts) -> list[dict]:
+    """The report's segment table (``outcomes.segment_table``), as records; empty without segments."""
+    from ..outcomes import segment_table
+
+    if "segment" not in meta or meta["segment"].dropna().empty:
+        return []
+    accounts = meta.reset_index()[["account", "segment"]]
+    alerts = open_alerts[["account", "direction", "kind"]] if len(open_alerts) else \
+        pd.DataFrame(columns=["account", "direction", "kind"])
+    return segment_table(accounts, alerts, counts).to_dict(orient="records")

@@ -144,6 +144,10 @@ def scan(
         # What accounts.csv says of the shown accounts (MRR, segment), for the tables people read.
         details = {a: {"mrr": _clean_value(known.at[a, "mrr"]), "segment": _clean_value(known.at[a, "segment"])}
                    for a in shown["account"] if a in known.index}
+        saved = st.saved_outcome_counts()
+    at_risk = None
+    if saved is not None:
+        shown, at_risk = _with_outcome_rates(shown, alerts, scores, known, *saved)
     masked_days = [
         (date(1970, 1, 1) + timedelta(days=loader.start_day + int(i))).isoformat()
         for i in np.flatnonzero(loader.masked)
@@ -166,6 +170,8 @@ def scan(
         "fleet_factor": fleet_factor_summary(loader.fleet_voters),
         "seconds": round(time.perf_counter() - started, 3),
     }
+    if at_risk is not None:
+        shown.attrs["summary"]["at_risk"] = at_risk
     shown.attrs["scores"] = scores
     shown.attrs["lifecycle"] = lifecycle  # the day's whole judgement: every open alert's state
     shown.attrs["snoozed"] = {a: (u.isoformat(), r) for a, (u, r, _) in snoozed.items()}
@@ -240,3 +246,37 @@ def _add_drivers(st, loader, scores, alerts, as_of, window_days):
     records = [dict(zip(fields, values)) for values in zip(*columns)]
     alerts["message"] = [alert_message(record, record["window_days"], drivers_phrase(found, plain_text))
                          for record, found in zip(records, driver_lists)]
+
+
+def _with_outcome_rates(shown, alerts, scores, known, counts, replay):
+    """The shown alerts with what alerts like them led to in the saved replay (an
+    ``outcome_rates`` column and a sentence in the message), and the recurring revenue — or,
+    without MRR, the usual monthly activity — in all of today's alerted accounts weighted by
+    those rates: ``(shown, at_risk)``."""
+    from ..outcomes import DIRECTION_OUTCOME, rate_sentence, rates_for, rates_table, value_at_risk
+
+    table = rates_table(counts)
+    horizon = int(replay["horizon_days"])
+    shown = shown.copy()
+    rates = [rates_for(table, kind, severity) for kind, severity in zip(shown["kind"], shown["severity"])]
+    shown["outcome_rates"] = rates
+    shown["message"] = [m if (extra := rate_sentence(kind, direction, r, horizon)) is None else f"{m} {extra}"
+                        for m, kind, direction, r in zip(shown["message"], shown["kind"], shown["direction"], rates)]
+    mrr = known["mrr"] if "mrr" in known else None
+    use_mrr = mrr is not None and mrr.notna().any()
+    usual = scores.set_index("account")["baseline_level"]
+    at_risk = {"basis": "mrr" if use_mrr else "activity", "horizon_days": horizon, "replay": replay}
+    for direction in ("down", "up"):
+        values, k, n = [], [], []
+        outcome = DIRECTION_OUTCOME[direction]
+        mine = alerts.loc[alerts["direction"] == direction, ["account", "kind", "severity"]]
+        for account, kind, severity in mine.itertuples(index=False):
+            r = rates_for(table, kind, severity).get(outcome)
+            value = (mrr.get(account) if use_mrr else 30.44 * usual.get(account, np.nan))
+            if r is None or r["rate"] is None or value is None or not np.isfinite(value):
+                continue
+            values.append(float(value))
+            k.append(r["k"])
+            n.append(r["n"])
+        at_risk[direction] = value_at_risk(values, k, n)
+    return shown, at_risk

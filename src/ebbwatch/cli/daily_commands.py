@@ -80,6 +80,11 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
         + ("" if summary["as_of_reason"].startswith("given") else f"; judged {summary['as_of_reason']}") + ".",
         err=True,
     )
+    if summary.get("at_risk"):
+        from ..report.outcome_text import at_risk_lines
+
+        for line in at_risk_lines(summary["at_risk"]):
+            click.echo(line, err=True)
     for change in summary["history_changed"]:
         click.echo(f"Note: {change['file']} ({change['events']:,} events) arrived after the last recorded scan and "
                    f"changed days already judged ({change['first_day']} .. {change['last_day']}).", err=True)

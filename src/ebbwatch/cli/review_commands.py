@@ -52,12 +52,15 @@ def report(db, config_path, html_path, as_of, limit):
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False), help="Precision-recall over the sweep and lead times (.svg/.png).")
 @click.option("--chunk-size", type=click.IntRange(min=1), default=10_000, show_default=True,
               help="Accounts replayed at once (bounds memory).")
+@click.option("--save-rates", is_flag=True,
+              help="Keep in the store what the replay's alerts led to (per kind and severity band); "
+                   "scan then adds these outcome rates to its alerts.")
 @threads_option
 @engine_options
 @shared_dir_option
 @handle_errors
 def backtest_command(db, config_path, outcomes, start, end, step, lead_days, horizon_days, budget, target_precision,
-                     fmt, plot_path, chunk_size, threads, engine, scheduler, shared_dir):
+                     fmt, plot_path, chunk_size, save_rates, threads, engine, scheduler, shared_dir):
     """Replay the daily scan over history: how early and how precisely would it have alerted?
 
     Each replayed day sees only the data up to it (accounts that already churned are left out),
@@ -65,9 +68,15 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
     contracted outcomes, upward ones to expanded. The severity sweep shows the trade-off, and
     --budget or --target-precision picks a threshold and prints the config to paste.
 
+    --save-rates keeps, per alert kind and severity band, how many replayed alert episodes were
+    followed by each outcome within --horizon-days (only replay days whose whole horizon has
+    passed count), and the same for accounts with no alert; from then on each scan alert carries
+    these rates with exact intervals, and the scan says how much MRR its alerts put at stake.
+
     \b
     Examples:
       ebbwatch backtest --outcomes outcomes.csv
+      ebbwatch backtest --outcomes outcomes.csv --step 7 --save-rates
       ebbwatch backtest --outcomes outcomes.csv --step 7 --budget 2 --plot backtest.svg
       ebbwatch backtest --outcomes outcomes.csv --from 2026-06-01 --target-precision 0.5 --format json
     """
@@ -78,7 +87,7 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
     result = api.backtest(outcomes, start=start, end=end, step=step, lead_days=lead_days, horizon_days=horizon_days,
                           budget=budget, target_precision=target_precision, db=db, config=config_path,
                           progress=_progress_printer("replay"), chunk_size=chunk_size, engine=engine,
-                          scheduler=scheduler, shared_dir=shared_dir, threads=threads)
+                          scheduler=scheduler, shared_dir=shared_dir, threads=threads, save_rates=save_rates)
     leads = result.pop("_lead_times")
     result.pop("_alerts"), result.pop("_exposure")
     if plot_path:
@@ -89,6 +98,10 @@ def backtest_command(db, config_path, outcomes, start, end, step, lead_days, hor
     from ..report.backtest_text import render_backtest
 
     _emit(result, fmt, render_backtest)
+    if result.get("saved_rates"):
+        from ..report.outcome_text import saved_rates_line
+
+        click.echo(saved_rates_line(result["saved_rates"]), err=True)
 
 
 @main.command()

@@ -49,7 +49,8 @@ def _today(today: dict) -> str:
             parts.append(f"{a['kind']} alert open since {a['opened']}, {a['state']} (no longer significant "
                          "today, still far from its usual level)")
         else:
-            parts.append(f"{a['kind']}, severity {a['severity']:.1f}, {a['state']} (open since {a['opened']})")
+            parts.append(f"{a['kind']}, severity {a['severity']:.1f}, {a['state']} (open since {a['opened']})"
+                         + (f". {a['outcome_sentence']}" if a.get("outcome_sentence") else ""))
     text = ("alerted: " if today["alerted"] else "not alerted" + ("; " if parts else "")) + "; ".join(parts)
     if today["snoozed_until"]:
         reason = f": {plain_text(today['snooze_reason'])}" if today["snooze_reason"] else ""

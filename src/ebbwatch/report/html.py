@@ -70,7 +70,70 @@ def _overview(data: dict) -> list[str]:
             f'<div class="tile">accounts judged<b>{s["judged"]:,}</b></div>',
             f'<div class="tile">alerts<b>{data["n_alerts"]}</b><span class="muted">{kinds}</span></div>',
             f'<div class="tile">states<b>{sum(data["by_state"].values())}</b><span class="muted">{states}</span></div>',
-            stake, "</div>"]
+            stake, *_risk_tiles(data.get("at_risk")), "</div>", *_risk_note(data.get("at_risk"))]
+
+
+def _risk_tiles(risk) -> list[str]:
+    """MRR at risk and expansion potential, weighted by the saved outcome rates (issue 23)."""
+    if not risk:
+        return []
+    unit = "MRR" if risk["basis"] == "mrr" else "events a month"
+    down, up = risk["down"], risk["up"]
+    return [f'<div class="tile">{unit} at risk<b>{down["expected"]:,.0f}</b><span class="muted">90%: '
+            f'{down["low"]:,.0f}–{down["high"]:,.0f}, {down["accounts"]} account(s)</span></div>',
+            f'<div class="tile">{unit} expansion potential<b>{up["expected"]:,.0f}</b><span class="muted">90%: '
+            f'{up["low"]:,.0f}–{up["high"]:,.0f}, {up["accounts"]} account(s)</span></div>']
+
+
+def _risk_note(risk) -> list[str]:
+    if not risk:
+        return []
+    replay = risk["replay"]
+    what = "MRR" if risk["basis"] == "mrr" else "usual monthly activity (accounts.csv gives no MRR)"
+    return [f'<p class="muted">At risk: the {what} of accounts with downward alerts, each weighted by how often '
+            f'replayed alerts of its kind and strength were followed by a cancellation within {risk["horizon_days"]} '
+            'days; expansion potential: the same for upward alerts and expansions. The intervals simulate each '
+            'account\'s outcome from its rate\'s uncertainty. Accounts whose kind and strength of alert never '
+            f'occurred in the replay count in neither. Rates from the replay {esc(replay["from"])} .. '
+            f'{esc(replay["to"])}, saved {esc(replay["saved_at"][:10])}: frequencies in this product\'s own history, '
+            'not a prediction about any person.</p>']
+
+
+def _share(cell: dict) -> str:
+    mark = " <b>(holds)</b>" if cell["holds"] else ""
+    return f'{100 * cell["share"]:.0f}% vs {100 * cell["rest"]:.0f}% (q {cell["q"]:.2g}){mark}'
+
+
+def _segments(rows: list[dict]) -> list[str]:
+    """The segment table: today's alerts against the rest of the fleet, and the replay's rates."""
+    if not rows:
+        return []
+    replayed = any("replay_down" in r for r in rows)
+
+    def replay(cell):
+        if not cell:
+            return "–"
+        rate = "too few" if cell["rate"] is None else f'{100 * cell["rate"]:.0f}%'
+        return f'{rate} ({cell["k"]} of {cell["n"]})'
+
+    body = "".join(
+        f'<tr><td>{esc(r["segment"])}</td><td class="num">{r["accounts"]:,}</td>'
+        f'<td>{esc(", ".join(f"{k} {v}" for k, v in r["alerts"].items()) or "none")}</td>'
+        f'<td>{_share(r["down"])}</td><td>{_share(r["up"])}</td>'
+        + (f'<td>{replay(r.get("replay_down"))}</td><td>{replay(r.get("replay_up"))}</td>' if replayed else "")
+        + "</tr>" for r in rows)
+    return ['<h2>Segments</h2>',
+            '<p class="muted">Each segment of accounts.csv against the rest of the fleet: the share of its accounts with '
+            'open downward and upward alerts, tested with Fisher\'s exact test and Benjamini&ndash;Hochberg across '
+            'segments and directions; "holds" marks a difference with q under 0.05. A difference without it may be '
+            'chance.' + (' The replay columns: of the segment\'s replayed alert episodes, the share followed by a '
+                         'cancellation (downward) or an expansion (upward) within the horizon.' if replayed else "")
+            + '</p>',
+            '<table class="segments"><thead><tr><th>Segment</th><th>Accounts</th><th>Open alerts</th>'
+            '<th>With downward alerts</th><th>With upward alerts</th>'
+            + ('<th>Replay: cancelled after a downward alert</th><th>Replay: expanded after an upward alert</th>'
+               if replayed else "")
+            + f'</tr></thead><tbody>{body}</tbody></table>']
 
 
 def _fleet_section(data: dict) -> list[str]:
@@ -167,6 +230,7 @@ def render_report(data: dict) -> str:
     out.append("</div>")
     out.append('<div id="by-mrr"></div>')
     out.extend(_by_mrr(data["cards"]))
+    out.extend(_segments(data.get("segments") or []))
     out.append('<div id="index"></div>')
     out.extend(_index(data))
     out.append("""<h2>How to read this, and what it cannot tell you</h2>

@@ -26,6 +26,7 @@ from .alert_state import ALERT_LOG_COLUMNS, AlertState
 from .attribution import Attribution
 from .connection import LOCK_WAIT_SECONDS, MEMORY_LIMIT, StoreConnection, connect, resolve_path
 from .merging import Merging, aggregate_events
+from .outcome_rates import OutcomeRates
 from .reads import ActivityReads
 from .reference import ReferenceTables
 from .schema import MIGRATIONS, SCHEMA_VERSION
@@ -33,7 +34,8 @@ from .sql import FAST_TS_PATTERN, _register, quote_ident, quote_literal
 from .staging import Staging
 
 
-class Store(ReferenceTables, Staging, Attribution, Merging, ActivityReads, AlertState, StoreConnection):
+class Store(ReferenceTables, Staging, Attribution, Merging, ActivityReads, AlertState, OutcomeRates,
+            StoreConnection):
     """An open activity store.  Use :func:`open_store` (or ``with open_store(...) as store``).
 
     Each concern's SQL lives in its own module (one mixin each); this class only puts them on
