@@ -48,18 +48,19 @@ def _fleet(rng):
     daily = pd.DataFrame(rows, columns=["account", "day", "event", "count"])
     daily["day"] = pd.to_datetime(daily["day"])
     meta = pd.DataFrame({"account": accounts, "name": accounts, "mrr": [100.0 + 10 * (i % 7) for i in range(len(accounts))],
-                         "segment": ["<b>north</b>" if i % 2 else "south" for i in range(len(accounts))]})
+                         # Quiet accounts in one segment, so its base rate is theirs alone.
+                         "segment": ["south" if a in sliders else "<b>north</b>" for a in accounts]})
     outcomes = pd.DataFrame(
         [(a, START + timedelta(days=CHURN_AT), "churned") for a in sorted(churners)]
         + [(a, START + timedelta(days=d), "churned") for a, d in quiet_churners.items()],
         columns=["account", "date", "outcome"])
-    return daily, meta, outcomes, churners
+    return daily, meta, outcomes, churners, quiet_churners
 
 
 @pytest.fixture(scope="module")
 def planted(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("planted-outcomes")
-    daily, meta, outcomes, churners = _fleet(np.random.default_rng(23))
+    daily, meta, outcomes, churners, _ = _fleet(np.random.default_rng(23))
     daily.to_parquet(tmp / "daily.parquet")
     meta.to_csv(tmp / "accounts.csv", index=False)
     outcomes.to_csv(tmp / "outcomes.csv", index=False)
@@ -87,9 +88,28 @@ def test_saved_rates_recover_the_planted_share(planted):
     assert low <= CHURN_SHARE <= high, (k, n, low, high)
     base = counts[(counts["kind"] == "none") & (counts["outcome"] == "churned")]
     base_low, base_high = clopper_pearson(base["k"].sum(), base["n"].sum())
-    # The base rate is far below the alerts' and its interval holds the planted quiet churn
-    # (7 quiet accounts over their lives); and nothing expanded or contracted.
-    assert base_high < low
+    assert base_high < low  # far below the alerts' rate
+    # The quiet accounts' base rate against a count made here from the planted churn days alone:
+    # on the replay's days a horizon apart (every 13th weekly day back from the last whose
+    # horizon has passed), the share of living quiet accounts that cancel within 90 days.
+    quiet_base = base[base["segment"] == "<b>north</b>"]
+    q_low, q_high = clopper_pearson(quiet_base["k"].sum(), quiet_base["n"].sum())
+    _, _, _, _, quiet_churners = _fleet(np.random.default_rng(23))
+    start, end = date.fromisoformat(replay["from"]), date.fromisoformat(replay["to"])
+    known = date.fromisoformat(replay["known_until"])
+    sampled = [start + timedelta(days=7 * i) for i in range((end - start).days // 7 + 1)]
+    usable = [d for d in sampled if d + timedelta(days=90) <= known]
+    hits = total = 0
+    for day in usable[::-1][::13]:
+        for i in range(N_QUIET):
+            churn = quiet_churners.get(f"pl-{N_SLIDERS + i:03d}")
+            churn_day = None if churn is None else START + timedelta(days=churn)
+            if churn_day is not None and churn_day <= day:
+                continue  # gone before this day
+            total += 1
+            hits += churn_day is not None and (churn_day - day).days <= 90
+    assert abs(quiet_base["n"].sum() - total) <= 0.05 * total  # the same windows, less any falsely alerted
+    assert q_low <= hits / total <= q_high, (hits, total, q_low, q_high)
     assert counts.loc[counts["outcome"].isin(["expanded", "contracted"]), "k"].sum() == 0
 
 
@@ -132,5 +152,44 @@ def test_report_shows_the_stake_and_the_segments(planted):
     assert result.exit_code == 0, result.stderr
     text = path.read_text()
     assert "MRR at risk" in text and "expansion potential" in text.lower()
+    assert '<p class="outcome">In past replays, ' in text  # cards say what alerts like theirs led to
     segments = text.split('<table class="segments">')[1].split("</table>")[0]
     assert "&lt;b&gt;north&lt;/b&gt;" in segments and "<b>north</b>" not in segments and "south" in segments
+
+
+def test_without_mrr_the_stake_is_in_activity(planted, tmp_path):
+    import shutil
+
+    tmp, db, _, _, _ = planted
+    copy = str(tmp_path / "no-mrr.duckdb")
+    shutil.copy(db, copy)
+    meta = pd.read_csv(tmp / "accounts.csv").drop(columns="mrr")
+    meta.to_csv(tmp_path / "accounts.csv", index=False)
+    ebbwatch.ingest_files([], db=copy, accounts=str(tmp_path / "accounts.csv"))
+    alerts = ebbwatch.scan(db=copy, as_of=str(START + timedelta(days=SLIDE_FROM + 25)), max_alerts=500)
+    risk = alerts.attrs["summary"]["at_risk"]
+    assert risk["basis"] == "activity" and risk["down"]["accounts"] > 0
+    # Each account's usual monthly activity (its usual level a day times 30.44) weighted by its rate.
+    scores = alerts.attrs["scores"].set_index("account")
+    expected = 0.0
+    for account, kind, rates in zip(alerts["account"], alerts["kind"], alerts["outcome_rates"]):
+        churned = rates.get("churned") if kind != "surge" else None
+        if churned and churned["rate"] is not None:
+            expected += 30.44 * scores.at[account, "baseline_level"] * churned["k"] / churned["n"]
+    assert risk["down"]["expected"] == pytest.approx(expected)
+    result = CliRunner().invoke(main, ["scan", "--db", copy, "--as-of", str(START + timedelta(days=SLIDE_FROM + 25))])
+    assert "events a month expected to cancel" in result.stderr
+
+
+def test_report_with_the_new_sections_renders_in_chromium(planted, tmp_path):
+    from .test_report import CHROMIUM, chromium, console_errors
+
+    if CHROMIUM is None:
+        pytest.skip("Chromium is not installed (.ci/run installs Debian's chromium)")
+    tmp, db, _, _, _ = planted
+    path = tmp_path / "report.html"
+    ebbwatch.api.write_report(str(path), db=db, as_of=str(START + timedelta(days=SLIDE_FROM + 25)))
+    dom = chromium(path.as_uri(), tmp_path, "--dump-dom")
+    assert dom.returncode == 0 and not console_errors(dom.stderr)
+    assert '<table class="segments">' in dom.stdout and "MRR at risk" in dom.stdout
+    assert "<b>north</b>" not in dom.stdout and "&lt;b&gt;north&lt;/b&gt;" in dom.stdout

@@ -43,6 +43,7 @@ def report_data(*, as_of=None, limit: int = 50, index_limit: int = INDEX_LIMIT, 
     from ..alerts import history_rank
     from ..detect import history_segments
     from ..explain import drivers_phrase
+    from ..outcomes import rate_sentence
 
     cfg = _config(config)
     alerts = scan(as_of=as_of, db=db, config=config, max_alerts=limit, today=today)
@@ -91,7 +92,12 @@ def report_data(*, as_of=None, limit: int = 50, index_limit: int = INDEX_LIMIT, 
         users = [d for d in alert["drivers"] if d["type"] == "user"]
         if users:
             words.append(drivers_phrase(users, str))
+        rates = alert.get("outcome_rates")
+        risk = summary.get("at_risk")
+        outcome_line = (rate_sentence(alert["kind"], alert["direction"], rates, risk["horizon_days"])
+                        if isinstance(rates, dict) and risk else None)
         cards.append({
+            "outcome_line": outcome_line,
             "account": alert["account"], "name": alert["name"], "kind": alert["kind"], "direction": alert["direction"],
             "state": alert["state"], "severity": alert["severity"], "percentile": _finite(alert["percentile"]),
             "rank": history_rank(_finite(alert["percentile"]), alert["direction"]),

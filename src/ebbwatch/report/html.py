@@ -161,7 +161,8 @@ def _card(number: int, c: dict) -> str:
             + account_chart(c["days"], c["raw"], c["level"], band=c["band"], window=c["window"],
                             onset_index=c["onset_index"], masked=c["masked"], segments=c.get("segments", ()))
             + f'<p>Change {esc(c["change"])} vs its usual level; {esc(c["rank"] or "no history of its own to rank against")}; '
-            f'onset {esc(c["onset"] or "not dated")}.</p><p>Drivers: {drivers}.</p></div>')
+            f'onset {esc(c["onset"] or "not dated")}.</p><p>Drivers: {drivers}.</p>'
+            + (f'<p class="outcome">{esc(c["outcome_line"])}</p>' if c.get("outcome_line") else "") + '</div>')
 
 
 def _by_mrr(cards: list[dict]) -> list[str]:
