@@ -79,6 +79,10 @@ def test_sentence_and_lookup():
     assert rate_sentence("slide", "down", rates, 90) == (
         "In past replays, 9 of 26 slides this strong (severity 3–5) were followed by a cancellation within 90 days.")
     assert rates_for(table, "slide", 12.0) == {}
+    few = rates_for(rates_table(_counts([("", "drop", 1, "churned", 2, 9)])), "drop", 4.0)
+    assert rate_sentence("drop", "down", few, 90) == (
+        "Past replays had only 9 drops this strong (severity 3–5): too few to tell how often a cancellation followed.")
+    assert rate_sentence("drop", "down", {}, 90) is None
     assert band_label(0) == "under 3" and band_label(3) == "10 and over" and band_label(0, 3) == "any"
 
 

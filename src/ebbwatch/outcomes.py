@@ -219,13 +219,18 @@ def rates_for(table: pd.DataFrame, kind: str, severity: float) -> dict:
 
 def rate_sentence(kind: str, direction: str, rates: dict, horizon_days: int) -> str | None:
     """"In past replays, 9 of 26 slides this strong (severity 3–5) were followed by a
-    cancellation within 90 days." — or None when the rate is not shown (too few alerts)."""
+    cancellation within 90 days."; where the replay had too few such alerts, says so instead;
+    None when it had none."""
     outcome = DIRECTION_OUTCOME[direction]
     r = rates.get(outcome)
-    if not r or r["rate"] is None:
+    if not r:
         return None
+    plural = KIND_PLURAL.get(kind, kind)
     strength = "" if r["bands"] == "any" else f" this strong (severity {r['bands']})"
-    return (f"In past replays, {r['k']} of {r['n']} {KIND_PLURAL.get(kind, kind)}{strength} "
+    if r["rate"] is None:
+        return (f"Past replays had only {r['n']} {plural}{strength}: too few to tell how often "
+                f"{OUTCOME_WORDS[outcome]} followed.")
+    return (f"In past replays, {r['k']} of {r['n']} {plural}{strength} "
             f"were followed by {OUTCOME_WORDS[outcome]} within {horizon_days} days.")
 
 
