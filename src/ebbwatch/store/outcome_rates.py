@@ -8,7 +8,7 @@ from datetime import datetime, timezone
 
 import pandas as pd
 
-from .sql import _register
+from .sql import registered
 
 
 class OutcomeRates:
@@ -21,11 +21,8 @@ class OutcomeRates:
             self.con.execute("DELETE FROM outcome_counts")
             self.con.execute("DELETE FROM outcome_replay")
             if len(counts):
-                _register(self.con, "incoming_counts", counts[["segment", "kind", "band", "outcome", "k", "n"]])
-                try:
+                with registered(self.con, "incoming_counts", counts[["segment", "kind", "band", "outcome", "k", "n"]]):
                     self.con.execute("INSERT INTO outcome_counts SELECT * FROM incoming_counts")
-                finally:
-                    self.con.unregister("incoming_counts")
             self.con.execute("INSERT INTO outcome_replay VALUES (?, ?, ?, ?, ?, ?, ?)",
                              [datetime.now(timezone.utc), replay["from"], replay["to"], replay["step_days"],
                               replay["horizon_days"], replay["known_until"], json.dumps(replay.get("settings", {}))])

@@ -5,50 +5,38 @@ from __future__ import annotations
 import pandas as pd
 import pyarrow as pa
 
-from .sql import _arrow, _register
+from .sql import _arrow, registered
 
 
 class ReferenceTables:
     """Accounts, identities and the log of ingested files."""
 
+    def _replace_rows(self, table: str, key: str, columns: str, frame: pd.DataFrame) -> int:
+        """Replace every row of ``table`` whose ``key`` appears in ``frame`` by ``frame``'s rows."""
+        with registered(self.con, "incoming_rows", frame):
+            self.con.execute(f"DELETE FROM {table} WHERE {key} IN (SELECT {key} FROM incoming_rows)")
+            self.con.execute(f"INSERT INTO {table} SELECT {columns} FROM incoming_rows")
+        return len(frame)
+
     def upsert_accounts(self, frame: pd.DataFrame) -> int:
         """Insert or replace accounts (columns of ``frames.ACCOUNT_COLUMNS``)."""
-        _register(self.con, "incoming_accounts", frame)
-        try:
-            self.con.execute("DELETE FROM accounts WHERE account IN (SELECT account FROM incoming_accounts)")
-            self.con.execute(
-                "INSERT INTO accounts SELECT account, name, seats, segment, timezone, mrr FROM incoming_accounts"
-            )
-        finally:
-            self.con.unregister("incoming_accounts")
-        return len(frame)
+        return self._replace_rows("accounts", "account", "account, name, seats, segment, timezone, mrr", frame)
 
     def zone_changes_on_stored_days(self, frame: pd.DataFrame) -> list[tuple]:
         """Accounts in ``frame`` whose time zone differs from the one their stored days were
         assigned in (none = UTC): ``[(account, stored_zone, new_zone, days), ...]``.  Days are
         assigned at ingest, so such a change would leave those days in the old zone."""
-        _register(self.con, "incoming_accounts", frame)
-        try:
+        with registered(self.con, "incoming_accounts", frame):
             return self.con.execute(
                 """SELECT i.account, COALESCE(a.timezone, 'UTC'), COALESCE(i.timezone, 'UTC'), d.days
                 FROM incoming_accounts i LEFT JOIN accounts a USING (account)
                 JOIN (SELECT account, count(DISTINCT day) AS days FROM daily GROUP BY account) d USING (account)
                 WHERE COALESCE(a.timezone, 'UTC') <> COALESCE(i.timezone, 'UTC')
                 ORDER BY d.days DESC, i.account""").fetchall()
-        finally:
-            self.con.unregister("incoming_accounts")
 
     def replace_identities(self, frame: pd.DataFrame) -> int:
         """Replace the identity intervals of every user in ``frame``."""
-        _register(self.con, "incoming_identities", frame)
-        try:
-            self.con.execute('DELETE FROM identities WHERE "user" IN (SELECT "user" FROM incoming_identities)')
-            self.con.execute(
-                'INSERT INTO identities SELECT "user", account, valid_from, valid_to FROM incoming_identities'
-            )
-        finally:
-            self.con.unregister("incoming_identities")
-        return len(frame)
+        return self._replace_rows("identities", '"user"', '"user", account, valid_from, valid_to', frame)
 
     def accounts(self) -> pd.DataFrame:
         return self.con.execute("SELECT * FROM accounts ORDER BY account").df()

@@ -3,6 +3,8 @@ patterns and casts, the id hash, Arrow in and out, quoting."""
 
 from __future__ import annotations
 
+from contextlib import contextmanager
+
 import pyarrow as pa
 
 
@@ -81,6 +83,16 @@ def _register(con, name: str, data) -> None:
     (a ``fetchone`` leaves one open; see :func:`_arrow`)."""
     con.execute("SELECT 1").fetchall()
     con.register(name, data)
+
+
+@contextmanager
+def registered(con, name: str, data):
+    """``data`` (a frame or Arrow table) readable as the view ``name`` for the ``with`` block."""
+    _register(con, name, data)
+    try:
+        yield
+    finally:
+        con.unregister(name)
 
 
 def quote_ident(name: str) -> str:
