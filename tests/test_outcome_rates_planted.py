@@ -85,6 +85,11 @@ def test_saved_rates_recover_the_planted_share(planted):
     k, n = int(down["k"].sum()), int(down["n"].sum())
     low, high = clopper_pearson(k, n)
     assert n >= 30, (k, n)
+    # status says what was saved, and when.
+    saved = ebbwatch.status(db=db)["outcome_rates"]
+    assert saved["alert_episodes"] == int(counts.loc[(counts["kind"] != "none") & (counts["outcome"] == "churned"), "n"].sum())
+    assert saved["from"] == replay["from"] and saved["horizon_days"] == 90
+    assert "alert episodes from the replay" in CliRunner().invoke(main, ["status", "--db", db]).stdout
     assert low <= CHURN_SHARE <= high, (k, n, low, high)
     base = counts[(counts["kind"] == "none") & (counts["outcome"] == "churned")]
     base_low, base_high = clopper_pearson(base["k"].sum(), base["n"].sum())

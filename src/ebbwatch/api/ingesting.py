@@ -296,7 +296,12 @@ def status(*, db: str | None = None, config=None) -> dict:
     with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
         info = st.status()
         totals = st.fleet_daily_totals()
+        saved = st.saved_outcome_counts()
     info["dedupe_window_days"] = cfg.ingest.dedupe_window_days
+    # Outcome rates a backtest saved (issue 23): when, from which replay, on how many episodes.
+    info["outcome_rates"] = None if saved is None else {
+        **{k: saved[1][k] for k in ("saved_at", "from", "to", "horizon_days", "known_until")},
+        "alert_episodes": int(saved[0].loc[(saved[0]["kind"] != "none") & (saved[0]["outcome"] == "churned"), "n"].sum())}
     info["gap_days"] = [d.isoformat() for d in fleet_gap_days(totals["day"], totals["events"].to_numpy(float))]
     for key in ("first_day", "last_day"):
         info[key] = info[key].isoformat() if info[key] is not None else None

@@ -168,6 +168,10 @@ def status(db, config_path, fmt):
     scan = info["last_scan"]
     out(f"last scan      {'-' if scan is None else scan['as_of'] + ' (recorded ' + scan['at'] + ')'}")
     click.echo(f"data-gap days  {', '.join(info['gap_days']) or 'none'}")
+    rates = info.get("outcome_rates")
+    click.echo("outcome rates  " + ("none saved (ebbwatch backtest --outcomes FILE --save-rates)" if rates is None else
+                                    f"{rates['alert_episodes']:,} alert episodes from the replay {rates['from']} .. "
+                                    f"{rates['to']} ({rates['horizon_days']}-day horizon), saved {rates['saved_at']}"))
 
 
 @main.group()
