@@ -159,7 +159,7 @@ def demo(directory, n_accounts, n_days, seed):
     top = alerts["account"].iloc[0] if len(alerts) else scenario.stories["account"].iloc[0]
     say(f"\nThe store is {db}; the HTML report is {report_path}. Try next:")
     for command in (f"ebbwatch explain {top} --db {db}",
-                    f"ebbwatch backtest --db {db} --outcomes {scenario.outcomes_csv} --step 7",
+                    f"ebbwatch backtest --db {db} --outcomes {scenario.outcomes_csv} --step 7 --save-rates",
                     f"ebbwatch scan --db {db} --format jsonl",
                     f"ebbwatch status --db {db}"):
         say(f"  {command}")
