@@ -142,3 +142,12 @@ def test_lifecycle_holds_a_changed_account_open_and_clears_one_that_is_back():
     rows = advance_lifecycle(previous, today, date(2026, 11, 2), holding={("a", "down")}).set_index("account")
     assert rows.loc["a", "state"] == "ongoing" and rows.loc["a", "quiet_days"] == 0
     assert rows.loc["b", "state"] == "clearing" and rows.loc["b", "quiet_days"] == 1
+
+
+def test_a_young_accounts_step_is_a_drop_from_its_day(young_store):
+    """A step down 15 days before as-of reads as a drop starting then, not as a slide from the
+    account's first week (the ramp must beat the step by BIC, having one more free parameter)."""
+    info = ebbwatch.explain("yg-beta", db=young_store, as_of=AS_OF)
+    onset = date.fromisoformat(info["changepoint"]["onset"])
+    assert info["changepoint"]["kind_if_down"] == "drop"
+    assert abs((onset - (START.date() + timedelta(days=DROP_DAY))).days) <= 3, onset
