@@ -50,20 +50,17 @@ def band_label(first: int, last: int | None = None) -> str:
 def _followed(accounts, days, outcomes: pd.DataFrame, horizon_days: int) -> dict:
     """Per outcome, a bool array: was ``accounts[i]`` followed by that outcome within
     ``horizon_days`` after ``days[i]`` (0 <= outcome date − day <= horizon)?"""
-    days = pd.to_datetime(pd.Series(days)).to_numpy()
+    pairs = pd.DataFrame({"account": np.asarray(accounts, dtype=object),
+                          "day": pd.to_datetime(pd.Series(days)).to_numpy()})
+    pairs["pair"] = np.arange(len(pairs))
+    dated = outcomes.assign(date=pd.to_datetime(outcomes["date"]))[["account", "date", "outcome"]]
+    joined = pairs.merge(dated, on="account")
+    lag = (joined["date"] - joined["day"]).dt.days
+    joined = joined[(lag >= 0) & (lag <= horizon_days)]
     out = {}
     for outcome in OUTCOMES:
-        rows = outcomes[outcomes["outcome"] == outcome]
-        dates = {}
-        for account, when in zip(rows["account"], pd.to_datetime(rows["date"])):
-            dates.setdefault(account, []).append(when.to_datetime64())
-        hit = np.zeros(len(days), bool)
-        for i, (account, day) in enumerate(zip(accounts, days)):
-            for when in dates.get(account, ()):
-                lag = (when - day) / np.timedelta64(1, "D")
-                if 0 <= lag <= horizon_days:
-                    hit[i] = True
-                    break
+        hit = np.zeros(len(pairs), bool)
+        hit[joined.loc[joined["outcome"] == outcome, "pair"].to_numpy()] = True
         out[outcome] = hit
     return out
 
@@ -118,16 +115,14 @@ def outcome_counts(alerts: pd.DataFrame, exposure: pd.DataFrame, outcomes: pd.Da
     usable = sorted(d for d in sampled if d + horizon <= known_until)
     base_days = usable[::-1][::max(1, int(round(horizon_days / _spacing(usable))))] if usable else []
     if base_days:
-        alerted = pd.to_datetime(alerts["as_of"]) if len(alerts) else pd.Series([], dtype="datetime64[ns]")
-        seen = set(zip(alerts["account"], alerted)) if len(alerts) else set()
+        alerted_on = pd.to_datetime(alerts["as_of"]) if len(alerts) else pd.Series([], dtype="datetime64[ns]")
         first, last = pd.to_datetime(eligible["first_day"]), pd.to_datetime(eligible["last_day"])
         accounts, days = [], []
         for day in base_days:
-            alive = eligible["account"][(first <= day) & (last >= day)]
-            quiet = [a for a in alive
-                     if not any((a, day - pd.Timedelta(days=back)) in seen for back in range(RESOLVE_DAYS + 1))]
-            accounts += quiet
-            days += [day] * len(quiet)
+            recent = (alerted_on <= day) & (alerted_on >= day - pd.Timedelta(days=RESOLVE_DAYS))
+            quiet = (first <= day) & (last >= day) & ~eligible["account"].isin(alerts.loc[recent.to_numpy(), "account"])
+            accounts += eligible["account"][quiet].tolist()
+            days += [day] * int(quiet.sum())
         if accounts:
             rows += _tally(np.array(accounts), days, NO_ALERT, -1, outcomes, horizon_days, segments)
     if not rows:
@@ -207,14 +202,22 @@ def rates_table(counts: pd.DataFrame, min_alerts: int = MIN_ALERTS, segment: str
     return pd.DataFrame(out, columns=["kind", "band", "outcome", "rate", "low", "high", "k", "n", "bands"])
 
 
-def rates_for(table: pd.DataFrame, kind: str, severity: float) -> dict:
-    """``{outcome: {rate, low, high, k, n, bands}}`` for an alert of ``kind`` and ``severity``;
-    an outcome with no replayed alert of its kind and band is left out."""
-    band = int(band_of([severity])[0])
-    rows = table[(table["kind"] == kind) & (table["band"] == band)]
+def rate_lookup(table: pd.DataFrame):
+    """A function ``(kind, severity) -> {outcome: {rate, low, high, k, n, bands}}`` over
+    :func:`rates_table`'s rows, indexed once (a scan looks up every alert); an outcome with no
+    replayed alert of that kind and band is left out."""
     number = lambda x: None if x is None or pd.isna(x) else float(x)  # noqa: E731  (JSON-ready, NaN as null)
-    return {r.outcome: {"rate": number(r.rate), "low": number(r.low), "high": number(r.high), "k": int(r.k),
-                        "n": int(r.n), "bands": r.bands} for r in rows.itertuples()}
+    index = {}
+    for r in table.itertuples():
+        index.setdefault((r.kind, int(r.band)), {})[r.outcome] = {
+            "rate": number(r.rate), "low": number(r.low), "high": number(r.high), "k": int(r.k), "n": int(r.n),
+            "bands": r.bands}
+    return lambda kind, severity: dict(index.get((kind, int(band_of([severity])[0])), {}))
+
+
+def rates_for(table: pd.DataFrame, kind: str, severity: float) -> dict:
+    """:func:`rate_lookup` for one alert."""
+    return rate_lookup(table)(kind, severity)
 
 
 def rate_sentence(kind: str, direction: str, rates: dict, horizon_days: int) -> str | None:
@@ -246,7 +249,7 @@ def value_at_risk(values, k, n, *, draws: int = 4000, seed: int = 0, coverage: f
     rng = np.random.default_rng(seed)
     rate = rng.beta(k + 0.5, n - k + 0.5, size=(draws, values.size))
     happens = rng.random((draws, values.size)) < rate
-    totals = happens @ values
+    totals = np.einsum("da,a->d", happens, values)  # not a BLAS product: its threads would spin beside the scan's
     tail = (1 - coverage) / 2
     return {"expected": float((values * k / n).sum()), "low": float(np.quantile(totals, tail)),
             "high": float(np.quantile(totals, 1 - tail)), "accounts": int(values.size)}

@@ -106,20 +106,16 @@ def _alerts_on(account: str, as_of: date, *, db, config) -> dict:
              "severity": None if r.severity is None or r.severity != r.severity else float(r.severity),
              "opened": r.opened.isoformat() if hasattr(r.opened, "isoformat") else str(r.opened)}
             for r in mine.itertuples() if r.state != "resolved"]
-    risk = judged.attrs["summary"].get("at_risk")
-    if risk is not None and rows:
-        # What alerts like these led to in the saved replay (as the scan adds to its alerts).
-        from ..outcomes import rate_sentence, rates_for, rates_table
+    lookup = judged.attrs.get("outcome_rates")
+    if lookup is not None:
+        # What alerts like these led to in the saved replay, as the scan adds to its alerts.
+        from ..outcomes import rate_sentence
 
-        cfg = _config(config)
-        with store_mod.open_store(db or cfg.store_path, read_only=True) as st:
-            counts, replay = st.saved_outcome_counts()
-        table = rates_table(counts)
+        horizon = judged.attrs["summary"]["at_risk"]["horizon_days"]
         for r in rows:
             if r["severity"] is not None:
-                r["outcome_rates"] = rates_for(table, r["kind"], r["severity"])
-                r["outcome_sentence"] = rate_sentence(r["kind"], r["direction"], r["outcome_rates"],
-                                                      int(replay["horizon_days"]))
+                r["outcome_rates"] = lookup(r["kind"], r["severity"])
+                r["outcome_sentence"] = rate_sentence(r["kind"], r["direction"], r["outcome_rates"], horizon)
     until, reason = judged.attrs["snoozed"].get(account, (None, None))
     return {"alerted": any(r["severity"] is not None for r in rows), "alerts": rows,
             "snoozed_until": until, "snooze_reason": reason}

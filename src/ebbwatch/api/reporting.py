@@ -26,11 +26,9 @@ def _chart_levels(panel, scores, window: int):
     from ..series import weekday_of
 
     values = panel.values / panel.fleet_factor
-    factors = np.ones((len(panel.accounts), 7))
-    for i, account in enumerate(panel.accounts):
-        own = scores.at[account, "weekday_factors"] if account in scores.index else None
-        if own is not None and len(own) == 7 and np.all(np.isfinite(own)):
-            factors[i] = own
+    # Every panel account was scored, with 7 factors (flat where its history is too short).
+    own = np.array(scores.loc[list(panel.accounts), "weekday_factors"].tolist(), dtype=float).reshape(-1, 7)
+    factors = np.where(np.isfinite(own).all(axis=1, keepdims=True), own, 1.0)
     return values, trailing_levels(values, factors, weekday_of(panel.days), window)
 
 
@@ -144,16 +142,20 @@ def _index_rows(panel, scores, open_alerts, meta, window: int) -> list[dict]:
     alerts_of = {}
     for r in open_alerts.itertuples():
         alerts_of.setdefault(r.account, []).append(f"{r.kind} ({r.state})")
+    accounts = list(panel.accounts)
+    mine = scores.loc[accounts, ["status", "level", "baseline_level"]]
+    facts = meta.reindex(accounts)
+    column = lambda name: facts[name].tolist() if name in facts else [None] * len(accounts)  # noqa: E731
     rows = []
-    for i, account in enumerate(panel.accounts):
-        row = scores.loc[account]
-        level, usual = _finite(row["level"]), _finite(row["baseline_level"])
+    for i, (account, status, level, usual, name, mrr, segment) in enumerate(zip(
+            accounts, mine["status"], mine["level"], mine["baseline_level"], column("name"), column("mrr"),
+            column("segment"))):
+        level, usual = _finite(level), _finite(usual)
         rows.append({
-            "account": account, "name": _clean_value(meta["name"].get(account)) if "name" in meta else None,
-            "status": row["status"], "alerts": alerts_of.get(account, []), "level": level, "usual": usual,
+            "account": account, "name": _clean_value(name), "status": status, "alerts": alerts_of.get(account, []),
+            "level": level, "usual": usual,
             "change_pct": 100.0 * (level / usual - 1.0) if level is not None and usual else None,
-            "mrr": _clean_value(meta["mrr"].get(account)) if "mrr" in meta else None,
-            "segment": _clean_value(meta["segment"].get(account)) if "segment" in meta else None,
+            "mrr": _clean_value(mrr), "segment": _clean_value(segment),
             "spark": _finite_list(levels[i, -SHOWN_DAYS:]),
         })
     return rows

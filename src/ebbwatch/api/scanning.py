@@ -253,12 +253,12 @@ def _with_outcome_rates(shown, alerts, scores, known, counts, replay):
     ``outcome_rates`` column and a sentence in the message), and the recurring revenue — or,
     without MRR, the usual monthly activity — in all of today's alerted accounts weighted by
     those rates: ``(shown, at_risk)``."""
-    from ..outcomes import DIRECTION_OUTCOME, rate_sentence, rates_for, rates_table, value_at_risk
+    from ..outcomes import DIRECTION_OUTCOME, rate_lookup, rate_sentence, rates_table, value_at_risk
 
-    table = rates_table(counts)
+    lookup = rate_lookup(rates_table(counts))
     horizon = int(replay["horizon_days"])
     shown = shown.copy()
-    rates = [rates_for(table, kind, severity) for kind, severity in zip(shown["kind"], shown["severity"])]
+    rates = [lookup(kind, severity) for kind, severity in zip(shown["kind"], shown["severity"])]
     shown["outcome_rates"] = rates
     shown["message"] = [m if (extra := rate_sentence(kind, direction, r, horizon)) is None else f"{m} {extra}"
                         for m, kind, direction, r in zip(shown["message"], shown["kind"], shown["direction"], rates)]
@@ -271,7 +271,7 @@ def _with_outcome_rates(shown, alerts, scores, known, counts, replay):
         outcome = DIRECTION_OUTCOME[direction]
         mine = alerts.loc[alerts["direction"] == direction, ["account", "kind", "severity"]]
         for account, kind, severity in mine.itertuples(index=False):
-            r = rates_for(table, kind, severity).get(outcome)
+            r = lookup(kind, severity).get(outcome)
             value = (mrr.get(account) if use_mrr else 30.44 * usual.get(account, np.nan))
             if r is None or r["rate"] is None or value is None or not np.isfinite(value):
                 continue
@@ -279,4 +279,5 @@ def _with_outcome_rates(shown, alerts, scores, known, counts, replay):
             k.append(r["k"])
             n.append(r["n"])
         at_risk[direction] = value_at_risk(values, k, n)
+    shown.attrs["outcome_rates"] = lookup  # (kind, severity) -> rates, for explain
     return shown, at_risk
