@@ -12,7 +12,9 @@ family, C is held out.
 Printed per family and seed: churned accounts caught at least 30 days before cancelling
 (``recall_at_lead``), expanded accounts caught at least 30 days before upgrading, the median
 lead, and false alert episodes per 100 account-months — episodes (runs of consecutive alert
-days) on accounts with no matching outcome within 90 days and no planted change at all.
+days) on accounts with no matching outcome within 90 days and no planted change at all (a quiet
+account's level shift inside the replayed year is a planted change; "+shifts" counts its alerts
+as false too).
 Targets (issue 18): churned >= 0.7, expanded >= 0.9, false episodes <= 3.
 """
 
@@ -30,14 +32,20 @@ import pandas as pd  # noqa: E402
 from fleets import generate  # noqa: E402
 
 
-def false_episodes_per_100_months(result: dict, fleet, horizon_days: int = 90) -> float:
+def false_episodes_per_100_months(result: dict, fleet, horizon_days: int = 90, *,
+                                  count_level_shifts: bool = False) -> float:
     """False alerts per 100 account-months as the backtest counts them (alerts new on a sampled
     day, per account-day judged on the sampled days), leaving out accounts with a planted episode
-    that is not an outcome (their alerts are not false)."""
+    that is not an outcome (their alerts are not false).  A quiet account whose level shifted
+    inside the replayed year (episode kind ``level_shift``) has a planted change too; with
+    ``count_level_shifts`` its alerts are counted as false all the same (the stricter figure)."""
     from ebbwatch.backtest import DOWN_OUTCOMES, UP_OUTCOMES, new_episodes
 
     alerts, exposure = result["_alerts"], result["_exposure"]
-    planted = set(fleet.episodes["account"])
+    episodes = fleet.episodes
+    if count_level_shifts:
+        episodes = episodes[episodes["kind"] != "level_shift"]
+    planted = set(episodes["account"])
     outcomes = fleet.outcomes.assign(date=pd.to_datetime(fleet.outcomes["date"]))
     false = 0
     if len(alerts):
@@ -70,6 +78,7 @@ def run(family: str, seed: int, accounts: int, step: int, workdir: Path) -> dict
             "expanded": out["expanded"].get("recall_at_lead"), "expanded_n": out["expanded"].get("count"),
             "expanded_lead": out["expanded"].get("median_lead_days"),
             "false_per_100": false_episodes_per_100_months(result, fleet),
+            "strict_false_per_100": false_episodes_per_100_months(result, fleet, count_level_shifts=True),
             "api_false_per_100": result["false_alerts_per_100_account_months"],
             "alerts_per_day": result["alerts_per_day"], "seconds": result["seconds"]}
 
@@ -82,7 +91,7 @@ def main(argv=None):
     parser.add_argument("--step", type=int, default=1)
     args = parser.parse_args(argv)
     print(f"{'family':<8}{'seed':>5}{'churned at 30d':>18}{'lead':>6}{'expanded at 30d':>18}{'lead':>6}"
-          f"{'false/100 acct-mo':>19}{'(any change)':>14}{'alerts/day':>12}{'s':>6}")
+          f"{'false/100 acct-mo':>19}{'(+shifts)':>10}{'(any change)':>14}{'alerts/day':>12}{'s':>6}")
     for family in args.families.split(","):
         rows = []
         for seed in range(args.seeds):
@@ -91,11 +100,13 @@ def main(argv=None):
             rows.append(r)
             print(f"{family:<8}{seed:>5}{r['churned']:>12.2f} ({r['churned_n']:>2}){r['churned_lead'] or 0:>6.0f}"
                   f"{r['expanded']:>12.2f} ({r['expanded_n']:>2}){r['expanded_lead'] or 0:>6.0f}"
-                  f"{r['false_per_100']:>19.2f}{r['api_false_per_100']:>14.2f}{r['alerts_per_day']:>12.2f}{r['seconds']:>6.0f}")
+                  f"{r['false_per_100']:>19.2f}{r['strict_false_per_100']:>10.2f}{r['api_false_per_100']:>14.2f}"
+                  f"{r['alerts_per_day']:>12.2f}{r['seconds']:>6.0f}")
         churned = sum(r["churned"] * r["churned_n"] for r in rows) / sum(r["churned_n"] for r in rows)
         expanded = sum(r["expanded"] * r["expanded_n"] for r in rows) / sum(r["expanded_n"] for r in rows)
         print(f"{family:<8}{'all':>5}{churned:>17.2f}{'':>6}{expanded:>17.2f}{'':>6}"
-              f"{np.mean([r['false_per_100'] for r in rows]):>19.2f}   (targets: >= 0.70, >= 0.90, <= 3)")
+              f"{np.mean([r['false_per_100'] for r in rows]):>19.2f}{np.mean([r['strict_false_per_100'] for r in rows]):>10.2f}"
+              "   (targets: >= 0.70, >= 0.90, <= 3)")
 
 
 if __name__ == "__main__":

@@ -91,8 +91,10 @@ def generate(n_accounts: int = 400, seed: int = 0, *, n_days: int = 600, as_of: 
     growth = traits == "growth"
     drift[growth] = rng.uniform(0.35, np.log(2.5), growth.sum())  # up to +150% a year
     level *= np.exp(drift[:, None] * (t[None, :] - (D - 1)) / 365.0)
+    shifted = {}  # account -> column of its old level shift (a planted change, for backtest fleets)
     for a in np.flatnonzero(traits == "old_shift"):
         when = D - int(rng.integers(100, 300))
+        shifted[a] = when
         level[a, when:] *= rng.uniform(0.45, 0.7) if rng.random() < 0.5 else rng.uniform(1.5, 2.2)
     for a in np.flatnonzero(traits == "seasonal"):
         level[a] *= _plateaus(rng, D, rng.uniform(2.0, 3.2))
@@ -146,6 +148,8 @@ def generate(n_accounts: int = 400, seed: int = 0, *, n_days: int = 600, as_of: 
     fleet = PlantedFleet("A", counts.astype(np.int64), start, as_of, ids, truth)
     if backtest:
         fleet.outcomes = _frame(outcomes, ["account", "date", "outcome"], ids, start)
+        # A quiet account's level shift falls inside the replayed year: alerts on it are not false.
+        episodes += [(a, "level_shift", when, when) for a, when in shifted.items() if traits[a] == "old_shift"]
         fleet.episodes = _frame(episodes, ["account", "kind", "start", "end"], ids, start)
     return fleet
 

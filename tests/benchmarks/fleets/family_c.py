@@ -159,6 +159,9 @@ def generate(n_accounts: int = 400, seed: int = 0, *, n_days: int = 640, as_of: 
                 acct.add(1, D - 365 + int(rng.integers(0, 365)), D, mix, mean_events, D)
         if trait == "team_moved":
             when = D - int(rng.integers(100, 300))
+            if backtest and kind[a] == "quiet" and not backtest_role[a]:
+                # A team joining or leaving inside the replayed year is a planted change.
+                episodes.append((ids[a], "level_shift", start + timedelta(days=when), start + timedelta(days=when)))
             team = max(1, int(round(n_users * rng.uniform(0.35, 0.6))))
             if rng.random() < 0.5:
                 acct.leave[:team] = when
