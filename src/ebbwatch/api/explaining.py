@@ -77,6 +77,10 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
                      "growth_pct_year": f(row["growth_pct_year"]), "low_volume": bool(row["low_volume"]),
                      "reference_ends": day_to_date(reference_end).isoformat()},
         "weekday_factors": dict(zip(weekday_names, (round(float(v), 3) for v in row["weekday_factors"]))),
+        # The factors and the quiet days a silence is judged by come from this day on, where the
+        # account's weekday shape changed within the profile's weeks (None: it did not).
+        "weekday_shape_since": (None if row["weekday_shape_since_day"] < 0
+                                else day_to_date(row["weekday_shape_since_day"]).isoformat()),
         "recent": {"window_days": int(row["window_days"]), "level": f(row["window_level"]),
                    "usual_level": f(row["window_baseline"]), "change_pct": f(row["change_pct"]),
                    "percentile": f(row["percentile"]), "p_low": f(row["p_level_low"]), "p_high": f(row["p_level_high"])},

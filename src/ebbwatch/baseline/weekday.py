@@ -6,6 +6,7 @@ import numpy as np
 
 from ..series import fast_nanmedian_rows
 from ._base import Estimator, check_matrix
+from .shape_change import weekday_shape_split
 
 
 class WeekdayProfile(Estimator):
@@ -23,22 +24,37 @@ class WeekdayProfile(Estimator):
         Smallest factor allowed (an always-empty Sunday would otherwise divide by zero).
     min_days_per_week : int
         A week with fewer valid days does not vote.
+    change_statistic : float or None
+        Where the weeks split into two weekday shapes with a statistic above this
+        (:func:`~ebbwatch.baseline.shape_change.weekday_shape_split`) and some weekday's mean
+        share moved by more than ``change_shift``, only the weeks since the split vote, pulled
+        toward 1 by a quarter of ``shrink_weeks`` (the split is itself evidence of the new
+        shape).  None: every week votes.
+    change_shift : float
+        Least change of a weekday's mean share (in units of the week's mean) that counts.
     """
 
-    _parameters = ("shrink_weeks", "floor", "min_days_per_week")
+    _parameters = ("shrink_weeks", "floor", "min_days_per_week", "change_statistic", "change_shift")
 
-    def __init__(self, shrink_weeks: float = 4.0, floor: float = 0.1, min_days_per_week: int = 6):
+    def __init__(self, shrink_weeks: float = 4.0, floor: float = 0.1, min_days_per_week: int = 6,
+                 change_statistic: float | None = None, change_shift: float = 0.4):
         self.shrink_weeks = shrink_weeks
         self.floor = floor
         self.min_days_per_week = min_days_per_week
+        self.change_statistic = change_statistic
+        self.change_shift = change_shift
 
     def fit(self, values, first_weekday: int):
         """``values`` (A, D) with NaN for missing days; ``first_weekday`` of column 0 (Monday 0).
 
-        Sets ``factors_`` (A, 7) indexed by weekday and ``weeks_`` (A,) weeks that voted.
+        Sets ``factors_`` (A, 7) indexed by weekday, ``weeks_`` (A,) weeks that voted and
+        ``change_start_`` (A,): the column of ``values`` where a changed weekday shape began, -1
+        where none was found.
         """
         if self.shrink_weeks < 0 or not 0 < self.floor < 1:
             raise ValueError("shrink_weeks must be >= 0 and floor in (0, 1)")
+        if (self.change_statistic is not None and self.change_statistic < 0) or self.change_shift < 0:
+            raise ValueError("change_statistic must be None or >= 0, and change_shift >= 0")
         values = check_matrix(values, "values")
         n_accounts, n_days = values.shape
         n_weeks = n_days // 7
@@ -58,6 +74,16 @@ class WeekdayProfile(Estimator):
             with np.errstate(invalid="ignore", divide="ignore"):
                 np.divide(weeks.transpose(0, 2, 1), week_mean[:, None, :], out=share)
             share[np.broadcast_to(~usable[:, None, :], share.shape)] = np.nan
+            changed = np.zeros(n_accounts, bool)
+            change_start = np.full(n_accounts, -1)
+            if self.change_statistic is not None:
+                statistic, split, shift = weekday_shape_split(share, usable)
+                changed = (statistic > self.change_statistic) & (shift > self.change_shift)
+                # The weeks before a change of shape no longer vote.
+                before = np.arange(n_weeks)[None, :] < np.where(changed, split, 0)[:, None]
+                usable &= ~before
+                share[np.broadcast_to(before[:, None, :], share.shape)] = np.nan
+                change_start = np.where(changed, offset + 7 * split, -1)
             by_day = share.reshape(n_accounts * 7, n_weeks)
             raw = fast_nanmedian_rows(by_day, overwrite_input=True).reshape(n_accounts, 7)  # by column position
             weeks_used = usable.sum(axis=1)
@@ -65,13 +91,17 @@ class WeekdayProfile(Estimator):
             mean = raw.mean(axis=1, keepdims=True)
             raw = np.where(mean > 0, raw / np.where(mean > 0, mean, 1.0), 1.0)
             weight = weeks_used / (weeks_used + self.shrink_weeks) if self.shrink_weeks else (weeks_used > 0) * 1.0
+            weight = np.where(changed, weeks_used / np.maximum(weeks_used + 0.25 * self.shrink_weeks, 1e-9), weight)
             shrunk = 1.0 + (raw - 1.0) * weight[:, None]
             shrunk = np.maximum(shrunk, self.floor)
             shrunk /= shrunk.mean(axis=1, keepdims=True)
             position_weekday = (first_weekday + offset + np.arange(7)) % 7
             factors[:, position_weekday] = shrunk
+        else:
+            change_start = np.full(n_accounts, -1)
         self.factors_ = factors
         self.weeks_ = weeks_used
+        self.change_start_ = change_start
         return self
 
     def expected(self, weekdays) -> np.ndarray:

@@ -86,6 +86,9 @@ class ScanParams:
     trend_screen_p: float = 0.01
     ramp_advantage: float = 1.0
     profile_weeks: int = 16
+    # A change of weekday shape among those weeks (baseline.shape_change): the statistic's
+    # threshold; under no change about 1 account in 200 of 3+ events a day crosses it.
+    shape_change_statistic: float | None = 40.0
     onset_screen_p: float = 0.01
 
 
@@ -95,6 +98,7 @@ SCORE_COLUMNS = (
     "change_pct", "change_down_pct", "change_up_pct", "window_days",
     "window_down", "window_up", "trend_change_pct", "trend_weeks", "growth_pct_year", "onset_day", "level_before", "level_after",
     "silent_days", "model", "down_kind", "n_reference", "low_volume", "reference_end_day", "weekday_factors",
+    "weekday_shape_since_day",
 )
 MIN_SEGMENT_DAYS = 7  # a change needs a week of the account before it
 MIN_TREND_WEEKS = 6  # fewest whole weeks a trend is told from (the least Mann–Kendall p is then 0.004)
@@ -108,12 +112,17 @@ def _half_event(panel: Panel) -> np.ndarray:
     return 0.5 * np.where(np.isfinite(per_event) & (per_event > 0), per_event, 1.0)
 
 
-def _weekday_factors(values, weekdays, hist_end: int, weeks: int):
-    """Weekday factors (A, D) from the ``weeks`` weeks before the judged window: recent enough that
-    a week shape changed months ago does not linger."""
-    first = max(0, hist_end - 7 * weeks)
-    profile = WeekdayProfile().fit(values[:, first:hist_end], int(weekdays[first]))
-    return profile, profile.factors_[:, weekdays]
+def _weekday_factors(values, weekdays, hist_end: int, params: ScanParams):
+    """Weekday factors (A, D) from the ``profile_weeks`` weeks before the judged window: recent
+    enough that a week shape changed months ago does not linger, and only the weeks since a
+    change of shape found among them.  Returns ``(profile, factors, shape_since)``:
+    ``shape_since`` (A,) the column the account's present weekday shape began, -1 where it
+    did not change."""
+    first = max(0, hist_end - 7 * params.profile_weeks)
+    profile = WeekdayProfile(change_statistic=params.shape_change_statistic).fit(
+        values[:, first:hist_end], int(weekdays[first]))
+    shape_since = np.where(profile.change_start_ >= 0, first + profile.change_start_, -1)
+    return profile, profile.factors_[:, weekdays], shape_since
 
 
 def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams = ScanParams(),
@@ -130,7 +139,7 @@ def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams =
     values = values / np.asarray(fleet_factor, float)[None, :]
     weekdays = weekday_of(np.asarray(days))
     hist_end = values.shape[1] - params.window_days
-    _, factors = _weekday_factors(values, weekdays, hist_end, params.profile_weeks)
+    _, factors, _ = _weekday_factors(values, weekdays, hist_end, params)
     first = np.where(np.isfinite(values).any(axis=1), np.isfinite(values).argmax(axis=1), values.shape[1])
     return window_priors(values, factors, first, np.full(len(values), 0.5), windows=params.windows,
                          reference_days=params.reference_days, history_gap_days=params.history_gap_days)
@@ -143,7 +152,7 @@ def history_segments(panel: Panel, params: ScanParams = ScanParams()) -> list[li
     log of the weekday-adjusted series, as the scan's onset search sees it."""
     values = adjust_for_fleet(panel)
     weekdays = weekday_of(panel.days)
-    _, factors = _weekday_factors(values, weekdays, panel.n_days - params.window_days, params.profile_weeks)
+    _, factors, _ = _weekday_factors(values, weekdays, panel.n_days - params.window_days, params)
     z = values / factors
     out = []
     for row, first in zip(z, panel.first_seen):
@@ -201,13 +210,21 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     n_history = np.isfinite(values[:, :hist_end]).sum(axis=1)
     enough = n_history >= params.min_history_days
 
-    profile, factors = _weekday_factors(values, weekdays, hist_end, params.profile_weeks)
+    profile, factors, shape_since = _weekday_factors(values, weekdays, hist_end, params)
     half_event = _half_event(panel)
     tests = WindowTests(windows=params.windows, reference_days=params.reference_days,
                         history_gap_days=params.history_gap_days).fit(
         values, factors, first_seen, half_event, priors=params.window_priors,
         count_dispersion=params.pooled_count_dispersion or 0.0)
     windows = np.asarray(tests.windows_)
+    # Windows shorter than a week are judged by the weekday shape and calibrated on the account's
+    # past: after a change of shape that past is of another shape, so until the change leaves the
+    # profile's weeks only whole-week windows (unmoved by how a week is spread) speak.
+    reshaped = np.flatnonzero(shape_since >= 0)
+    if reshaped.size:
+        part_week = windows < 7
+        tests.p_low_[np.ix_(reshaped, np.flatnonzero(part_week))] = 1.0
+        tests.p_high_[np.ix_(reshaped, np.flatnonzero(part_week))] = 1.0
     p_level_low = nested_min_p(tests.p_low_.T, tests.windows_, params.reference_days)
     p_level_high = nested_min_p(tests.p_high_.T, tests.windows_, params.reference_days)
     rows = np.arange(n_accounts)
@@ -220,8 +237,9 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
 
     # Silence is judged against the history up to the last activity, not against itself.
     last_active = last_active_column(values)
-    silent_days, p_silence, last_active = silence(values, np.minimum(hist_end, last_active + 1), weekdays, first_seen,
-                                                  last_active=last_active)
+    # ... and by the weekday shape the account has now: its quiet days since a change of shape.
+    silent_days, p_silence, last_active = silence(values, np.minimum(hist_end, last_active + 1), weekdays,
+                                                  np.maximum(first_seen, shape_since), last_active=last_active)
     dormant = silent_days >= params.dormant_days
     silent = silent_days >= 2
     p_stop = np.where(silent, p_silence, 1.0)
@@ -331,4 +349,5 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         "low_volume": tests.baseline_[:, week] * 7 < 2 * half_event * tests.count_floor_events,
         "reference_end_day": panel.start_day + reference_end,
         "weekday_factors": list(np.round(profile.factors_, 4)),
+        "weekday_shape_since_day": np.where(shape_since >= 0, panel.start_day + shape_since, -1),
     })

@@ -65,7 +65,8 @@ def render_explanation(info: dict) -> str:
         f"  today          {_today(info['today'])}",
         f"  baseline       {b['why']} [{b['model']}]",
         f"                 reference ends {b['reference_ends']}; steady growth {_num(b['growth_pct_year'], '{:+.0f}')}% a year",
-        "  weekday        " + "  ".join(f"{d} {v:.2f}" for d, v in info["weekday_factors"].items()),
+        "  weekday        " + "  ".join(f"{d} {v:.2f}" for d, v in info["weekday_factors"].items())
+        + (f" (this shape since {info['weekday_shape_since']})" if info.get("weekday_shape_since") else ""),
         f"  last {r['window_days']} days".ljust(17) + _recent(r),
         "  changepoint    " + _changepoint(cp),
         "  segments       " + ("; ".join(f"{s['start']} to {s['end']} at {_num(s['level'])}/day" for s in info["segments"])

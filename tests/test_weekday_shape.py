@@ -1,0 +1,82 @@
+"""A change of weekday shape is not a drop: the profile and the silence test follow the shape an
+account has had since the change (planted-truth data, invented for these tests)."""
+
+from datetime import date, timedelta
+
+import numpy as np
+
+from ebbwatch.baseline import WeekdayProfile
+from ebbwatch.baseline.shape_change import weekday_shape_split
+
+from ebbwatch.datasets import make_fleet
+
+from .test_behaviour import judge
+
+SUNDAY = date(2026, 3, 29)
+FLAT = np.ones(7)
+WEEKDAYS_ONLY = np.array([1.4, 1.4, 1.4, 1.4, 1.3, 0.05, 0.05])
+WEEKEND_HEAVY = np.array([0.8, 0.8, 0.8, 0.8, 0.9, 1.5, 1.4])
+
+
+def _counts(rng, shapes_by_week, rate, noise_shape=5.0):
+    """Daily counts, Poisson around ``rate`` times the week's shape times a gamma day effect
+    (over-dispersed, as activity is); ``shapes_by_week`` oldest first, Monday first."""
+    shape = np.concatenate([s / s.mean() for s in shapes_by_week])
+    expected = np.asarray(rate, float)[:, None] * shape[None, :]
+    return rng.poisson(expected * rng.gamma(noise_shape, 1.0 / noise_shape, expected.shape)).astype(float)
+
+
+def test_stable_weeks_rarely_split_and_a_new_shape_is_found_where_it_began():
+    rng = np.random.default_rng(3)
+    profile = WeekdayProfile(change_statistic=40.0)
+    false = []
+    for shape in (FLAT, WEEKDAYS_ONLY, WEEKEND_HEAVY):
+        for rate in (3.0, 10.0, 50.0):
+            counts = _counts(rng, [shape] * 16, np.full(1500, rate))
+            false.append(float((profile.fit(counts, 0).change_start_ >= 0).mean()))
+    # The threshold is set at about one stable account in 200 (3+ events a day); allow 2%.
+    assert max(false) <= 0.02, false
+    for old, new in ((FLAT, WEEKDAYS_ONLY), (WEEKDAYS_ONLY, WEEKEND_HEAVY)):
+        counts = _counts(rng, [old] * 10 + [new] * 6, np.full(500, 10.0))
+        fitted = profile.fit(counts, 0)
+        found = fitted.change_start_ >= 0
+        assert found.mean() >= 0.8
+        assert np.mean(np.abs(fitted.change_start_[found] - 70) <= 7) >= 0.9  # week 10 starts at column 70
+        # The factors are the new shape's, not a blend with the old one.
+        off_new = np.abs(fitted.factors_[found] - new / new.mean()).mean(axis=1)
+        off_old = np.abs(fitted.factors_[found] - old / old.mean()).mean(axis=1)
+        assert np.median(off_new) < 0.4 * np.median(off_old), (np.median(off_new), np.median(off_old))
+
+
+def test_the_split_statistic_grows_with_the_change():
+    rng = np.random.default_rng(5)
+    counts = _counts(rng, [FLAT] * 10 + [WEEKDAYS_ONLY] * 6, np.full(200, 20.0))
+    weeks = counts.reshape(200, 16, 7)
+    share = (weeks / weeks.mean(axis=2, keepdims=True)).transpose(0, 2, 1)
+    big, split, shift = weekday_shape_split(share, np.ones((200, 16), bool))
+    assert np.median(split) == 10 and np.median(shift) > 0.8
+    mild = _counts(rng, [FLAT] * 10 + [0.5 * FLAT + 0.5 * WEEKDAYS_ONLY] * 6, np.full(200, 20.0)).reshape(200, 16, 7)
+    small, _, _ = weekday_shape_split((mild / mild.mean(axis=2, keepdims=True)).transpose(0, 2, 1),
+                                      np.ones((200, 16), bool))
+    assert np.median(small) < np.median(big)
+
+
+def test_an_account_that_stopped_working_weekends_is_not_alerted_on_its_weekend():
+    """Five weeks ago the account moved its weekend work to the weekdays (the same weekly total).
+    Judged on a Sunday after two empty weekend days, it used to read as a stop (or a drop) every
+    weekend until the old shape left the profile's sixteen weeks."""
+    rng = np.random.default_rng(11)
+    totals = make_fleet(80, 365, as_of=SUNDAY, seed=0, share_changed=0.0).counts.sum(axis=2)
+    n_days = totals.shape[1]
+    first_monday = (7 - (SUNDAY - timedelta(days=n_days - 1)).weekday()) % 7
+    weeks = (n_days - first_monday) // 7
+    series = np.zeros(n_days)
+    series[first_monday:] = _counts(rng, [FLAT] * (weeks - 5) + [WEEKDAYS_ONLY] * 5, np.array([40.0]))[0]
+    series[:first_monday] = rng.poisson(40.0, first_monday)
+    scores, alerts = judge(np.vstack([totals, series]), as_of=SUNDAY)
+    account = f"a{totals.shape[0]}"
+    assert account not in set(alerts["account"]), alerts
+    row = scores.loc[account]
+    assert row["down_kind"] != "stop" and row["p_down"] > 0.01, row[["p_down", "down_kind", "p_stop"]]
+    change_day = (SUNDAY - date(1970, 1, 1)).days - 35 + 1
+    assert abs(row["weekday_shape_since_day"] - change_day) <= 7
