@@ -80,3 +80,27 @@ def test_an_account_that_stopped_working_weekends_is_not_alerted_on_its_weekend(
     assert row["down_kind"] != "stop" and row["p_down"] > 0.01, row[["p_down", "down_kind", "p_stop"]]
     change_day = (SUNDAY - date(1970, 1, 1)).days - 35 + 1
     assert abs(row["weekday_shape_since_day"] - change_day) <= 7
+
+
+def test_an_ordinary_empty_weekend_of_a_weekday_account_is_not_a_drop():
+    """A weekday account whose weekends bring a few events (a twenty-fifth of a weekday each),
+    growing steadily: its weekday profile pulls the weekends toward the week's mean, so every
+    weekend reads far below what is 'expected', and an empty one, expected most, read as the
+    lowest ever (p 0.0002).  Against the account's own earlier weekends it is a little unusual."""
+    rng = np.random.default_rng(3)
+    totals = make_fleet(80, 365, as_of=SUNDAY, seed=1, share_changed=0.0).counts.sum(axis=2)
+    n_days = totals.shape[1]
+    weekday = (np.arange(n_days) + (SUNDAY - timedelta(days=n_days - 1)).weekday()) % 7
+    shape = np.array([1.4, 1.4, 1.4, 1.4, 1.3, 0.04, 0.04])
+    level = 40.0 * np.exp(np.log(1.6) * (np.arange(n_days) - n_days) / 365.0)  # +60% a year
+    series = rng.poisson(level * shape[weekday] * rng.gamma(5, 0.2, n_days)).astype(float)
+    series[-2:] = 0.0  # this weekend: empty
+    scores, alerts = judge(np.vstack([totals, series]), as_of=SUNDAY)
+    account = f"a{totals.shape[0]}"
+    assert account not in set(alerts["account"]), alerts
+    assert scores.loc[account, "p_down"] > 0.01, scores.loc[account, ["p_down", "window_down", "change_down_pct"]]
+    # The same account with a weekday gone quiet is still a drop of its short windows.
+    series[-3:] = 0.0
+    series[-4] = 0.0  # Thursday and Friday empty too: four days where forty events a day were usual
+    scores, _ = judge(np.vstack([totals, series]), as_of=SUNDAY)
+    assert scores.loc[account, "p_down"] < 0.001

@@ -24,6 +24,7 @@ from ..baseline._base import Estimator, check_matrix
 from ..baseline.counts import nbinom_mid_p
 from ..series import fast_nanmedian_rows
 from .calibrate import tail_p
+from .weekday_misfit import same_weekday_too
 
 BASE_WINDOW = 7  # the window every other window's spread is pooled against (a whole week)
 
@@ -198,7 +199,21 @@ def _block_statistics(values, factors, first_seen, half_event, p):
         out[k] = {**last, "current": current, "ordered": ordered, "n": n, "centre": centre, "stride": stride,
                   "spread": spread, "half_low": half_low, "half_high": half_high,
                   "points": n * stride / k, "count_var": count_var, "events": events}
+        if k < BASE_WINDOW:
+            out[k]["same_weekday"] = _same_weekday_summary(sums, k, cut, half_event, half_growth, p["min_reference_days"])
     return out, growth
+
+
+def _same_weekday_summary(sums, k: int, cut: int, half_event, half_growth, min_reference_days: int):
+    """Median, spread (IQR / 1.349) and count of the history's k-day windows that end on the same
+    weekday as the judged one (one a week, growth taken out as for the pooled history), (A,)."""
+    n_days = sums.X.shape[1] - 1
+    contrast, span = sums.history(k, cut - (cut - n_days) % 7, half_event, min_reference_days, 7)
+    contrast -= span * half_growth
+    contrast -= k * half_growth
+    ordered, n = _sorted_history(contrast)
+    quartile = (_order_statistic(ordered, n, 0.75) - _order_statistic(ordered, n, 0.25)) / 1.349
+    return _order_statistic(ordered, n, 0.5), quartile, n
 
 
 def _priors_from(by_window, windows, min_accounts: int = 20) -> WindowPriors:
@@ -253,14 +268,20 @@ class WindowTests(Estimator):
     count_floor_events : float
         Windows expecting fewer events than this never get a lower tail below the negative
         binomial's mid-p (small counts are discrete and their zeros heavy).
+    weekday_misfit : float
+        A window shorter than a week is judged against windows ending on every weekday; where
+        those ending on its own weekday sit this far (log) from the rest, the weekday profile
+        does not fit that weekday (a nearly empty weekend pulled toward the week's mean, say),
+        and the window must also be unusual against its own weekday's windows (the larger
+        p-value of the two: an intersection-union test, valid at the level of each).
     """
 
     _parameters = ("windows", "reference_days", "min_reference_days", "history_gap_days", "prior_windows",
-                   "ratio_prior_windows", "anchor_points", "count_floor_events")
+                   "ratio_prior_windows", "anchor_points", "count_floor_events", "weekday_misfit")
 
     def __init__(self, windows=(2, 4, 7, 14, 28), reference_days: int = 182, min_reference_days: int = 28,
                  history_gap_days: int = 60, prior_windows: float = 5.0, ratio_prior_windows: float = 10.0,
-                 anchor_points: int = 5, count_floor_events: float = 30.0):
+                 anchor_points: int = 5, count_floor_events: float = 30.0, weekday_misfit: float = 0.3):
         self.windows = windows
         self.reference_days = reference_days
         self.min_reference_days = min_reference_days
@@ -269,6 +290,7 @@ class WindowTests(Estimator):
         self.ratio_prior_windows = ratio_prior_windows
         self.anchor_points = anchor_points
         self.count_floor_events = count_floor_events
+        self.weekday_misfit = weekday_misfit
 
     def _check(self):
         try:
@@ -279,6 +301,8 @@ class WindowTests(Estimator):
             raise ValueError(f"windows must be distinct positive day counts including {BASE_WINDOW}, got {self.windows}")
         if self.reference_days < self.min_reference_days or self.min_reference_days < 1 or self.history_gap_days < 0:
             raise ValueError("need reference_days >= min_reference_days >= 1 and history_gap_days >= 0")
+        if not self.weekday_misfit > 0:
+            raise ValueError(f"weekday_misfit must be a positive log distance, got {self.weekday_misfit}")
         return windows
 
     def fit(self, values, factors, first_seen, half_event, priors: WindowPriors | None = None,
@@ -358,9 +382,13 @@ class WindowTests(Estimator):
                 floor, _ = nbinom_mid_p(np.round(s["observed"][small] / (2 * half_event[small])), s["events"][small],
                                         dispersion)
                 p_low[small] = np.maximum(p_low[small], floor)
+            p_high = tail_p(-z, at_or_above, n, np.where(n >= anchor, -highest, np.nan), df, anchor,
+                            independent=k == 1)
+            if "same_weekday" in s:
+                p_low, p_high = same_weekday_too(s, p_low, p_high, half_event, count_dispersion,
+                                                 misfit=self.weekday_misfit, count_floor_events=self.count_floor_events)
             self.p_low_[:, i] = p_low
-            self.p_high_[:, i] = tail_p(-z, at_or_above, n, np.where(n >= anchor, -highest, np.nan), df, anchor,
-                                        independent=k == 1)
+            self.p_high_[:, i] = p_high
             self.z_[:, i] = z
             with np.errstate(invalid="ignore", divide="ignore"):
                 self.change_pct_[:, i] = 100.0 * (s["observed"] / s["expected"] - 1.0)
@@ -377,3 +405,4 @@ class WindowTests(Estimator):
         self.growth_ = growth
         self.priors_ = priors
         return self
+
