@@ -104,3 +104,27 @@ def test_an_ordinary_empty_weekend_of_a_weekday_account_is_not_a_drop():
     series[-4] = 0.0  # Thursday and Friday empty too: four days where forty events a day were usual
     scores, _ = judge(np.vstack([totals, series]), as_of=SUNDAY)
     assert scores.loc[account, "p_down"] < 0.001
+
+
+def test_explain_names_the_day_the_present_weekday_shape_began(tmp_path):
+    import pandas as pd
+
+    import ebbwatch
+    from ebbwatch.report.explain_text import render_explanation
+
+    rng = np.random.default_rng(0)
+    totals = make_fleet(30, 200, as_of=SUNDAY, seed=0, share_changed=0.0).counts.sum(axis=2)
+    n_days = totals.shape[1]
+    weekday = (np.arange(n_days) + (SUNDAY - timedelta(days=n_days - 1)).weekday()) % 7
+    changed = n_days - 42  # a Monday, six weeks before as-of
+    shape = np.where(np.arange(n_days) < changed, 1.0, (WEEKDAYS_ONLY / WEEKDAYS_ONLY.mean())[weekday])
+    totals = np.vstack([totals, rng.poisson(40 * shape)])
+    rows = [(f"a{i}", (SUNDAY - timedelta(days=n_days - 1 - d)).isoformat(), "use", int(totals[i, d]))
+            for i in range(totals.shape[0]) for d in range(n_days) if totals[i, d]]
+    pd.DataFrame(rows, columns=["account", "day", "event", "count"]).to_csv(tmp_path / "daily.csv", index=False)
+    db = str(tmp_path / "s.duckdb")
+    ebbwatch.ingest_files([], db=db, daily=str(tmp_path / "daily.csv"))
+    info = ebbwatch.explain("a30", db=db, as_of=SUNDAY)
+    assert info["weekday_shape_since"] == (SUNDAY - timedelta(days=41)).isoformat()
+    assert f"this shape since {info['weekday_shape_since']}" in render_explanation(info)
+    assert ebbwatch.explain("a0", db=db, as_of=SUNDAY)["weekday_shape_since"] is None
