@@ -60,6 +60,8 @@ class WeekdayProfile(Estimator):
         n_weeks = n_days // 7
         factors = np.ones((n_accounts, 7))
         weeks_used = np.zeros(n_accounts, dtype=int)
+        changed = np.zeros(n_accounts, bool)
+        change_start = np.full(n_accounts, -1)
         if n_weeks:
             offset = n_days - 7 * n_weeks  # align weeks to end at the last column
             weeks = values[:, offset:].reshape(n_accounts, n_weeks, 7)
@@ -74,8 +76,6 @@ class WeekdayProfile(Estimator):
             with np.errstate(invalid="ignore", divide="ignore"):
                 np.divide(weeks.transpose(0, 2, 1), week_mean[:, None, :], out=share)
             share[np.broadcast_to(~usable[:, None, :], share.shape)] = np.nan
-            changed = np.zeros(n_accounts, bool)
-            change_start = np.full(n_accounts, -1)
             if self.change_statistic is not None:
                 statistic, split, shift = weekday_shape_split(share, usable)
                 changed = (statistic > self.change_statistic) & (shift > self.change_shift)
@@ -97,8 +97,6 @@ class WeekdayProfile(Estimator):
             shrunk /= shrunk.mean(axis=1, keepdims=True)
             position_weekday = (first_weekday + offset + np.arange(7)) % 7
             factors[:, position_weekday] = shrunk
-        else:
-            change_start = np.full(n_accounts, -1)
         self.factors_ = factors
         self.weeks_ = weeks_used
         self.change_start_ = change_start

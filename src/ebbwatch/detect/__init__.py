@@ -212,19 +212,14 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
 
     profile, factors, shape_since = _weekday_factors(values, weekdays, hist_end, params)
     half_event = _half_event(panel)
-    tests = WindowTests(windows=params.windows, reference_days=params.reference_days,
-                        history_gap_days=params.history_gap_days).fit(
-        values, factors, first_seen, half_event, priors=params.window_priors,
-        count_dispersion=params.pooled_count_dispersion or 0.0)
-    windows = np.asarray(tests.windows_)
     # Windows shorter than a week are judged by the weekday shape and calibrated on the account's
     # past: after a change of shape that past is of another shape, so until the change leaves the
     # profile's weeks only whole-week windows (unmoved by how a week is spread) speak.
-    reshaped = np.flatnonzero(shape_since >= 0)
-    if reshaped.size:
-        part_week = windows < 7
-        tests.p_low_[np.ix_(reshaped, np.flatnonzero(part_week))] = 1.0
-        tests.p_high_[np.ix_(reshaped, np.flatnonzero(part_week))] = 1.0
+    tests = WindowTests(windows=params.windows, reference_days=params.reference_days,
+                        history_gap_days=params.history_gap_days).fit(
+        values, factors, first_seen, half_event, priors=params.window_priors,
+        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=shape_since >= 0)
+    windows = np.asarray(tests.windows_)
     p_level_low = nested_min_p(tests.p_low_.T, tests.windows_, params.reference_days)
     p_level_high = nested_min_p(tests.p_high_.T, tests.windows_, params.reference_days)
     rows = np.arange(n_accounts)

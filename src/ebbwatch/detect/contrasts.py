@@ -306,14 +306,16 @@ class WindowTests(Estimator):
         return windows
 
     def fit(self, values, factors, first_seen, half_event, priors: WindowPriors | None = None,
-            count_dispersion: float = 0.0):
+            count_dispersion: float = 0.0, whole_weeks_only=None):
         """Test each account's last column.
 
         ``values`` (A, D): the activity index with the fleet factor divided out, NaN where missing;
         ``factors`` (A, D): each day's weekday factor; ``first_seen`` (A,): first active column;
         ``half_event`` (A,): half an event in index units; ``priors``: fleet-wide priors (None:
         pooled over this block); ``count_dispersion``: the fleet's pooled negative-binomial
-        dispersion of small accounts (the count floor's least dispersion).
+        dispersion of small accounts (the count floor's least dispersion); ``whole_weeks_only``
+        (A,) bool: accounts whose windows shorter than a week do not speak (p-values 1), as after
+        a change of weekday shape their history is of another shape.
 
         Sets ``p_low_``/``p_high_``/``z_``/``change_pct_`` (A, W), ``growth_`` (A, per day),
         ``history_points_`` (A, 7-day history points), ``percentile_`` (A, W: where each window's
@@ -387,6 +389,8 @@ class WindowTests(Estimator):
             if "same_weekday" in s:
                 p_low, p_high = same_weekday_too(s, p_low, p_high, half_event, count_dispersion,
                                                  misfit=self.weekday_misfit, count_floor_events=self.count_floor_events)
+            if whole_weeks_only is not None and k < BASE_WINDOW:
+                p_low, p_high = np.where(whole_weeks_only, 1.0, p_low), np.where(whole_weeks_only, 1.0, p_high)
             self.p_low_[:, i] = p_low
             self.p_high_[:, i] = p_high
             self.z_[:, i] = z
@@ -405,4 +409,3 @@ class WindowTests(Estimator):
         self.growth_ = growth
         self.priors_ = priors
         return self
-
