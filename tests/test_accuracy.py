@@ -53,8 +53,9 @@ def test_p_values_are_calibrated_on_quiet_accounts_of_the_development_family(qui
     within sampling error (4 standard errors, 1,200 accounts in four fleets).
 
     One case misses that target and is pinned instead, not passed: rising p-values at 0.05.
-    Measured 2026-12-04 on twelve quiet fleets of the family (seeds 200-211, 3,570 accounts),
-    the share below 0.05 is 0.027 (per-fleet standard error 0.0044, five below 0.05): too few,
+    Measured 2026-12-05 on twelve quiet fleets of the family (seeds 200-211, 3,567 accounts),
+    the share below 0.05 is 0.031 (0.027 before the upper tail followed its own half of the
+    history, 2026-12-04; five standard errors below 0.05): too few,
     because a history whose upper tail is lighter than the Student-t is never allowed to make
     the tail lighter than the t (``calibrate.tail_p``), which held-out family C needs.  Here it
     may not fall under 0.35 alpha nor rise above the target's upper limit."""
@@ -68,10 +69,12 @@ def test_p_values_are_calibrated_on_quiet_accounts_of_the_development_family(qui
 @pytest.mark.parametrize("family", HELD_OUT)
 def test_calibration_on_held_out_families_stays_where_it_was_measured(quiet, family):
     """Not the target.  The target is "within sampling error" on every family, and on the
-    held-out families it is missed: measured 2026-12-04 (1,180-1,190 quiet accounts each, both
-    directions), the share below alpha is 4-10 times alpha at 0.001, 0.9-3.0 times at 0.01,
-    0.54-1.37 times at 0.05 and 0.42-1.35 times at 0.1.  This pins those measurements against
-    getting worse: at most 12, 3.5, 1.6 and 1.6 times alpha, at least 0.35 times at 0.05 and 0.1."""
+    held-out families it is missed: measured 2026-12-05 (1,180-1,193 quiet accounts each, both
+    directions), the share below alpha is 0.8-9.3 times alpha at 0.001, 0.85-3.0 times at 0.01,
+    0.42-1.30 times at 0.05 and 0.36-1.22 times at 0.1 (the 0.36: C's falling p-values, made more
+    conservative when the growth rate stopped being subtracted).  This pins those measurements
+    against getting worse: at most 12, 3.5, 1.6 and 1.6 times alpha, at least 0.35 times at 0.05
+    and 0.1."""
     runs = quiet[family]
     for side in (0, 1):
         for alpha, high in ((0.001, 12.0), (0.01, 3.5), (0.05, 1.6), (0.1, 1.6)):

@@ -7,6 +7,7 @@ import numpy as np
 from ebbwatch.alerts import select_alerts
 from ebbwatch.datasets import make_fleet
 from ebbwatch.detect import SCORE_COLUMNS, ScanParams, score_panel
+from ebbwatch.detect.contrasts import WindowTests
 from ebbwatch.series import build_panel, fleet_factor, with_fleet
 
 AS_OF = date(2026, 3, 31)
@@ -233,3 +234,20 @@ def test_fleet_factor_needs_twenty_voting_accounts():
         factor, _ = fleet_factor(counts)
         assert fleet_voting_accounts(counts) == n
         assert (factor[100:105].max() < 0.7) == read
+
+
+def test_each_tail_of_a_skewed_history_is_judged_by_its_own_half():
+    """Quiet accounts of 30 events a day whose history is skewed by their own dips (one day in
+    ten at 30%): the dips stretch the lower half of the contrasts, not the upper, so a rise is
+    judged by the upper half's spread.  Reference: the uniform distribution (0.01 below 0.01).
+    With one spread for both tails, p_high < 0.01 came 0.0008 of the time over the 2-, 4- and
+    7-day windows; now 0.0047 (measured 2026-12-05), held at no less than 0.35 of 0.01, and the
+    lower tail (0.0146) within 2.5 times it."""
+    rng = np.random.default_rng(5)
+    n_accounts, n_days = 4000, 400
+    rate = 30.0 * np.where(rng.random((n_accounts, n_days)) < 0.10, 0.3, 1.0)
+    values = rng.poisson(rate).astype(float)
+    tests = WindowTests().fit(values, np.ones_like(values), np.zeros(n_accounts, int), np.full(n_accounts, 0.5))
+    short = [list(tests.windows_).index(k) for k in (2, 4, 7)]
+    assert np.mean(tests.p_high_[:, short] < 0.01) >= 0.0035
+    assert np.mean(tests.p_low_[:, short] < 0.01) <= 0.025

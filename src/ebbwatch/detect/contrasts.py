@@ -159,14 +159,18 @@ def _order_statistic(ordered, n, q):
 
 
 def _block_statistics(values, factors, first_seen, half_event, p):
-    """Per window: the judged contrast (growth taken out), its sorted history and their summary,
-    for :class:`WindowTests` and :func:`window_priors`.  Windows are done one at a time, so a
-    block holds one window's (A, D) arrays at once."""
+    """Per window: the judged contrast, its sorted history and their summary, for
+    :class:`WindowTests` and :func:`window_priors`, and each account's steady growth rate (log per
+    day).  Windows are done one at a time, so a block holds one window's (A, D) arrays at once."""
     sums = _Sums(values, factors, first_seen, p["reference_days"])
     cut = max(values.shape[1] - p["history_gap_days"], 0)
     half_event = np.asarray(half_event, float)
-    # Steady growth or decline: the contrast grows with the distance between the two periods, so
-    # it is read as a rate per day from the weekly window's history and taken out of every window.
+    # Steady growth or decline, as a rate per day from the weekly window's history: reported, not
+    # taken out.  A steady drift moves every contrast of the history as it moves the judged one,
+    # so the history's median already carries it.  Subtracting the rate added its own noise to
+    # every window (on the development fleet's steady accounts it spreads from -15% to +7% a year
+    # between quartiles, far wider on seasonal ones), and quiet accounts had about 3x too many
+    # p-values below 0.001.
     weekly = sums.history(BASE_WINDOW, cut, half_event, p["min_reference_days"], history_stride(BASE_WINDOW))
     contrast, span = weekly
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -178,15 +182,12 @@ def _block_statistics(values, factors, first_seen, half_event, p):
     for k in p["windows"]:
         stride = history_stride(k)
         contrast, span = weekly if k == BASE_WINDOW else sums.history(k, cut, half_event, p["min_reference_days"], stride)
-        half_growth = (0.5 * growth).astype(np.float32)[:, None]
-        contrast -= span * half_growth  # growth times the lag, 0.5 (k + span)
-        contrast -= k * half_growth
         ordered, n = _sorted_history(contrast)
         del contrast, span
         q125, q25, q375, centre, q625, q75, q875 = (_order_statistic(ordered, n, q)
                                                     for q in (0.125, 0.25, 0.375, 0.5, 0.625, 0.75, 0.875))
         last = sums.last_window(k, half_event, p["min_reference_days"])
-        current = last["contrast"] - growth * last["lag"]
+        current = last["contrast"]
         events = np.nan_to_num(last["expected"] / (2.0 * half_event))  # half_event is half of one event
         count_var = (1.0 / (events + 0.5)) * (1.0 + k / np.maximum(last["reference_days"], 1.0))
         spread = (q75 - q25) / 1.349
@@ -200,17 +201,15 @@ def _block_statistics(values, factors, first_seen, half_event, p):
                   "spread": spread, "half_low": half_low, "half_high": half_high,
                   "points": n * stride / k, "count_var": count_var, "events": events}
         if k < BASE_WINDOW:
-            out[k]["same_weekday"] = _same_weekday_summary(sums, k, cut, half_event, half_growth, p["min_reference_days"])
+            out[k]["same_weekday"] = _same_weekday_summary(sums, k, cut, half_event, p["min_reference_days"])
     return out, growth
 
 
-def _same_weekday_summary(sums, k: int, cut: int, half_event, half_growth, min_reference_days: int):
+def _same_weekday_summary(sums, k: int, cut: int, half_event, min_reference_days: int):
     """Median, spread (IQR / 1.349) and count of the history's k-day windows that end on the same
-    weekday as the judged one (one a week, growth taken out as for the pooled history), (A,)."""
+    weekday as the judged one (one a week), (A,)."""
     n_days = sums.X.shape[1] - 1
-    contrast, span = sums.history(k, cut - (cut - n_days) % 7, half_event, min_reference_days, 7)
-    contrast -= span * half_growth
-    contrast -= k * half_growth
+    contrast, _ = sums.history(k, cut - (cut - n_days) % 7, half_event, min_reference_days, 7)
     ordered, n = _sorted_history(contrast)
     quartile = (_order_statistic(ordered, n, 0.75) - _order_statistic(ordered, n, 0.25)) / 1.349
     return _order_statistic(ordered, n, 0.5), quartile, n
@@ -317,7 +316,8 @@ class WindowTests(Estimator):
         (A,) bool: accounts whose windows shorter than a week do not speak (p-values 1), as after
         a change of weekday shape their history is of another shape.
 
-        Sets ``p_low_``/``p_high_``/``z_``/``change_pct_`` (A, W), ``growth_`` (A, per day),
+        Sets ``p_low_``/``p_high_``/``z_``/``change_pct_`` (A, W), ``growth_`` (A, log per day;
+        reported, not taken out),
         ``history_points_`` (A, 7-day history points), ``percentile_`` (A, W: where each window's
         contrast falls among the same window's contrasts in the account's history, 0-100 by mid-rank:
         0 below every one, 100 above every one, NaN without a history), ``level_`` and ``baseline_``
@@ -357,13 +357,20 @@ class WindowTests(Estimator):
                 points = s["points"] + self.ratio_prior_windows
             var = var / s["complete"]  # a window with masked days is noisier than full ones
             # A two-peaked history is wide as a whole, but beyond its outer peaks it is as narrow as
-            # they are: where both halves are narrower than the whole, the spread narrows with
-            # them (shrunk toward the whole on a short history).  One narrow half alone is skew,
-            # not two peaks, and changes nothing.
-            narrow = np.clip(1 + weight * (np.maximum(s["half_low"], s["half_high"]) - 1), 0.5, 1.0)
-            sd = np.sqrt(np.maximum(var, 1e-6)) * narrow
+            # they are: where both halves are narrower than the whole, both tails narrow with the
+            # wider of them.  The upper tail also narrows with its own half alone: log counts
+            # compress rises, and an account's own dips and holidays stretch only the lower half,
+            # so a quiet account's upper half is usually the narrow one (with one spread for both,
+            # 1.35% of the development family's quiet accounts had a rising p-value under 0.05).
+            # A narrow lower half alone is a bursty account's, and narrowing the lower tail there
+            # turned quiet days into drops when every day of a year was replayed (false episodes
+            # 2.5 -> 3.0 per 100 account-months).  Never widened, narrowed by at most half, shrunk
+            # toward the whole on a short history.
+            sd = np.sqrt(np.maximum(var, 1e-6))
+            sd_low = sd * np.clip(1 + weight * (np.maximum(s["half_low"], s["half_high"]) - 1), 0.5, 1.0)
+            sd_high = sd * np.clip(1 + weight * (s["half_high"] - 1), 0.5, 1.0)
             centre = weight * s["centre"]
-            z = (s["current"] - centre) / sd
+            z_low, z_high = (s["current"] - centre) / sd_low, (s["current"] - centre) / sd_high
             df = np.clip(points + n0, 3.0, 50.0)
             ordered, n = s["ordered"], s["n"]
             anchor = max(self.anchor_points, -(-k // s["stride"]))  # at least one window's worth
@@ -372,11 +379,11 @@ class WindowTests(Estimator):
                 at_or_above = n - (ordered < s["current"][:, None]).sum(axis=1)
             if ordered.shape[1]:
                 last = ordered.shape[1] - 1
-                lowest = (ordered[:, min(anchor, ordered.shape[1]) - 1] - centre) / sd
-                highest = (ordered[rows, np.clip(n - anchor, 0, last)] - centre) / sd
+                lowest = (ordered[:, min(anchor, ordered.shape[1]) - 1] - centre) / sd_low
+                highest = (ordered[rows, np.clip(n - anchor, 0, last)] - centre) / sd_high
             else:
                 lowest = highest = np.full(len(n), np.nan)
-            p_low = tail_p(z, at_or_below, n, np.where(n >= anchor, lowest, np.nan), df, anchor,
+            p_low = tail_p(z_low, at_or_below, n, np.where(n >= anchor, lowest, np.nan), df, anchor,
                            independent=k == 1)
             small = np.flatnonzero(s["events"] < self.count_floor_events)
             if small.size:
@@ -384,7 +391,7 @@ class WindowTests(Estimator):
                 floor, _ = nbinom_mid_p(np.round(s["observed"][small] / (2 * half_event[small])), s["events"][small],
                                         dispersion)
                 p_low[small] = np.maximum(p_low[small], floor)
-            p_high = tail_p(-z, at_or_above, n, np.where(n >= anchor, -highest, np.nan), df, anchor,
+            p_high = tail_p(-z_high, at_or_above, n, np.where(n >= anchor, -highest, np.nan), df, anchor,
                             independent=k == 1)
             if "same_weekday" in s:
                 p_low, p_high = same_weekday_too(s, p_low, p_high, half_event, count_dispersion,
@@ -393,7 +400,7 @@ class WindowTests(Estimator):
                 p_low, p_high = np.where(whole_weeks_only, 1.0, p_low), np.where(whole_weeks_only, 1.0, p_high)
             self.p_low_[:, i] = p_low
             self.p_high_[:, i] = p_high
-            self.z_[:, i] = z
+            self.z_[:, i] = np.where(s["current"] < centre, z_low, z_high)
             with np.errstate(invalid="ignore", divide="ignore"):
                 self.change_pct_[:, i] = 100.0 * (s["observed"] / s["expected"] - 1.0)
             with np.errstate(invalid="ignore", divide="ignore"):
