@@ -22,11 +22,9 @@ import numpy as np
 
 from ..baseline._base import Estimator, check_matrix
 from ..baseline.counts import nbinom_mid_p
-from ..series import fast_nanmedian_rows
 from .calibrate import tail_p
 from .weekday_misfit import same_weekday_too
-
-BASE_WINDOW = 7  # the window every other window's spread is pooled against (a whole week)
+from .window_history import BASE_WINDOW, window_statistics
 
 
 @dataclass(frozen=True)
@@ -46,173 +44,6 @@ class WindowPriors:
     def of(self, window: int) -> tuple[float, float]:
         i = self.windows.index(window)
         return self.excess[i], self.ratio[i]
-
-
-def _cumulative(matrix, dtype=np.float64) -> np.ndarray:
-    """Row-wise cumulative sums with a leading zero column, (A, D + 1)."""
-    out = np.zeros((matrix.shape[0], matrix.shape[1] + 1), dtype)
-    np.cumsum(matrix, axis=1, out=out[:, 1:])
-    return out
-
-
-def history_stride(window: int) -> int:
-    """Every how many days a window's history is sampled: neighbouring windows of k days share
-    k - 1 of them, so every third of a window's length keeps nearly all the information."""
-    return max(1, window // 3)
-
-
-class _Sums:
-    """Cumulative sums behind every window and the reference series, computed once a block."""
-
-    def __init__(self, values, factors, first_seen, reference_days: int):
-        valid = np.isfinite(values)
-        self.X = _cumulative(np.where(valid, values, 0.0))
-        self.F = _cumulative(np.where(valid, factors, 0.0))
-        self.N = _cumulative(valid, np.int32)
-        # The histories are computed in single precision (half the memory traffic; a window's
-        # count is still exact to well under an event); the judged window in double.
-        self.X32, self.F32 = self.X.astype(np.float32), self.F.astype(np.float32)
-        self.factors = factors
-        n_days = values.shape[1]
-        # The reference ending before column j is columns max(j - R, first activity) .. j - 1.
-        # The sums are zero before the first activity, so a plain lag of R columns gives the same
-        # totals; only the calendar span needs the first activity.
-        lag = min(reference_days, n_days + 1)
-
-        def reference(m):
-            out = m.copy()
-            out[:, lag:] -= m[:, :n_days + 1 - lag]
-            return out
-
-        with np.errstate(invalid="ignore", divide="ignore"):
-            self.reference_level = np.divide(reference(self.X32), reference(self.F32))
-        self.reference_days = reference(self.N).astype(np.int16)
-        self.first_seen = np.asarray(first_seen)
-        span = np.arange(n_days + 1, dtype=np.int16)[None, :] - self.first_seen.astype(np.int16)[:, None]
-        np.clip(span, 0, reference_days, out=span)
-        self.reference_span = span  # calendar days, masked ones included
-
-    @staticmethod
-    def lag(span, k: int):
-        """Days between the centres of a k-day window and its reference of ``span`` days."""
-        return 0.5 * (k + span)
-
-    def history(self, k: int, last_end: int, half_event, min_reference_days: int, stride: int = 1):
-        """The contrasts of the whole k-day windows ending by column ``last_end - 1``, every
-        ``stride``-th one back from the last, (A, W) float32 with NaN where one cannot be told,
-        and the calendar span of each one's reference, (A, W)."""
-        width = max(last_end - k + 1, 0)
-        first = (width - 1) % stride if width else 0
-        ends, starts = slice(k + first, k + width, stride), slice(first, width, stride)
-        half = half_event.astype(np.float32)[:, None]
-        contrast = self.X32[:, ends] - self.X32[:, starts]
-        expected = self.F32[:, ends] - self.F32[:, starts]
-        expected *= self.reference_level[:, starts]
-        contrast += half
-        expected += half
-        with np.errstate(invalid="ignore", divide="ignore"):
-            np.divide(contrast, expected, out=contrast)
-            np.log(contrast, out=contrast)
-        # (A window before the first activity has no reference days, so it is caught here too.)
-        unusable = (self.N[:, ends] - self.N[:, starts]) < (k + 1) // 2
-        unusable |= self.reference_days[:, starts] < min_reference_days
-        contrast[unusable] = np.nan
-        return contrast, self.reference_span[:, starts]
-
-    def last_window(self, k: int, half_event, min_reference_days: int):
-        """The judged window (the last k days): its contrast, lag and what it is made of, (A,)."""
-        start = self.X.shape[1] - 1 - k
-        weight = self.F[:, -1] - self.F[:, start]
-        whole = self.factors[:, start:].sum(axis=1)
-        reference_level = self.reference_level[:, start].astype(np.float64)
-        observed, expected = self.X[:, -1] - self.X[:, start], reference_level * weight
-        with np.errstate(invalid="ignore", divide="ignore"):
-            contrast = np.log((observed + half_event) / (expected + half_event))
-        usable = ((self.N[:, -1] - self.N[:, start]) >= (k + 1) // 2) & (start >= self.first_seen) \
-            & (self.reference_days[:, start] >= min_reference_days)
-        return {"observed": observed, "weight": weight, "expected": expected, "reference_level": reference_level,
-                "reference_days": self.reference_days[:, start].astype(np.float64),
-                "complete": np.clip(weight / np.maximum(whole, 1e-9), 0.05, 1.0),
-                "contrast": np.where(usable, contrast, np.nan), "lag": self.lag(self.reference_span[:, start], k)}
-
-
-def _sorted_history(history):
-    """Each row sorted with its NaN last, and the count of valid values: (sorted, n)."""
-    filled = np.where(np.isnan(history), np.float32(np.inf), history)
-    filled.sort(axis=1)
-    return filled, np.isfinite(filled).sum(axis=1)
-
-
-def _order_statistic(ordered, n, q):
-    """The q-quantile (linear between order statistics) of each row's n valid sorted values; 0
-    for an empty row."""
-    if ordered.shape[1] == 0:
-        return np.zeros(len(ordered))
-    rows = np.arange(len(ordered))
-    position = q * np.maximum(n - 1, 0)
-    below = np.floor(position).astype(np.int64)
-    above = np.minimum(below + 1, np.maximum(n - 1, 0))
-    low = ordered[rows, np.minimum(below, ordered.shape[1] - 1)].astype(np.float64)
-    high = ordered[rows, np.minimum(above, ordered.shape[1] - 1)].astype(np.float64)
-    with np.errstate(invalid="ignore"):
-        return np.where(n > 0, low + (high - low) * (position - below), 0.0)
-
-
-def _block_statistics(values, factors, first_seen, half_event, p):
-    """Per window: the judged contrast, its sorted history and their summary, for
-    :class:`WindowTests` and :func:`window_priors`, and each account's steady growth rate (log per
-    day).  Windows are done one at a time, so a block holds one window's (A, D) arrays at once."""
-    sums = _Sums(values, factors, first_seen, p["reference_days"])
-    cut = max(values.shape[1] - p["history_gap_days"], 0)
-    half_event = np.asarray(half_event, float)
-    # Steady growth or decline, as a rate per day from the weekly window's history: reported, not
-    # taken out.  A steady drift moves every contrast of the history as it moves the judged one,
-    # so the history's median already carries it.  Subtracting the rate added its own noise to
-    # every window (on the development fleet's steady accounts it spreads from -15% to +7% a year
-    # between quartiles, far wider on seasonal ones), and quiet accounts had about 3x too many
-    # p-values below 0.001.
-    weekly = sums.history(BASE_WINDOW, cut, half_event, p["min_reference_days"], history_stride(BASE_WINDOW))
-    contrast, span = weekly
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rate = fast_nanmedian_rows(contrast / sums.lag(span, BASE_WINDOW)) if contrast.shape[1] else np.zeros(len(values))
-    points = np.isfinite(contrast).sum(axis=1) * history_stride(BASE_WINDOW) / BASE_WINDOW
-    growth = np.nan_to_num(rate) * points / (points + p["prior_windows"])
-    del contrast, span
-    out = {}
-    for k in p["windows"]:
-        stride = history_stride(k)
-        contrast, span = weekly if k == BASE_WINDOW else sums.history(k, cut, half_event, p["min_reference_days"], stride)
-        ordered, n = _sorted_history(contrast)
-        del contrast, span
-        q125, q25, q375, centre, q625, q75, q875 = (_order_statistic(ordered, n, q)
-                                                    for q in (0.125, 0.25, 0.375, 0.5, 0.625, 0.75, 0.875))
-        last = sums.last_window(k, half_event, p["min_reference_days"])
-        current = last["contrast"]
-        events = np.nan_to_num(last["expected"] / (2.0 * half_event))  # half_event is half of one event
-        count_var = (1.0 / (events + 0.5)) * (1.0 + k / np.maximum(last["reference_days"], 1.0))
-        spread = (q75 - q25) / 1.349
-        # Each half's own spread, in units of the whole's: a two-peaked history is wide as a
-        # whole but each tail beyond its outer peak is as narrow as that peak.
-        # (0.8313 = Φ⁻¹(0.375) − Φ⁻¹(0.125): the spread of a normal's half between those points.)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            half_low = np.where(spread > 0, (q375 - q125) / 0.8313 / spread, 1.0)
-            half_high = np.where(spread > 0, (q875 - q625) / 0.8313 / spread, 1.0)
-        out[k] = {**last, "current": current, "ordered": ordered, "n": n, "centre": centre, "stride": stride,
-                  "spread": spread, "half_low": half_low, "half_high": half_high,
-                  "points": n * stride / k, "count_var": count_var, "events": events}
-        if k < BASE_WINDOW:
-            out[k]["same_weekday"] = _same_weekday_summary(sums, k, cut, half_event, p["min_reference_days"])
-    return out, growth
-
-
-def _same_weekday_summary(sums, k: int, cut: int, half_event, min_reference_days: int):
-    """Median, spread (IQR / 1.349) and count of the history's k-day windows that end on the same
-    weekday as the judged one (one a week), (A,)."""
-    n_days = sums.X.shape[1] - 1
-    contrast, _ = sums.history(k, cut - (cut - n_days) % 7, half_event, min_reference_days, 7)
-    ordered, n = _sorted_history(contrast)
-    quartile = (_order_statistic(ordered, n, 0.75) - _order_statistic(ordered, n, 0.25)) / 1.349
-    return _order_statistic(ordered, n, 0.5), quartile, n
 
 
 def _priors_from(by_window, windows, min_accounts: int = 20) -> WindowPriors:
@@ -240,7 +71,7 @@ def window_priors(values, factors, first_seen, half_event, *, windows, reference
     """
     p = dict(windows=tuple(windows), reference_days=reference_days, min_reference_days=min_reference_days,
              history_gap_days=history_gap_days, prior_windows=prior_windows)
-    by_window, _ = _block_statistics(np.asarray(values, float), np.asarray(factors, float), np.asarray(first_seen),
+    by_window, _ = window_statistics(np.asarray(values, float), np.asarray(factors, float), np.asarray(first_seen),
                                      np.asarray(half_event, float), p)
     return _priors_from(by_window, p["windows"], min_accounts)
 
@@ -329,7 +160,7 @@ class WindowTests(Estimator):
         half_event = np.asarray(half_event, float)
         p = dict(windows=windows, reference_days=self.reference_days, min_reference_days=self.min_reference_days,
                  history_gap_days=self.history_gap_days, prior_windows=self.prior_windows)
-        by_window, growth = _block_statistics(values, factors, np.asarray(first_seen), half_event, p)
+        by_window, growth = window_statistics(values, factors, np.asarray(first_seen), half_event, p)
         if priors is None:
             priors = _priors_from(by_window, windows)
         base = by_window[BASE_WINDOW]
