@@ -8,7 +8,7 @@ from scipy import stats
 
 from ebbwatch.outcomes import (
     NO_ALERT, band_label, benjamini_hochberg, clopper_pearson, fisher_two_sided, outcome_counts,
-    pool_adjacent_violators, rate_sentence, rates_for, rates_table, segment_table, value_at_risk,
+    pool_adjacent_violators, rate_lookup, rate_sentence, rates_table, segment_table, value_at_risk,
 )
 
 
@@ -74,12 +74,12 @@ def test_rates_are_monotone_across_bands_and_few_alerts_show_no_rate():
 
 def test_sentence_and_lookup():
     table = rates_table(_counts([("", "slide", 1, "churned", 9, 26)]))
-    rates = rates_for(table, "slide", 4.2)
+    rates = rate_lookup(table)("slide", 4.2)
     assert rates["churned"]["k"] == 9 and rates["churned"]["n"] == 26
     assert rate_sentence("slide", "down", rates, 90) == (
         "In past replays, 9 of 26 slides this strong (severity 3–5) were followed by a cancellation within 90 days.")
-    assert rates_for(table, "slide", 12.0) == {}
-    few = rates_for(rates_table(_counts([("", "drop", 1, "churned", 2, 9)])), "drop", 4.0)
+    assert rate_lookup(table)("slide", 12.0) == {}
+    few = rate_lookup(rates_table(_counts([("", "drop", 1, "churned", 2, 9)])))("drop", 4.0)
     assert rate_sentence("drop", "down", few, 90) == (
         "Past replays had only 9 drops this strong (severity 3–5): too few to tell how often a cancellation followed.")
     assert rate_sentence("drop", "down", {}, 90) is None

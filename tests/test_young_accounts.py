@@ -146,7 +146,7 @@ def test_lifecycle_holds_a_changed_account_open_and_clears_one_that_is_back():
 
 def test_a_young_accounts_step_is_a_drop_from_its_day(young_store):
     """A step down 15 days before as-of reads as a drop starting then, not as a slide from the
-    account's first week (the ramp must beat the step by BIC, having one more free parameter)."""
+    account's first week (it did when the weekday profile was once made lighter; pinned)."""
     info = ebbwatch.explain("yg-beta", db=young_store, as_of=AS_OF)
     onset = date.fromisoformat(info["changepoint"]["onset"])
     assert info["changepoint"]["kind_if_down"] == "drop"

@@ -215,11 +215,6 @@ def rate_lookup(table: pd.DataFrame):
     return lambda kind, severity: dict(index.get((kind, int(band_of([severity])[0])), {}))
 
 
-def rates_for(table: pd.DataFrame, kind: str, severity: float) -> dict:
-    """:func:`rate_lookup` for one alert."""
-    return rate_lookup(table)(kind, severity)
-
-
 def rate_sentence(kind: str, direction: str, rates: dict, horizon_days: int) -> str | None:
     """"In past replays, 9 of 26 slides this strong (severity 3–5) were followed by a
     cancellation within 90 days."; where the replay had too few such alerts, says so instead;

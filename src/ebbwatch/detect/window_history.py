@@ -87,7 +87,8 @@ class _Sums:
         return contrast, self.reference_span[:, starts]
 
     def last_window(self, k: int, half_event, min_reference_days: int):
-        """The judged window (the last k days): its contrast, lag and what it is made of, (A,)."""
+        """The judged window (the last k days): its contrast (``current``) and what it is made of,
+        (A,)."""
         start = self.X.shape[1] - 1 - k
         weight = self.F[:, -1] - self.F[:, start]
         whole = self.factors[:, start:].sum(axis=1)
@@ -100,7 +101,7 @@ class _Sums:
         return {"observed": observed, "weight": weight, "expected": expected, "reference_level": reference_level,
                 "reference_days": self.reference_days[:, start].astype(np.float64),
                 "complete": np.clip(weight / np.maximum(whole, 1e-9), 0.05, 1.0),
-                "contrast": np.where(usable, contrast, np.nan), "lag": self.lag(self.reference_span[:, start], k)}
+                "current": np.where(usable, contrast, np.nan)}
 
 
 def _sorted_history(history):
@@ -150,13 +151,12 @@ def window_statistics(values, factors, first_seen, half_event, p):
     out = {}
     for k in p["windows"]:
         stride = history_stride(k)
-        contrast, span = weekly if k == BASE_WINDOW else sums.history(k, cut, half_event, p["min_reference_days"], stride)
+        contrast = weekly[0] if k == BASE_WINDOW else sums.history(k, cut, half_event, p["min_reference_days"], stride)[0]
         ordered, n = _sorted_history(contrast)
-        del contrast, span
+        del contrast
         q125, q25, q375, centre, q625, q75, q875 = (_order_statistic(ordered, n, q)
                                                     for q in (0.125, 0.25, 0.375, 0.5, 0.625, 0.75, 0.875))
         last = sums.last_window(k, half_event, p["min_reference_days"])
-        current = last["contrast"]
         events = np.nan_to_num(last["expected"] / (2.0 * half_event))  # half_event is half of one event
         count_var = (1.0 / (events + 0.5)) * (1.0 + k / np.maximum(last["reference_days"], 1.0))
         spread = (q75 - q25) / 1.349
@@ -166,7 +166,7 @@ def window_statistics(values, factors, first_seen, half_event, p):
         with np.errstate(invalid="ignore", divide="ignore"):
             half_low = np.where(spread > 0, (q375 - q125) / 0.8313 / spread, 1.0)
             half_high = np.where(spread > 0, (q875 - q625) / 0.8313 / spread, 1.0)
-        out[k] = {**last, "current": current, "ordered": ordered, "n": n, "centre": centre, "stride": stride,
+        out[k] = {**last, "ordered": ordered, "n": n, "centre": centre, "stride": stride,
                   "spread": spread, "half_low": half_low, "half_high": half_high,
                   "points": n * stride / k, "count_var": count_var, "events": events}
         if k < BASE_WINDOW:
