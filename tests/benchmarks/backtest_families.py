@@ -16,6 +16,14 @@ days) on accounts with no matching outcome within 90 days and no planted change 
 account's level shift inside the replayed year is a planted change; "+shifts" counts its alerts
 as false too).
 Targets (issue 18): churned >= 0.7, expanded >= 0.9, false episodes <= 3.
+
+Beside each recall at 30 days: the share caught at any lead (an alert within the 90 days before
+the outcome, up to its day), and the most any detector could reach at 30 days given when the
+changes were planted (``timing_ceiling``: outcomes whose change had begun at least two days
+before the day 30 days ahead of them; an expander whose surge began 28-30 days before its upgrade
+cannot be alerted on 30 days ahead, and one whose surge is a day old can hardly be told).
+Where a family gives outcomes to accounts it also shaped otherwise (A: growth, seasons, ...),
+the recall at 30 days is printed per such trait too.
 """
 
 from __future__ import annotations
@@ -62,6 +70,34 @@ def false_episodes_per_100_months(result: dict, fleet, horizon_days: int = 90, *
     return 100 * false / months if months else float("nan")
 
 
+def timing_ceiling(fleet, outcome: str, lead_days: int = 30, min_days: int = 2) -> float:
+    """The share of ``outcome`` outcomes whose planted change (the account's episode) had begun
+    at least ``min_days`` days before the day ``lead_days`` ahead of the outcome: the most a
+    detector could catch at that lead however quick it is."""
+    outcomes = fleet.outcomes[fleet.outcomes["outcome"] == outcome]
+    starts = fleet.episodes.drop_duplicates("account").set_index("account")["start"]
+    days = [(pd.Timestamp(o.date) - pd.Timedelta(days=lead_days) - pd.Timestamp(starts[o.account])).days + 1
+            for o in outcomes.itertuples()]
+    return float(np.mean(np.array(days) >= min_days)) if days else float("nan")
+
+
+def caught_at_lead(result: dict, fleet, outcome: str, lead_days: int = 30, horizon_days: int = 90) -> pd.Series:
+    """Per ``outcome`` account: was it alerted (in the outcome's direction) between
+    ``horizon_days`` and ``lead_days`` before the outcome, as ``recall_at_lead`` counts it."""
+    from ebbwatch.backtest import UP_OUTCOMES
+
+    alerts = result["_alerts"].assign(as_of=lambda a: pd.to_datetime(a["as_of"]))
+    direction = "up" if outcome in UP_OUTCOMES else "down"
+    alerts = alerts[alerts["direction"] == direction]
+    caught = {}
+    for o in fleet.outcomes[fleet.outcomes["outcome"] == outcome].itertuples():
+        day = pd.Timestamp(o.date)
+        mine = alerts.loc[alerts["account"] == o.account, "as_of"]
+        caught[o.account] = bool(mine.between(day - pd.Timedelta(days=horizon_days),
+                                              day - pd.Timedelta(days=lead_days)).any())
+    return pd.Series(caught, dtype=bool)
+
+
 def run(family: str, seed: int, accounts: int, step: int, workdir: Path) -> dict:
     import ebbwatch
 
@@ -73,10 +109,16 @@ def run(family: str, seed: int, accounts: int, step: int, workdir: Path) -> dict
     start = fleet.as_of - timedelta(days=330)
     result = ebbwatch.backtest(str(outcomes), start=start, end=fleet.as_of, step=step, db=db)
     out = {k: result["outcomes"].get(k, {}) for k in ("churned", "expanded")}
+    caught = {k: v.get("caught_within_horizon", 0) / v["count"] if v.get("count") else float("nan")
+              for k, v in out.items()}
     return {"churned": out["churned"].get("recall_at_lead"), "churned_n": out["churned"].get("count"),
+            "churned_any": caught["churned"], "expanded_any": caught["expanded"],
+            "churned_ceiling": timing_ceiling(fleet, "churned"), "expanded_ceiling": timing_ceiling(fleet, "expanded"),
             "churned_lead": out["churned"].get("median_lead_days"),
             "expanded": out["expanded"].get("recall_at_lead"), "expanded_n": out["expanded"].get("count"),
             "expanded_lead": out["expanded"].get("median_lead_days"),
+            "by_trait": {kind: caught_at_lead(result, fleet, kind).groupby(fleet.truth.set_index("account")["traits"])
+                         .agg(["sum", "size"]) for kind in ("churned", "expanded")},
             "false_per_100": false_episodes_per_100_months(result, fleet),
             "strict_false_per_100": false_episodes_per_100_months(result, fleet, count_level_shifts=True),
             "api_false_per_100": result["false_alerts_per_100_account_months"],
@@ -90,23 +132,31 @@ def main(argv=None):
     parser.add_argument("--accounts", type=int, default=400)
     parser.add_argument("--step", type=int, default=1)
     args = parser.parse_args(argv)
-    print(f"{'family':<8}{'seed':>5}{'churned at 30d':>18}{'lead':>6}{'expanded at 30d':>18}{'lead':>6}"
-          f"{'false/100 acct-mo':>19}{'(+shifts)':>10}{'(any change)':>14}{'alerts/day':>12}{'s':>6}")
+    print(f"{'family':<8}{'seed':>5}{'churned at 30d':>18}{'any':>6}{'ceil':>6}{'lead':>6}"
+          f"{'expanded at 30d':>18}{'any':>6}{'ceil':>6}{'lead':>6}{'false/100 acct-mo':>19}{'(+shifts)':>10}{'(any change)':>14}{'alerts/day':>12}{'s':>6}")
     for family in args.families.split(","):
         rows = []
         for seed in range(args.seeds):
             with tempfile.TemporaryDirectory() as tmp:
                 r = run(family, seed, args.accounts, args.step, Path(tmp))
             rows.append(r)
-            print(f"{family:<8}{seed:>5}{r['churned']:>12.2f} ({r['churned_n']:>2}){r['churned_lead'] or 0:>6.0f}"
-                  f"{r['expanded']:>12.2f} ({r['expanded_n']:>2}){r['expanded_lead'] or 0:>6.0f}"
+            print(f"{family:<8}{seed:>5}{r['churned']:>12.2f} ({r['churned_n']:>2}){r['churned_any']:>6.2f}"
+                  f"{r['churned_ceiling']:>6.2f}{r['churned_lead'] or 0:>6.0f}"
+                  f"{r['expanded']:>12.2f} ({r['expanded_n']:>2}){r['expanded_any']:>6.2f}"
+                  f"{r['expanded_ceiling']:>6.2f}{r['expanded_lead'] or 0:>6.0f}"
                   f"{r['false_per_100']:>19.2f}{r['strict_false_per_100']:>10.2f}{r['api_false_per_100']:>14.2f}"
                   f"{r['alerts_per_day']:>12.2f}{r['seconds']:>6.0f}")
-        churned = sum(r["churned"] * r["churned_n"] for r in rows) / sum(r["churned_n"] for r in rows)
-        expanded = sum(r["expanded"] * r["expanded_n"] for r in rows) / sum(r["expanded_n"] for r in rows)
-        print(f"{family:<8}{'all':>5}{churned:>17.2f}{'':>6}{expanded:>17.2f}{'':>6}"
+        pooled = {key: sum(r[key] * r[f"{kind}_n"] for r in rows) / sum(r[f"{kind}_n"] for r in rows)
+                  for kind in ("churned", "expanded") for key in (kind, f"{kind}_any", f"{kind}_ceiling")}
+        print(f"{family:<8}{'all':>5}{pooled['churned']:>17.2f}{pooled['churned_any']:>6.2f}{pooled['churned_ceiling']:>6.2f}"
+              f"{'':>6}{pooled['expanded']:>17.2f}{pooled['expanded_any']:>6.2f}{pooled['expanded_ceiling']:>6.2f}{'':>6}"
               f"{np.mean([r['false_per_100'] for r in rows]):>19.2f}{np.mean([r['strict_false_per_100'] for r in rows]):>10.2f}"
               "   (targets: >= 0.70, >= 0.90, <= 3)")
+        for kind in ("churned", "expanded"):
+            table = pd.concat([r["by_trait"][kind] for r in rows]).groupby(level=0).sum()
+            if len(table) > 1:  # the family gives outcomes to accounts it shaped otherwise too
+                print(f"{'':<13}{kind} at 30 d by the account's other trait: " + ", ".join(
+                    f"{trait} {row['sum'] / row['size']:.2f} ({row['size']:.0f})" for trait, row in table.iterrows()))
 
 
 if __name__ == "__main__":

@@ -149,7 +149,7 @@ def generate(n_accounts: int = 400, seed: int = 0, *, n_days: int = 600, as_of: 
     if backtest:
         fleet.outcomes = _frame(outcomes, ["account", "date", "outcome"], ids, start)
         # A quiet account's level shift falls inside the replayed year: alerts on it are not false.
-        episodes += [(a, "level_shift", when, when) for a, when in shifted.items() if traits[a] == "old_shift"]
+        episodes += [(a, "level_shift", when, when) for a, when in shifted.items() if kind[a] == "quiet"]
         fleet.episodes = _frame(episodes, ["account", "kind", "start", "end"], ids, start)
     return fleet
 
@@ -165,7 +165,9 @@ def _usual(baseline, onset, n_days):
 
 def _plan_outcomes(rng, kind, traits, first, size, change, onset, factor, slide_shape, outcomes, episodes, D):
     """Backtest fleets: churners slide for 6–13 weeks and cancel; expanders surge 4–8 weeks before
-    upgrading; some accounts drop for a few weeks and recover (a change without an outcome)."""
+    upgrading; some accounts drop for a few weeks and recover (a change without an outcome).
+    They are drawn among accounts already given a quiet trait (growth, seasons, a weekday shape
+    change, ...), which they keep, and the truth frame says so."""
     n = kind.size
     order = rng.permutation(n)
     n_churn, n_expand, n_dip = int(0.10 * n), int(0.06 * n), int(0.04 * n)
@@ -177,7 +179,7 @@ def _plan_outcomes(rng, kind, traits, first, size, change, onset, factor, slide_
         slide_shape[a] = rng.choice(["linear", "staged", "exponential"])
         change[a] = slide_path(rng, D, begin, duration, final, slide_shape[a])
         change[a, cancel:] = 0.0
-        kind[a], onset[a], factor[a], traits[a] = "churn", begin, final, "plain"
+        kind[a], onset[a], factor[a] = "churn", begin, final
         first[a] = max(0, min(first[a], begin - 150))
         size[a] = max(size[a], 1.5)
         outcomes.append((a, cancel, "churned"))
@@ -187,7 +189,7 @@ def _plan_outcomes(rng, kind, traits, first, size, change, onset, factor, slide_
         begin = upgrade - int(rng.integers(28, 57))
         boost = rng.uniform(2.0, 4.0)
         change[a, begin:] = boost
-        kind[a], onset[a], factor[a], traits[a] = "expand", begin, boost, "plain"
+        kind[a], onset[a], factor[a] = "expand", begin, boost
         first[a] = max(0, min(first[a], begin - 150))
         size[a] = max(size[a], 1.5)
         outcomes.append((a, upgrade, "expanded"))
@@ -196,7 +198,7 @@ def _plan_outcomes(rng, kind, traits, first, size, change, onset, factor, slide_
         begin = int(rng.integers(D - 300, D - 60))
         length = int(rng.integers(14, 43))
         change[a, begin:begin + length] = rng.uniform(0.15, 0.55)
-        kind[a], onset[a], traits[a] = "dip", begin, "plain"
+        kind[a], onset[a] = "dip", begin
         first[a] = max(0, min(first[a], begin - 150))
         episodes.append((a, "drop", begin, min(begin + length + 28, D - 1)))
 
