@@ -1,0 +1,46 @@
+"""The by-hand benchmark tools that have logic of their own: ``missed.py``'s table of misses."""
+
+from __future__ import annotations
+
+from datetime import date
+from types import SimpleNamespace
+
+import pandas as pd
+
+from .benchmarks.missed import missed
+
+
+def _fleet():
+    truth = pd.DataFrame({
+        "account": ["d-big", "d-small", "s-big", "u-young", "q-1"],
+        "kind": ["drop", "drop", "slide", "surge", "quiet"],
+        "onset": [date(2026, 1, 1)] * 4 + [None],
+        "age_days": [10, 10, 40, 3, 0],
+        "factor": [0.4, 0.4, 0.5, 2.5, 1.0],
+        "usual": [20.0, 2.0, 30.0, 8.0, 10.0],
+        "shape": ["", "", "linear", "", ""],
+        "traits": ["plain"] * 5,
+        "first_day": [date(2025, 1, 1)] * 5,
+    })
+    return SimpleNamespace(truth=truth)
+
+
+def _scores(accounts):
+    return pd.DataFrame({"account": accounts, "status": "judged", "p_down": 0.2, "p_up": 0.9, "window_down": 7,
+                         "change_down_pct": -30.0, "window_up": 2, "change_up_pct": 5.0, "down_kind": "drop",
+                         "p_trend_down": 0.5, "growth_pct_year": 0.0})
+
+
+def test_a_miss_is_a_change_not_alerted_in_its_direction():
+    fleet = _fleet()
+    accounts = list(fleet.truth["account"])
+    # The big drop is caught; the slide is alerted the wrong way; the young surge is not alerted.
+    flags = {"d-big": -1, "s-big": 1, "q-1": -1}
+    table = missed(fleet, flags, _scores(accounts), {"drop", "slide", "onset"})
+    assert sorted(table["account"]) == ["s-big", "u-young"]
+    assert dict(zip(table["account"], table["reported as"])) == {"s-big": "slide", "u-young": "onset"}
+    assert (table["p_down"] == 0.2).all()
+    # Smaller accounts are their own table; kinds not asked for are left out.
+    small = missed(fleet, flags, _scores(accounts), {"drop"}, small=True)
+    assert list(small["account"]) == ["d-small"]
+    assert missed(fleet, flags, _scores(accounts), {"stop"}).empty
