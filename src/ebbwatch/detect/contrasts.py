@@ -34,12 +34,15 @@ class WindowPriors:
     ``excess``: the typical variance of a contrast beyond count noise (log scale²);
     ``ratio``: the typical ratio of a window's contrast variance to the 7-day window's.
     Measured on a sample of the fleet (:func:`window_priors`), so every block of accounts is
-    judged with the same priors and the chunk size never changes a result.
+    judged with the same priors and the chunk size never changes a result.  ``heavy_capped``:
+    the same measured on the sample's days with heavy days capped (``heavy_days``), for the
+    falling tail judged on such days; None where it was not measured.
     """
 
     windows: tuple
     excess: tuple
     ratio: tuple
+    heavy_capped: "WindowPriors | None" = None
 
     def of(self, window: int) -> tuple[float, float]:
         i = self.windows.index(window)
