@@ -85,13 +85,15 @@ class ScanParams:
     log_offset: float = 0.1
     stop_p: float = 1e-3
     trend_screen_p: float = 0.01
-    # The falling tail of the windows of a week or more is judged again with days above this
-    # multiple of the account's median active day capped (detect.heavy_days; 0 turns it off), for
-    # the accounts whose falling p-value there is already at most ``heavy_day_screen_p``, the
-    # order of an alert's (q <= fdr, and q >= p): the second pass is for the accounts that may
-    # alert, and the others' p-values stay as they were.
+    # A second look at the falling tail of the windows of a week or more, for the accounts whose
+    # falling p-value there is already at most ``falling_screen_p``, the order of an alert's
+    # (q <= fdr, and q >= p); the others' p-values stay as they were.  In it, days above
+    # ``heavy_day_multiple`` times the account's median active day are capped (detect.heavy_days;
+    # 0: not capped) and windows of ``falling_median_reference_from`` days or more (0: none) are
+    # judged against the median week of their half-year rather than its mean.
+    falling_screen_p: float = 0.01
     heavy_day_multiple: float = 3.0
-    heavy_day_screen_p: float = 0.01
+    falling_median_reference_from: int = 28
     ramp_advantage: float = 1.0
     profile_weeks: int = 16
     # A change of weekday shape among those weeks (baseline.shape_change): the statistic's
@@ -151,12 +153,11 @@ def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams =
     first = np.where(np.isfinite(values).any(axis=1), np.isfinite(values).argmax(axis=1), values.shape[1])
     settings = dict(reference_days=params.reference_days, history_gap_days=params.history_gap_days)
     priors = window_priors(values, factors, first, np.full(len(values), 0.5), windows=params.windows, **settings)
-    if not params.heavy_day_multiple:
-        return priors
-    capped, _ = cap_heavy_days(values, factors, typical_day(values, factors, hist_end), params.heavy_day_multiple)
-    heavy_capped = window_priors(capped, factors, first, np.full(len(values), 0.5), windows=_long_windows(params.windows),
-                                 **settings)
-    return replace(priors, heavy_capped=heavy_capped)
+    if params.heavy_day_multiple:
+        values, _ = cap_heavy_days(values, factors, typical_day(values, factors, hist_end), params.heavy_day_multiple)
+    second_look = window_priors(values, factors, first, np.full(len(values), 0.5), windows=_long_windows(params.windows),
+                                median_reference_from=params.falling_median_reference_from, **settings)
+    return replace(priors, heavy_capped=second_look)
 
 
 def _long_windows(windows) -> tuple:
@@ -164,31 +165,30 @@ def _long_windows(windows) -> tuple:
     return tuple(k for k in windows if k >= BASE_WINDOW)
 
 
-def _falling_tail_without_heavy_days(tests: WindowTests, values, factors, first_seen, half_event,
-                                     whole_weeks_only, hist_end: int, params: ScanParams) -> None:
-    """Replace ``tests.p_low_`` of the windows of a week or more, for the accounts that have
-    heavy days and whose falling p-value there is at most ``heavy_day_screen_p``, by the same
-    tests on their days with heavy ones capped (``heavy_days``).  In place."""
-    if not params.heavy_day_multiple:
-        return
+def _falling_tail_second_look(tests: WindowTests, values, factors, first_seen, half_event, whole_weeks_only,
+                              hist_end: int, params: ScanParams) -> None:
+    """Replace ``tests.p_low_`` of the windows of a week or more, for the accounts whose falling
+    p-value there is at most ``falling_screen_p``, by the same tests with heavy days capped
+    (``heavy_days``) and the longest windows against the median week of their half-year
+    (``ScanParams``).  In place."""
     columns = [list(tests.windows_).index(k) for k in _long_windows(tests.windows_)]
-    screened = np.flatnonzero(tests.p_low_[:, columns].min(axis=1) <= params.heavy_day_screen_p)
-    if not screened.size:
+    accounts = np.flatnonzero(tests.p_low_[:, columns].min(axis=1) <= params.falling_screen_p)
+    if not accounts.size:
         return
-    capped, rows = cap_heavy_days(values[screened], factors[screened],
-                                  typical_day(values[screened], factors[screened], hist_end), params.heavy_day_multiple)
-    if not rows.size:
-        return
-    accounts = screened[rows]
-    low = WindowTests(windows=_long_windows(tests.windows_), reference_days=tests.reference_days,
-                      min_reference_days=tests.min_reference_days, history_gap_days=tests.history_gap_days,
-                      prior_windows=tests.prior_windows, ratio_prior_windows=tests.ratio_prior_windows,
-                      anchor_points=tests.anchor_points, count_floor_events=tests.count_floor_events,
-                      weekday_misfit=tests.weekday_misfit).fit(
-        capped[rows], factors[accounts], first_seen[accounts], half_event[accounts],
+    values = values[accounts]
+    if params.heavy_day_multiple:
+        values, _ = cap_heavy_days(values, factors[accounts], typical_day(values, factors[accounts], hist_end),
+                                   params.heavy_day_multiple)
+    second = WindowTests(windows=_long_windows(tests.windows_), reference_days=tests.reference_days,
+                         min_reference_days=tests.min_reference_days, history_gap_days=tests.history_gap_days,
+                         prior_windows=tests.prior_windows, ratio_prior_windows=tests.ratio_prior_windows,
+                         anchor_points=tests.anchor_points, count_floor_events=tests.count_floor_events,
+                         weekday_misfit=tests.weekday_misfit,
+                         median_reference_from=params.falling_median_reference_from).fit(
+        values, factors[accounts], first_seen[accounts], half_event[accounts],
         priors=tests.priors_.heavy_capped or tests.priors_,
         count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only[accounts])
-    tests.p_low_[np.ix_(accounts, columns)] = low.p_low_
+    tests.p_low_[np.ix_(accounts, columns)] = second.p_low_
 
 
 def history_segments(panel: Panel, params: ScanParams = ScanParams()) -> list[list[tuple[int, int, float]]]:
@@ -265,7 +265,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
                         history_gap_days=params.history_gap_days).fit(
         values, factors, first_seen, half_event, priors=params.window_priors,
         count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=shape_since >= 0)
-    _falling_tail_without_heavy_days(tests, values, factors, first_seen, half_event, shape_since >= 0, hist_end, params)
+    _falling_tail_second_look(tests, values, factors, first_seen, half_event, shape_since >= 0, hist_end, params)
     windows = np.asarray(tests.windows_)
     p_level_low = nested_min_p(tests.p_low_.T, tests.windows_, params.reference_days)
     p_level_high = nested_min_p(tests.p_high_.T, tests.windows_, params.reference_days)

@@ -35,8 +35,8 @@ class WindowPriors:
     ``ratio``: the typical ratio of a window's contrast variance to the 7-day window's.
     Measured on a sample of the fleet (:func:`window_priors`), so every block of accounts is
     judged with the same priors and the chunk size never changes a result.  ``heavy_capped``:
-    the same measured on the sample's days with heavy days capped (``heavy_days``), for the
-    falling tail judged on such days; None where it was not measured.
+    the same measured as the falling tail's second look judges (heavy days capped, the longest
+    windows against their median week; ``detect.ScanParams``); None where it was not measured.
     """
 
     windows: tuple
@@ -66,14 +66,15 @@ def _priors_from(by_window, windows, min_accounts: int = 20) -> WindowPriors:
 
 
 def window_priors(values, factors, first_seen, half_event, *, windows, reference_days=182, min_reference_days=28,
-                  history_gap_days=60, prior_windows=5.0, min_accounts: int = 20) -> WindowPriors:
+                  history_gap_days=60, prior_windows=5.0, min_accounts: int = 20,
+                  median_reference_from: int = 0) -> WindowPriors:
     """The fleet-wide :class:`WindowPriors`, from accounts with long histories in a sample.
 
     ``values``/``factors`` (S, D) as :class:`WindowTests` takes them.  With fewer than
     ``min_accounts`` long histories, neutral priors: excess 0.05, ratio 1.
     """
     p = dict(windows=tuple(windows), reference_days=reference_days, min_reference_days=min_reference_days,
-             history_gap_days=history_gap_days, prior_windows=prior_windows)
+             history_gap_days=history_gap_days, prior_windows=prior_windows, median_reference_from=median_reference_from)
     by_window, _ = window_statistics(np.asarray(values, float), np.asarray(factors, float), np.asarray(first_seen),
                                      np.asarray(half_event, float), p)
     return _priors_from(by_window, p["windows"], min_accounts)
@@ -101,6 +102,10 @@ class WindowTests(Estimator):
     count_floor_events : float
         Windows expecting fewer events than this never get a lower tail below the negative
         binomial's mid-p (small counts are discrete and their zeros heavy).
+    median_reference_from : int
+        Windows of at least this many days (0: none) take as their reference the median of the
+        weekly levels of the ``reference_days`` before them, not their mean: a slide that has run
+        into the half-year moves the mean, not the median week.
     weekday_misfit : float
         A window shorter than a week is judged against windows ending on every weekday; where
         those ending on its own weekday sit this far (log) from the rest, the weekday profile
@@ -110,11 +115,13 @@ class WindowTests(Estimator):
     """
 
     _parameters = ("windows", "reference_days", "min_reference_days", "history_gap_days", "prior_windows",
-                   "ratio_prior_windows", "anchor_points", "count_floor_events", "weekday_misfit")
+                   "ratio_prior_windows", "anchor_points", "count_floor_events", "weekday_misfit",
+                   "median_reference_from")
 
     def __init__(self, windows=(2, 4, 7, 14, 28), reference_days: int = 182, min_reference_days: int = 28,
                  history_gap_days: int = 60, prior_windows: float = 5.0, ratio_prior_windows: float = 10.0,
-                 anchor_points: int = 5, count_floor_events: float = 30.0, weekday_misfit: float = 0.3):
+                 anchor_points: int = 5, count_floor_events: float = 30.0, weekday_misfit: float = 0.3,
+                 median_reference_from: int = 0):
         self.windows = windows
         self.reference_days = reference_days
         self.min_reference_days = min_reference_days
@@ -124,6 +131,7 @@ class WindowTests(Estimator):
         self.anchor_points = anchor_points
         self.count_floor_events = count_floor_events
         self.weekday_misfit = weekday_misfit
+        self.median_reference_from = median_reference_from
 
     def _check(self):
         try:
@@ -134,6 +142,8 @@ class WindowTests(Estimator):
             raise ValueError(f"windows must be distinct positive day counts including {BASE_WINDOW}, got {self.windows}")
         if self.reference_days < self.min_reference_days or self.min_reference_days < 1 or self.history_gap_days < 0:
             raise ValueError("need reference_days >= min_reference_days >= 1 and history_gap_days >= 0")
+        if not (isinstance(self.median_reference_from, (int, np.integer)) and self.median_reference_from >= 0):
+            raise ValueError(f"median_reference_from must be a day count >= 0, got {self.median_reference_from!r}")
         if not self.weekday_misfit > 0:
             raise ValueError(f"weekday_misfit must be a positive log distance, got {self.weekday_misfit}")
         return windows
@@ -162,7 +172,8 @@ class WindowTests(Estimator):
         factors = check_matrix(factors, "factors")
         half_event = np.asarray(half_event, float)
         p = dict(windows=windows, reference_days=self.reference_days, min_reference_days=self.min_reference_days,
-                 history_gap_days=self.history_gap_days, prior_windows=self.prior_windows)
+                 history_gap_days=self.history_gap_days, prior_windows=self.prior_windows,
+                 median_reference_from=self.median_reference_from)
         by_window, growth = window_statistics(values, factors, np.asarray(first_seen), half_event, p)
         if priors is None:
             priors = _priors_from(by_window, windows)

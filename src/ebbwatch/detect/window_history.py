@@ -59,22 +59,43 @@ class _Sums:
         np.clip(span, 0, reference_days, out=span)
         self.reference_span = span  # calendar days, masked ones included
 
+    def median_reference(self, columns, weeks: int, min_weeks: int = 4):
+        """The median of the weekly levels (weekday-adjusted) of the ``weeks`` whole weeks before
+        each of ``columns``, (A, C) float32; NaN with fewer than ``min_weeks`` weeks of at least
+        four valid days.  A slide that has run into the reference moves its mean, not this."""
+        columns = np.atleast_1d(np.asarray(columns))
+        ends = columns[:, None] - 7 * np.arange(weeks)[None, :]  # (C, W): the column after each week
+        inside = ends >= 7
+        ends = np.where(inside, ends, 7)
+        days = self.N[:, ends] - self.N[:, ends - 7]
+        usual = self.F32[:, ends] - self.F32[:, ends - 7]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            level = np.where((days >= 4) & inside[None] & (usual > 0),
+                             (self.X32[:, ends] - self.X32[:, ends - 7]) / usual, np.nan).astype(np.float64)
+        n_accounts, n_columns, _ = level.shape
+        enough = np.isfinite(level).sum(axis=2) >= min_weeks
+        median = fast_nanmedian_rows(level.reshape(n_accounts * n_columns, weeks), overwrite_input=True)
+        return np.where(enough, median.reshape(n_accounts, n_columns), np.nan).astype(np.float32)
+
     @staticmethod
     def lag(span, k: int):
         """Days between the centres of a k-day window and its reference of ``span`` days."""
         return 0.5 * (k + span)
 
-    def history(self, k: int, last_end: int, half_event, min_reference_days: int, stride: int = 1):
+    def history(self, k: int, last_end: int, half_event, min_reference_days: int, stride: int = 1,
+                median_weeks: int = 0):
         """The contrasts of the whole k-day windows ending by column ``last_end - 1``, every
         ``stride``-th one back from the last, (A, W) float32 with NaN where one cannot be told,
-        and the calendar span of each one's reference, (A, W)."""
+        and the calendar span of each one's reference, (A, W).  ``median_weeks``: the reference
+        level is the median of that many weeks' levels (:meth:`median_reference`), not their mean."""
         width = max(last_end - k + 1, 0)
         first = (width - 1) % stride if width else 0
         ends, starts = slice(k + first, k + width, stride), slice(first, width, stride)
         half = half_event.astype(np.float32)[:, None]
         contrast = self.X32[:, ends] - self.X32[:, starts]
         expected = self.F32[:, ends] - self.F32[:, starts]
-        expected *= self.reference_level[:, starts]
+        expected *= (self.median_reference(np.arange(first, width, stride), median_weeks) if median_weeks
+                     else self.reference_level[:, starts])
         contrast += half
         expected += half
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -86,13 +107,14 @@ class _Sums:
         contrast[unusable] = np.nan
         return contrast, self.reference_span[:, starts]
 
-    def last_window(self, k: int, half_event, min_reference_days: int):
+    def last_window(self, k: int, half_event, min_reference_days: int, median_weeks: int = 0):
         """The judged window (the last k days): its contrast (``current``) and what it is made of,
         (A,)."""
         start = self.X.shape[1] - 1 - k
         weight = self.F[:, -1] - self.F[:, start]
         whole = self.factors[:, start:].sum(axis=1)
-        reference_level = self.reference_level[:, start].astype(np.float64)
+        reference_level = (self.median_reference([start], median_weeks)[:, 0] if median_weeks
+                           else self.reference_level[:, start]).astype(np.float64)
         observed, expected = self.X[:, -1] - self.X[:, start], reference_level * weight
         with np.errstate(invalid="ignore", divide="ignore"):
             contrast = np.log((observed + half_event) / (expected + half_event))
@@ -130,8 +152,8 @@ def window_statistics(values, factors, first_seen, half_event, p):
     """Per window: the judged contrast, its sorted history and their summary, for
     :class:`.contrasts.WindowTests` and :func:`.contrasts.window_priors`, and each account's steady
     growth rate (log per day).  ``p`` holds the tests' settings (windows, reference_days,
-    min_reference_days, history_gap_days, prior_windows).  Windows are done one at a time, so a
-    block holds one window's (A, D) arrays at once."""
+    min_reference_days, history_gap_days, prior_windows, and optionally median_reference_from).
+    Windows are done one at a time, so a block holds one window's (A, D) arrays at once."""
     sums = _Sums(values, factors, first_seen, p["reference_days"])
     cut = max(values.shape[1] - p["history_gap_days"], 0)
     half_event = np.asarray(half_event, float)
@@ -149,14 +171,17 @@ def window_statistics(values, factors, first_seen, half_event, p):
     growth = np.nan_to_num(rate) * points / (points + p["prior_windows"])
     del contrast, span
     out = {}
+    median_from = p.get("median_reference_from") or 0
     for k in p["windows"]:
         stride = history_stride(k)
-        contrast = weekly[0] if k == BASE_WINDOW else sums.history(k, cut, half_event, p["min_reference_days"], stride)[0]
+        median_weeks = p["reference_days"] // 7 if median_from and k >= median_from else 0
+        contrast = weekly[0] if k == BASE_WINDOW and not median_weeks else \
+            sums.history(k, cut, half_event, p["min_reference_days"], stride, median_weeks)[0]
         ordered, n = _sorted_history(contrast)
         del contrast
         q125, q25, q375, centre, q625, q75, q875 = (_order_statistic(ordered, n, q)
                                                     for q in (0.125, 0.25, 0.375, 0.5, 0.625, 0.75, 0.875))
-        last = sums.last_window(k, half_event, p["min_reference_days"])
+        last = sums.last_window(k, half_event, p["min_reference_days"], median_weeks)
         events = np.nan_to_num(last["expected"] / (2.0 * half_event))  # half_event is half of one event
         count_var = (1.0 / (events + 0.5)) * (1.0 + k / np.maximum(last["reference_days"], 1.0))
         spread = (q75 - q25) / 1.349
