@@ -16,7 +16,7 @@ from ..series import Panel, adjust_for_fleet, missing_before_first_full_day, qui
 from .calibrate import cauchy_combination, nested_min_p
 from .changepoint import ChangepointSearch, changepoints, cusum_split, fill_gaps, robust_sigma
 from .contrasts import BASE_WINDOW, WindowPriors, WindowTests, window_priors
-from .heavy_days import cap_heavy_days, typical_day
+from .heavy_days import cap_heavy_days
 from .silence import last_active_column, silence
 from .tail import rolling_window
 from .trend import step_or_ramp, trend_test
@@ -153,15 +153,14 @@ def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams =
     first = np.where(np.isfinite(values).any(axis=1), np.isfinite(values).argmax(axis=1), values.shape[1])
     settings = dict(reference_days=params.reference_days, history_gap_days=params.history_gap_days)
     priors = window_priors(values, factors, first, np.full(len(values), 0.5), windows=params.windows, **settings)
-    if params.heavy_day_multiple:
-        values, _ = cap_heavy_days(values, factors, typical_day(values, factors, hist_end), params.heavy_day_multiple)
-    second_look = window_priors(values, factors, first, np.full(len(values), 0.5), windows=_long_windows(params.windows),
+    second_look = window_priors(cap_heavy_days(values, factors, hist_end, params.heavy_day_multiple), factors, first,
+                                np.full(len(values), 0.5), windows=_long_windows(params.windows),
                                 median_reference_from=params.falling_median_reference_from, **settings)
-    return replace(priors, heavy_capped=second_look)
+    return replace(priors, second_look=second_look)
 
 
 def _long_windows(windows) -> tuple:
-    """The windows of a week or more: those whose falling tail is judged with heavy days capped."""
+    """The windows of a week or more: those whose falling tail gets the second look."""
     return tuple(k for k in windows if k >= BASE_WINDOW)
 
 
@@ -175,18 +174,11 @@ def _falling_tail_second_look(tests: WindowTests, values, factors, first_seen, h
     accounts = np.flatnonzero(tests.p_low_[:, columns].min(axis=1) <= params.falling_screen_p)
     if not accounts.size:
         return
-    values = values[accounts]
-    if params.heavy_day_multiple:
-        values, _ = cap_heavy_days(values, factors[accounts], typical_day(values, factors[accounts], hist_end),
-                                   params.heavy_day_multiple)
-    second = WindowTests(windows=_long_windows(tests.windows_), reference_days=tests.reference_days,
-                         min_reference_days=tests.min_reference_days, history_gap_days=tests.history_gap_days,
-                         prior_windows=tests.prior_windows, ratio_prior_windows=tests.ratio_prior_windows,
-                         anchor_points=tests.anchor_points, count_floor_events=tests.count_floor_events,
-                         weekday_misfit=tests.weekday_misfit,
-                         median_reference_from=params.falling_median_reference_from).fit(
-        values, factors[accounts], first_seen[accounts], half_event[accounts],
-        priors=tests.priors_.heavy_capped or tests.priors_,
+    factors = factors[accounts]
+    second = WindowTests(**{**tests.get_params(), "windows": _long_windows(tests.windows_),
+                            "median_reference_from": params.falling_median_reference_from}).fit(
+        cap_heavy_days(values[accounts], factors, hist_end, params.heavy_day_multiple), factors,
+        first_seen[accounts], half_event[accounts], priors=tests.priors_.second_look or tests.priors_,
         count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only[accounts])
     tests.p_low_[np.ix_(accounts, columns)] = second.p_low_
 

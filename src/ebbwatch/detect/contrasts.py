@@ -34,7 +34,7 @@ class WindowPriors:
     ``excess``: the typical variance of a contrast beyond count noise (log scale²);
     ``ratio``: the typical ratio of a window's contrast variance to the 7-day window's.
     Measured on a sample of the fleet (:func:`window_priors`), so every block of accounts is
-    judged with the same priors and the chunk size never changes a result.  ``heavy_capped``:
+    judged with the same priors and the chunk size never changes a result.  ``second_look``:
     the same measured as the falling tail's second look judges (heavy days capped, the longest
     windows against their median week; ``detect.ScanParams``); None where it was not measured.
     """
@@ -42,7 +42,7 @@ class WindowPriors:
     windows: tuple
     excess: tuple
     ratio: tuple
-    heavy_capped: "WindowPriors | None" = None
+    second_look: "WindowPriors | None" = None
 
     def of(self, window: int) -> tuple[float, float]:
         i = self.windows.index(window)

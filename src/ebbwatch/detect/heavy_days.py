@@ -1,13 +1,14 @@
 """Heavy days: single days far above an account's typical day (a batch import, a burst of one
-user's work), capped before the falling tail of the longer window tests is judged.
+user's work), capped when the falling tail of the longer window tests takes its second look
+(``detect.ScanParams``).
 
 A heavy day says nothing about whether an account is falling, but it widens the history of window
 totals the falling tail is calibrated on, and every drop is then judged against that width.  With
 heavy days capped, in the history, the reference and the judged window alike, the falling tail of
 the 7-, 14- and 28-day windows is calibrated on the account's ordinary days; the rising tail keeps
 every day as it came (a surge is made of heavy days).  This is winsorising (Tukey 1962; Dixon
-1960), at a multiple of the median rather than at a quantile, so that an account without heavy
-days is left exactly as it is.
+1960; both cited from memory), at a multiple of the median rather than at a quantile, so that an
+account without heavy days is left exactly as it is.
 
 Shapes: ``A`` accounts, ``D`` days.
 """
@@ -30,12 +31,13 @@ def typical_day(values, factors, hist_end: int, column_step: int = 3) -> np.ndar
     return fast_nanmedian_rows(z, overwrite_input=True)
 
 
-def cap_heavy_days(values, factors, typical, multiple: float):
-    """``values`` (A, D) with each day above ``multiple`` × the account's ``typical`` day (A,)
-    (times the day's weekday factor) set to that cap, and the rows where a day was capped:
-    ``(capped (A, D), rows)``.  NaN stays NaN."""
+def cap_heavy_days(values, factors, hist_end: int, multiple: float) -> np.ndarray:
+    """``values`` (A, D) with each day above ``multiple`` × the account's typical day
+    (:func:`typical_day` before column ``hist_end``, times the day's weekday factor) set to that
+    cap; unchanged where ``multiple`` is 0.  NaN stays NaN."""
+    if not multiple:
+        return values
+    typical = typical_day(values, factors, hist_end)
     cap = multiple * np.where(np.isfinite(typical), typical, np.inf)[:, None] * factors
     with np.errstate(invalid="ignore"):
-        heavy = values > cap
-    rows = np.flatnonzero(heavy.any(axis=1))
-    return np.where(heavy, cap, values), rows
+        return np.where(values > cap, cap, values)
