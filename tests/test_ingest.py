@@ -291,6 +291,10 @@ tricky_value = st.sampled_from([
     "12345678901234567890", 5, -3, 0, 1.5, 1e5, True, False, None, {"a": 1}, [1], 12345678901234567890,
     # json.dumps writes these as the literals NaN, Infinity, -Infinity, which DuckDB's reader takes.
     "NaN", "Infinity", "nan", "0000000000000e10", float("nan"), float("inf"), float("-inf"),
+    # Past 25 bytes a text with a '-' after its first byte is taken as a string unchecked: long
+    # strings and long non-strings (integers, arrays, objects) that carry minus signs.
+    "0f8c2a4e-6b1d-4c3a-9e2f-7a5b3c1d0e9f", "-123456789012345678901234567890", "1-2-3-4-5-6-7-8-9-10-11-12",
+    -123456789012345678901234567890, [-1, -2, -3, -4, -5, -6, -7, -8, -9], {"a-b": "c-d-e-f-g-h-i-j-k-l"},
 ])
 
 
