@@ -1,3 +1,5 @@
+from datetime import date
+
 import duckdb
 import pytest
 
@@ -172,3 +174,33 @@ def test_version_2_store_still_recognises_files_logged_by_sha256(tmp_path, db, m
         hashes = dict(st.con.execute("SELECT file, content_hash FROM ingest_log").fetchall())
     assert hashes[str(old)] == "sha256:" + hashlib.sha256(old.read_bytes()).hexdigest()
     assert hashes[str(new)].startswith("xxh3-128:") and len(hashes[str(new)]) == len("xxh3-128:") + 32
+
+
+def test_version_6_store_migrates_its_per_user_rows_to_user_hashes(db, monkeypatch):
+    """Schema 7 keeps per-user daily rows by the user's hash and the names once in ``users``: a
+    store written before (rows under the names, a file's contributions keyed by them) keeps its
+    distinct-user counts and user names, and a file ingested then can still be taken back."""
+    _pin_schema(monkeypatch, 6)
+    rows = [("a-1", "2026-03-02", "edit", "ann", 3, 1), ("a-1", "2026-03-02", "edit", "bob", 1, 2),
+            ("a-1", "2026-03-02", "view", "ann", 2, 2), ("a-2", "2026-03-03", "edit", "cy", 5, 1)]
+    with store_mod.open_store(db) as st:
+        for account, day, event, user, events, file_no in rows:
+            st.con.execute("INSERT INTO user_daily VALUES (?, ?, ?, ?, ?)", [account, day, event, user, events])
+            st.con.execute("""INSERT INTO file_contributions SELECT ?, hash(CAST(? AS VARCHAR), CAST(? AS DATE),
+                              CAST(? AS VARCHAR), CAST(? AS VARCHAR)), ?""", [file_no, account, day, event, user, events])
+        st.con.execute("""INSERT INTO daily SELECT account, day, event, sum(events), count(*) FROM user_daily
+                          GROUP BY ALL""")
+        st.con.execute("INSERT INTO ingest_log (file, file_no, ingested) VALUES ('one.jsonl', 1, 8), ('two.jsonl', 2, 3)")
+    monkeypatch.undo()
+    with store_mod.open_store(db) as st:
+        assert st.schema_version() == store_mod.SCHEMA_VERSION >= 7
+        assert sorted(st.con.execute('SELECT "user" FROM users').fetchall()) == [("ann",), ("bob",), ("cy",)]
+        activity = st.accounts_user_activity(["a-1"], date(2026, 3, 1), date(2026, 3, 31))
+        assert sorted(zip(activity["user"], activity["event"], activity["events"])) == [
+            ("ann", "edit", 3), ("ann", "view", 2), ("bob", "edit", 1)]
+        st.take_back(2)
+        kept = st.con.execute("""SELECT u.account, u.event, n."user", u.events FROM user_daily u
+                                 JOIN users n USING (user_hash) ORDER BY ALL""").fetchall()
+        assert kept == [("a-1", "edit", "ann", 3), ("a-2", "edit", "cy", 5)]
+        assert st.con.execute("SELECT account, event, events, users FROM daily ORDER BY ALL").fetchall() == [
+            ("a-1", "edit", 3, 1), ("a-2", "edit", 5, 1)]

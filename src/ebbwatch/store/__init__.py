@@ -3,8 +3,9 @@
 Tables (schema version ``SCHEMA_VERSION``; ``MIGRATIONS`` brings older stores forward):
 
 - ``daily``: account × local day × event → events, distinct users.
-- ``user_daily``: account × local day × event × user → events (drivers, active users, and exact
-  distinct-user counts when late events arrive for a day already stored).
+- ``user_daily``: account × local day × event × user (its 64-bit hash) → events (drivers, active
+  users, and exact distinct-user counts when late events arrive for a day already stored);
+  ``users``: each user's name under its hash.
 - ``accounts``, ``identities`` (user → account over ``[valid_from, valid_to)``).
 - ``unattributed_events``: valid events no account was found for (time, event, user, id hash),
   attributed when identities are loaded later.
@@ -25,6 +26,7 @@ import pyarrow as pa
 from .alert_state import ALERT_LOG_COLUMNS, AlertState
 from .attribution import Attribution
 from .connection import LOCK_WAIT_SECONDS, MEMORY_LIMIT, StoreConnection, connect, resolve_path
+from .daily_files import DailyFiles
 from .merging import Merging, aggregate_events
 from .outcome_rates import OutcomeRates
 from .reads import ActivityReads
@@ -34,7 +36,7 @@ from .sql import FAST_TS_PATTERN, _register, quote_ident, quote_literal
 from .staging import Staging
 
 
-class Store(ReferenceTables, Staging, Attribution, Merging, ActivityReads, AlertState, OutcomeRates,
+class Store(ReferenceTables, Staging, Attribution, Merging, DailyFiles, ActivityReads, AlertState, OutcomeRates,
             StoreConnection):
     """An open activity store.  Use :func:`open_store` (or ``with open_store(...) as store``).
 

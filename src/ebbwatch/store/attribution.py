@@ -6,7 +6,7 @@ from __future__ import annotations
 import pyarrow as pa
 
 from ..errors import StoreError
-from .sql import _USER_DAY_KEY, _arrow, _register
+from .sql import _USER_DAY_KEY, _USER_HASH, _arrow, _register
 
 
 class Attribution:
@@ -153,8 +153,9 @@ class Attribution:
         return self.con.execute("SELECT count(*) FROM staged").fetchone()[0]
 
     def add_contributions(self, file_no: int | None, source: str | pa.Table = "new_user_daily"):
-        """Record what file ``file_no`` adds: the rows (account, day, event, user, events) of the
-        temp table named ``source``, or of an Arrow table (from a worker)."""
+        """Record what file ``file_no`` adds: the rows (account, day, event, user_hash, events) of
+        the temp table named ``source``, or of an Arrow table from a worker (account, day, event,
+        user, events)."""
         if file_no is None:
             return
         key = _USER_DAY_KEY
@@ -163,8 +164,8 @@ class Attribution:
             return
         _register(self.con, "incoming_contributions", source)
         try:
-            self.con.execute(f"INSERT INTO file_contributions SELECT ?, {key}, events FROM incoming_contributions",
-                             [file_no])
+            self.con.execute(f"""INSERT INTO file_contributions SELECT ?, {key}, events
+                FROM (SELECT *, {_USER_HASH} AS user_hash FROM incoming_contributions)""", [file_no])
         finally:
             self.con.unregister("incoming_contributions")
 
@@ -190,10 +191,10 @@ class Attribution:
             SELECT key_hash, sum(events) AS events FROM file_contributions WHERE file_no = ? GROUP BY ALL""",
                     [file_no])
         con.execute(f"""CREATE OR REPLACE TEMP TABLE remaining AS
-            SELECT u.account, u.day, u.event, u."user", u.events - t.events AS events
+            SELECT u.account, u.day, u.event, u.user_hash, u.events - t.events AS events
             FROM (SELECT *, {_USER_DAY_KEY} AS key_hash FROM user_daily) u JOIN taken t USING (key_hash)""")
         con.execute("""DELETE FROM user_daily USING remaining r WHERE user_daily.account = r.account
-            AND user_daily.day = r.day AND user_daily.event = r.event AND user_daily."user" = r."user\"""")
+            AND user_daily.day = r.day AND user_daily.event = r.event AND user_daily.user_hash = r.user_hash""")
         con.execute("INSERT INTO user_daily SELECT * FROM remaining WHERE events > 0")
         con.execute("CREATE OR REPLACE TEMP TABLE taken_keys AS SELECT DISTINCT account, day, event FROM remaining")
         con.execute("""DELETE FROM daily USING taken_keys t

@@ -1,20 +1,17 @@
-"""Merging prepared events into the store: id dedupe, per-user and per-account daily counts, and
-pre-aggregated daily files."""
+"""Merging prepared events into the store: id dedupe, per-user and per-account daily counts."""
 
 from __future__ import annotations
-
-from pathlib import Path
 
 import duckdb
 import numpy as np
 import pandas as pd
 import pyarrow as pa
 
-from .sql import _arrow, _daily_count_column, _register, quote_literal
+from .sql import _USER_HASH, _arrow, _register
 
 
 class Merging:
-    """Dedupe and the daily tables' updates."""
+    """Dedupe and the daily tables' updates from events."""
 
     def merge_staged(self, dedupe_window_days: int = 0, accept_beyond_window: bool = False,
                      known_accounts_only: bool = False, file_no: int | None = None,
@@ -34,7 +31,8 @@ class Merging:
         newest_us = con.execute(f"SELECT max(ts_us) FROM {fresh}").fetchall()[0][0]
         if prepared["unattributed"]:
             self.keep_unattributed(file_no)
-        grouped = f'SELECT account, day, event, "user", count(*) AS events FROM {fresh} GROUP BY ALL'
+        grouped = f"SELECT account, day, event, {_USER_HASH} AS user_hash, count(*) AS events FROM {fresh} GROUP BY ALL"
+        self.add_users(fresh)
         keep_contributions = keep_contributions and file_no is not None
         if self._user_daily_is_empty():
             # A first load (a backfill) has nothing to merge with: group straight into the table,
@@ -195,14 +193,25 @@ class Merging:
         incoming = pa.concat_tables(tables)
         _register(self.con, "incoming_user_daily", incoming)
         try:
+            self.add_users("incoming_user_daily")
             self.con.execute(
-                """CREATE OR REPLACE TEMP TABLE new_user_daily AS
-                SELECT account, day, event, "user", CAST(sum(events) AS BIGINT) AS events
+                f"""CREATE OR REPLACE TEMP TABLE new_user_daily AS
+                SELECT account, day, event, {_USER_HASH} AS user_hash, CAST(sum(events) AS BIGINT) AS events
                 FROM incoming_user_daily GROUP BY ALL"""
             )
         finally:
             self.con.unregister("incoming_user_daily")
         return self._merge_new_user_daily()
+
+    def add_users(self, source: str):
+        """Record the names of the users in ``source`` (a table or view with a ``user`` column)
+        that ``users`` does not hold yet, under their hash."""
+        distinct = f'SELECT DISTINCT {_USER_HASH} AS user_hash, "user" FROM {source}'
+        if not self._has_rows("users"):
+            self.con.execute(f"INSERT INTO users {distinct}")
+            return
+        self.con.execute(f"""INSERT INTO users SELECT n.user_hash, n."user" FROM ({distinct}) n
+            ANTI JOIN users u ON u.user_hash = n.user_hash""")
 
     def _user_daily_is_empty(self) -> bool:
         return not self._has_rows("user_daily")
@@ -226,7 +235,7 @@ class Merging:
             )
             con.execute(
                 """CREATE OR REPLACE TEMP TABLE merged_user_daily AS
-                SELECT account, day, event, "user", sum(events) AS events FROM (
+                SELECT account, day, event, user_hash, sum(events) AS events FROM (
                     SELECT u.* FROM user_daily u SEMI JOIN touched t ON u.account = t.account AND u.day = t.day
                     UNION ALL SELECT * FROM new_user_daily) GROUP BY ALL"""
             )
@@ -246,71 +255,6 @@ class Merging:
         con.execute("DROP TABLE IF EXISTS new_user_daily")
         con.execute("DROP TABLE IF EXISTS touched")
         return first_day, last_day
-
-    def _daily_source(self, path: str) -> str:
-        if Path(path).suffix.lower() in (".parquet", ".pq"):
-            return f"read_parquet({quote_literal(path)})"
-        return (f"read_csv({quote_literal(path)}, header=true, all_varchar=true)")
-
-    def check_daily_file(self, path: str) -> str | None:
-        """Problems with a daily-aggregate file (CSV or Parquet), read by DuckDB as a stream:
-        ``None`` when it is fine, else a message naming the first bad line (1 = the header)."""
-        source = self._daily_source(path)
-        try:
-            columns = [r[0] for r in self.con.execute(f"DESCRIBE SELECT * FROM {source}").fetchall()]
-        except duckdb.Error as exc:
-            return f"cannot read {path}: {str(exc).splitlines()[0]}"
-        missing = [c for c in ("account", "day", "event", "count") if c not in columns
-                   and not (c == "count" and "events" in columns)]
-        if missing:
-            return (f"{path}: missing column(s) {', '.join(missing)}; expected account,day,event,count[,users] "
-                    "(or events for count, as `ebbwatch export daily` writes it)")
-        count = _daily_count_column(columns)
-        users = "users" if "users" in columns else "NULL"
-        try:
-            bad = self.con.execute(
-                f"""SELECT line, problem, value FROM (
-                    SELECT row_number() OVER () + 1 AS line,
-                      CASE WHEN account IS NULL OR CAST(account AS VARCHAR) = '' THEN 'account must not be empty'
-                           WHEN TRY_CAST(day AS DATE) IS NULL THEN 'day must be a date (YYYY-MM-DD)'
-                           WHEN event IS NULL THEN 'event must not be empty'
-                           WHEN TRY_CAST({count} AS DOUBLE) IS NULL OR TRY_CAST({count} AS DOUBLE) < 0
-                                OR TRY_CAST({count} AS DOUBLE) <> floor(TRY_CAST({count} AS DOUBLE))
-                                THEN 'count must be a whole number >= 0'
-                           WHEN {users} IS NOT NULL AND CAST({users} AS VARCHAR) <> '' AND TRY_CAST({users} AS BIGINT) IS NULL
-                                THEN 'users must be a whole number' END AS problem,
-                      CAST(day AS VARCHAR) || ' / ' || CAST({count} AS VARCHAR) AS value
-                    FROM {source}) WHERE problem IS NOT NULL ORDER BY line LIMIT 1"""
-            ).fetchone()
-        except duckdb.Error as exc:
-            return f"cannot read {path}: {str(exc).splitlines()[0]}"
-        if bad:
-            return f"{path} line {bad[0]}: {bad[1]} (day / count: {bad[2]!r})"
-        return None
-
-    def load_daily_file(self, path: str) -> int:
-        """Insert or replace the rows of a checked daily-aggregate file (see ``check_daily_file``),
-        streamed by DuckDB rather than loaded into Python."""
-        source = self._daily_source(path)
-        columns = [r[0] for r in self.con.execute(f"DESCRIBE SELECT * FROM {source}").fetchall()]
-        users = "NULLIF(CAST(users AS VARCHAR), '')" if "users" in columns else "NULL"
-        count = _daily_count_column(columns)
-        self.con.execute(
-            f"""CREATE OR REPLACE TEMP TABLE daily_in AS
-            SELECT CAST(account AS VARCHAR) AS account, CAST(day AS DATE) AS day, CAST(event AS VARCHAR) AS event,
-                   sum(CAST(CAST({count} AS DOUBLE) AS BIGINT)) AS events, max(CAST({users} AS BIGINT)) AS users
-            FROM {source} GROUP BY ALL"""
-        )
-        empty = not self._has_rows("daily")
-        if not empty:
-            self.con.execute(
-                """DELETE FROM daily USING daily_in t
-                WHERE daily.account = t.account AND daily.day = t.day AND daily.event = t.event"""
-            )
-        self.con.execute("INSERT INTO daily SELECT * FROM daily_in ORDER BY account, day")
-        n = self.con.execute("SELECT count(*) FROM daily_in").fetchall()[0][0]
-        self.con.execute("DROP TABLE daily_in")
-        return n
 
 
 def aggregate_events(events: pa.Table, duplicate_hashes: np.ndarray) -> tuple[pa.Table, int, object, object, object]:

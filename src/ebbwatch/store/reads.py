@@ -128,7 +128,7 @@ class ActivityReads:
                         WHERE d.day BETWEEN $1 AND $2 AND e.weight > 0 GROUP BY ALL),
                       distinct_users AS (
                         SELECT u.account, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day,
-                               CAST(count(DISTINCT u."user") AS DOUBLE) AS users
+                               CAST(count(DISTINCT u.user_hash) AS DOUBLE) AS users
                         FROM user_daily u JOIN event_weights e ON e.event = u.event
                         WHERE u.day BETWEEN $1 AND $2 AND e.weight > 0 GROUP BY ALL)
                      SELECT t.part, t.account, t.day, t.value, t.events, COALESCE(du.users, t.users) AS users
@@ -212,7 +212,7 @@ class ActivityReads:
             ).fetchnumpy()
             distinct_users = self.con.sql(
                 """SELECT w.account_index, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day,
-                          count(DISTINCT u."user") AS users
+                          count(DISTINCT u.user_hash) AS users
                 FROM user_daily u JOIN wanted_accounts w ON w.account = u.account
                 JOIN event_weights e ON e.event = u.event
                 WHERE u.day BETWEEN ? AND ? AND e.weight > 0 AND u.account BETWEEN ? AND ? GROUP BY ALL""",
@@ -293,8 +293,9 @@ class ActivityReads:
         _register(self.con, "driver_accounts", wanted)
         try:
             return self.con.execute(
-                """SELECT u.account, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day, u."user", u.event, u.events
+                """SELECT u.account, CAST(u.day - DATE '1970-01-01' AS INTEGER) AS day, n."user", u.event, u.events
                 FROM user_daily u SEMI JOIN driver_accounts w ON w.account = u.account
+                JOIN users n ON n.user_hash = u.user_hash
                 WHERE u.day BETWEEN ? AND ? AND u.account BETWEEN ? AND ?""", [start_day, end_day, lo, hi]).df()
         finally:
             self.con.unregister("driver_accounts")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from ..errors import StoreError
 
-SCHEMA_VERSION = 6
+SCHEMA_VERSION = 7
 
 # Schema as a list of migrations: MIGRATIONS[v] takes a store at version v to v + 1.
 MIGRATIONS: dict[int, list[str]] = {
@@ -71,6 +71,22 @@ MIGRATIONS: dict[int, list[str]] = {
                outcome VARCHAR NOT NULL, k BIGINT NOT NULL, n BIGINT NOT NULL)""",
         """CREATE TABLE outcome_replay (saved_at TIMESTAMPTZ, replay_from DATE, replay_to DATE, step_days INTEGER,
                horizon_days INTEGER, known_until DATE, settings VARCHAR)""",
+    ],
+    # v7: per-user daily rows name their user by its 64-bit hash (as ids are kept), the names
+    # once each in ``users``: a per-user row is a third cheaper to write (1.38M rows: 0.30 ->
+    # 0.19 s) and to group.  A file's contributions are keyed by the same hash of the user.
+    6: [
+        'CREATE TABLE users (user_hash UBIGINT NOT NULL, "user" VARCHAR NOT NULL)',
+        'INSERT INTO users SELECT DISTINCT hash("user"), "user" FROM user_daily',
+        """CREATE TABLE user_daily_by_hash (account VARCHAR NOT NULL, day DATE NOT NULL, event VARCHAR NOT NULL,
+               user_hash UBIGINT NOT NULL, events BIGINT NOT NULL)""",
+        'INSERT INTO user_daily_by_hash SELECT account, day, event, hash("user"), events FROM user_daily',
+        """UPDATE file_contributions SET key_hash = rekeyed.new_key FROM (
+               SELECT hash(account, day, event, "user") AS old_key, hash(account, day, event, hash("user")) AS new_key
+               FROM user_daily) rekeyed
+           WHERE file_contributions.key_hash = rekeyed.old_key""",
+        "DROP TABLE user_daily",
+        "ALTER TABLE user_daily_by_hash RENAME TO user_daily",
     ],
 }
 

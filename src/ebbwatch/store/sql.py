@@ -57,7 +57,9 @@ def _id_hash(column: str) -> str:
 
 
 # A per-user daily row's key as one 64-bit hash (``file_contributions``).
-_USER_DAY_KEY = 'hash(account, day, event, "user")'
+_USER_DAY_KEY = "hash(account, day, event, user_hash)"
+# A user's 64-bit hash, as ``user_daily`` and ``users`` keep it.
+_USER_HASH = 'hash("user")'
 
 
 def _daily_count_column(columns: list[str]) -> str:
