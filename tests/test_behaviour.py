@@ -326,3 +326,25 @@ def test_the_median_week_reference_keeps_quiet_accounts_calibrated():
     p_low = tests.p_low_[:, list(tests.windows_).index(28)]
     assert abs(np.mean(p_low < 0.01) - 0.01) <= 0.0055
     assert abs(np.mean(p_low < 0.05) - 0.05) <= 0.012
+
+
+def test_an_account_back_from_a_dip_is_not_a_surge_but_a_surge_still_is():
+    """Two accounts of 40 a day whose half-year holds six weeks at 40% (everyone on vacation),
+    ended ten weeks ago.  One has been back at its usual level since: against the half-year's
+    mean its last 28 days read 33% up (p_up 2.4e-5 and alerted before the rising tail also asked
+    for the median week); against the median week they are usual.  The other doubled 20 days
+    ago: high against both, still alerted.  Measured 2026-12-05: p_up 0.0099 and 4.0e-15."""
+    rng = np.random.default_rng(31)
+    _, totals = quiet_fleet()
+    dip = slice(365 - 112, 365 - 70)
+    back, expected = steady_account(rng, level=40.0)
+    back[dip] = rng.poisson(expected[dip] * 0.4)
+    surge, expected = steady_account(rng, level=40.0)
+    surge[dip] = rng.poisson(expected[dip] * 0.4)
+    surge[-20:] = rng.poisson(expected[-20:] * 2.0)
+    totals = np.vstack([totals, back[None, :], surge[None, :]])
+    scores, alerts = judge(totals)
+    back_id, surge_id = f"a{len(totals) - 2}", f"a{len(totals) - 1}"
+    assert scores.loc[back_id, "p_up"] > 1e-3 and back_id not in set(alerts["account"])
+    assert scores.loc[surge_id, "p_up"] < 1e-10
+    assert alerts.set_index("account").loc[surge_id, "direction"] == "up"

@@ -94,6 +94,15 @@ class ScanParams:
     falling_screen_p: float = 0.01
     heavy_day_multiple: float = 3.0
     falling_median_reference_from: int = 28
+    # The rising tail of windows of ``rising_median_reference_from`` days or more (0: none) must
+    # also be high against the median week of their half-year, not only against its mean, which a
+    # dip the account has come back from (a summer's vacations) has pulled down: the larger of the
+    # two p-values (an intersection-union test, valid at the level of each).  Only accounts whose
+    # rising p-value there is at most ``rising_screen_p`` are tested again; above it the larger
+    # of the two is above it too, so the share of quiet accounts under any alpha up to it is as
+    # if every account were.
+    rising_screen_p: float = 0.1
+    rising_median_reference_from: int = 28
     ramp_advantage: float = 1.0
     profile_weeks: int = 16
     # A change of weekday shape among those weeks (baseline.shape_change): the statistic's
@@ -183,6 +192,29 @@ def _falling_tail_second_look(tests: WindowTests, values, factors, first_seen, h
     tests.p_low_[np.ix_(accounts, columns)] = second.p_low_
 
 
+def _rising_tail_against_median_week(tests: WindowTests, values, factors, first_seen, half_event, whole_weeks_only,
+                                     params: ScanParams) -> None:
+    """Raise ``tests.p_high_`` of the windows of ``rising_median_reference_from`` days or more to
+    their p-value against the median week of the half-year, where that is larger, for the accounts
+    whose rising p-value there is at most ``rising_screen_p`` (``ScanParams``).  In place."""
+    start = params.rising_median_reference_from
+    if not start:
+        return
+    judged = tuple(k for k in tests.windows_ if k >= start)
+    columns = [list(tests.windows_).index(k) for k in judged]
+    accounts = np.flatnonzero(tests.p_high_[:, columns].min(axis=1) <= params.rising_screen_p) if columns else []
+    if not len(accounts):
+        return
+    # The tests need the weekly window beside the judged ones (their spread leans on its own).
+    again = WindowTests(**{**tests.get_params(), "windows": tuple(sorted({BASE_WINDOW, *judged})),
+                           "median_reference_from": start}).fit(
+        values[accounts], factors[accounts], first_seen[accounts], half_event[accounts], priors=tests.priors_,
+        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only[accounts])
+    again_columns = [list(again.windows_).index(k) for k in judged]
+    rows = np.ix_(accounts, columns)
+    tests.p_high_[rows] = np.maximum(tests.p_high_[rows], again.p_high_[:, again_columns])
+
+
 def history_segments(panel: Panel, params: ScanParams = ScanParams()) -> list[list[tuple[int, int, float]]]:
     """Each account's whole history cut where it changed: per account, ``(first day, last day,
     level)`` tuples (day numbers; level in activity-index units a day, weekday-adjusted), from
@@ -258,6 +290,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         values, factors, first_seen, half_event, priors=params.window_priors,
         count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=shape_since >= 0)
     _falling_tail_second_look(tests, values, factors, first_seen, half_event, shape_since >= 0, hist_end, params)
+    _rising_tail_against_median_week(tests, values, factors, first_seen, half_event, shape_since >= 0, params)
     windows = np.asarray(tests.windows_)
     p_level_low = nested_min_p(tests.p_low_.T, tests.windows_, params.reference_days)
     p_level_high = nested_min_p(tests.p_high_.T, tests.windows_, params.reference_days)
