@@ -97,10 +97,11 @@ class ScanParams:
     # The rising tail of windows of ``rising_median_reference_from`` days or more (0: none) must
     # also be high against the median week of their half-year, not only against its mean, which a
     # dip the account has come back from (a summer's vacations) has pulled down: the larger of the
-    # two p-values (an intersection-union test, valid at the level of each).  Only accounts whose
-    # rising p-value there is at most ``rising_screen_p`` are tested again; above it the larger
-    # of the two is above it too, so the share of quiet accounts under any alpha up to it is as
-    # if every account were.
+    # two p-values (an intersection-union test, valid at the level of each; never below the first
+    # look's, so the first look's calibration bounds it, and the second borrows the first's fleet
+    # priors where its history is short).  Only accounts whose rising p-value there is at most
+    # ``rising_screen_p`` are tested again; above it the larger of the two is above it too, so the
+    # share of quiet accounts under any alpha up to it is as if every account were.
     rising_screen_p: float = 0.1
     rising_median_reference_from: int = 28
     ramp_advantage: float = 1.0
