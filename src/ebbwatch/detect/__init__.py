@@ -17,6 +17,7 @@ from .calibrate import cauchy_combination, nested_min_p
 from .changepoint import ChangepointSearch, changepoints, cusum_split, fill_gaps, robust_sigma
 from .contrasts import BASE_WINDOW, WindowPriors, WindowTests, window_priors
 from .heavy_days import cap_heavy_days
+from .second_looks import falling_tail_second_look, long_windows, rising_tail_against_median_week
 from .silence import last_active_column, silence
 from .tail import rolling_window
 from .trend import step_or_ramp, trend_test
@@ -164,56 +165,9 @@ def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams =
     settings = dict(reference_days=params.reference_days, history_gap_days=params.history_gap_days)
     priors = window_priors(values, factors, first, np.full(len(values), 0.5), windows=params.windows, **settings)
     second_look = window_priors(cap_heavy_days(values, factors, hist_end, params.heavy_day_multiple), factors, first,
-                                np.full(len(values), 0.5), windows=_long_windows(params.windows),
+                                np.full(len(values), 0.5), windows=long_windows(params.windows),
                                 median_reference_from=params.falling_median_reference_from, **settings)
     return replace(priors, second_look=second_look)
-
-
-def _long_windows(windows) -> tuple:
-    """The windows of a week or more: those whose falling tail gets the second look."""
-    return tuple(k for k in windows if k >= BASE_WINDOW)
-
-
-def _falling_tail_second_look(tests: WindowTests, values, factors, first_seen, half_event, whole_weeks_only,
-                              hist_end: int, params: ScanParams) -> None:
-    """Replace ``tests.p_low_`` of the windows of a week or more, for the accounts whose falling
-    p-value there is at most ``falling_screen_p``, by the same tests with heavy days capped
-    (``heavy_days``) and the longest windows against the median week of their half-year
-    (``ScanParams``).  In place."""
-    columns = [list(tests.windows_).index(k) for k in _long_windows(tests.windows_)]
-    accounts = np.flatnonzero(tests.p_low_[:, columns].min(axis=1) <= params.falling_screen_p)
-    if not accounts.size:
-        return
-    factors = factors[accounts]
-    second = WindowTests(**{**tests.get_params(), "windows": _long_windows(tests.windows_),
-                            "median_reference_from": params.falling_median_reference_from}).fit(
-        cap_heavy_days(values[accounts], factors, hist_end, params.heavy_day_multiple), factors,
-        first_seen[accounts], half_event[accounts], priors=tests.priors_.second_look or tests.priors_,
-        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only[accounts])
-    tests.p_low_[np.ix_(accounts, columns)] = second.p_low_
-
-
-def _rising_tail_against_median_week(tests: WindowTests, values, factors, first_seen, half_event, whole_weeks_only,
-                                     params: ScanParams) -> None:
-    """Raise ``tests.p_high_`` of the windows of ``rising_median_reference_from`` days or more to
-    their p-value against the median week of the half-year, where that is larger, for the accounts
-    whose rising p-value there is at most ``rising_screen_p`` (``ScanParams``).  In place."""
-    start = params.rising_median_reference_from
-    if not start:
-        return
-    judged = tuple(k for k in tests.windows_ if k >= start)
-    columns = [list(tests.windows_).index(k) for k in judged]
-    accounts = np.flatnonzero(tests.p_high_[:, columns].min(axis=1) <= params.rising_screen_p) if columns else []
-    if not len(accounts):
-        return
-    # The tests need the weekly window beside the judged ones (their spread leans on its own).
-    again = WindowTests(**{**tests.get_params(), "windows": tuple(sorted({BASE_WINDOW, *judged})),
-                           "median_reference_from": start}).fit(
-        values[accounts], factors[accounts], first_seen[accounts], half_event[accounts], priors=tests.priors_,
-        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only[accounts])
-    again_columns = [list(again.windows_).index(k) for k in judged]
-    rows = np.ix_(accounts, columns)
-    tests.p_high_[rows] = np.maximum(tests.p_high_[rows], again.p_high_[:, again_columns])
 
 
 def history_segments(panel: Panel, params: ScanParams = ScanParams()) -> list[list[tuple[int, int, float]]]:
@@ -290,8 +244,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
                         history_gap_days=params.history_gap_days).fit(
         values, factors, first_seen, half_event, priors=params.window_priors,
         count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=shape_since >= 0)
-    _falling_tail_second_look(tests, values, factors, first_seen, half_event, shape_since >= 0, hist_end, params)
-    _rising_tail_against_median_week(tests, values, factors, first_seen, half_event, shape_since >= 0, params)
+    falling_tail_second_look(tests, values, factors, first_seen, half_event, shape_since >= 0, hist_end, params)
+    rising_tail_against_median_week(tests, values, factors, first_seen, half_event, shape_since >= 0, params)
     windows = np.asarray(tests.windows_)
     p_level_low = nested_min_p(tests.p_low_.T, tests.windows_, params.reference_days)
     p_level_high = nested_min_p(tests.p_high_.T, tests.windows_, params.reference_days)
