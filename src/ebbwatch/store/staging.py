@@ -53,14 +53,18 @@ class Staging:
         def unquote(col):
             return f"({col} ->> '$')"
 
-        def is_string(col):
-            return f"prefix({text(col)}, '\"')"
+        # A JSON time's text and its number are computed once per row, in a subquery, rather than
+        # in each branch that needs them (2M epoch-ms lines: staging 0.84 -> 0.78 s).  Their
+        # names are longer than any field's, so they cannot take one's place.
+        longest = max(len(n) for n in names)
+        ts_as_text, ts_as_number = (quote_ident(f"{base}_".ljust(longest + len(base) + 1, "_"))
+                                    for base in ("ts_text", "ts_number"))
 
-        def is_number(col):
-            # A JSON value that is not a string, object, array, boolean or null prints as a number
-            # DuckDB casts (or NaN / ±Infinity, which are not finite): a cast instead of a pattern
-            # (2M epoch-ms lines: staging 0.92 -> 0.86 s).
-            return f"isfinite(TRY_CAST({text(col)} AS DOUBLE))"
+        ts_is_string = f"prefix({ts_as_text}, '\"')"
+        # A JSON value that is not a string, object, array, boolean or null prints as a number
+        # DuckDB casts (or NaN / ±Infinity, which are not finite): a cast instead of a pattern
+        # (2M epoch-ms lines: staging 0.92 -> 0.86 s).
+        ts_is_number = f"isfinite({ts_as_number})"
 
         # What the VARCHAR text of a non-string JSON value can look like; one regex per value
         # (cheaper here than a chain of prefix tests).
@@ -114,10 +118,10 @@ class Staging:
         if ts_text:
             ts_ok = text_ok
         elif ts_format in ("epoch_s", "epoch_ms"):
-            ts_ok = is_number(ts)
+            ts_ok = ts_is_number
         else:
-            ts_ok = f"(CASE WHEN {is_string(ts)} THEN {text_ok} ELSE {is_number(ts)} END)"
-        numeric_us = _epoch_us(f"TRY_CAST({text(ts)} AS DOUBLE)", ts_format)
+            ts_ok = f"(CASE WHEN {ts_is_string} THEN {text_ok} ELSE {ts_is_number} END)"
+        numeric_us = _epoch_us(ts_as_number, ts_format)
         ok = (f"{ts} IS NOT NULL AND {ts_ok} AND {event_ok} "
               f"AND {us} IS NOT NULL AND {value(us)} <> '' AND {id_ok(us)} "
               f"AND ({ac} IS NULL OR {id_ok(ac)}) AND ({idc} IS NULL OR {id_ok(idc)})")
@@ -125,19 +129,22 @@ class Staging:
             time_us = f"CASE WHEN COALESCE({ok}, false) THEN {text_us} END"
         else:
             time_us = (f"CASE WHEN NOT COALESCE({ok}, false) THEN NULL "
-                       f"WHEN {is_string(ts)} THEN {text_us} "
+                       f"WHEN {ts_is_string} THEN {text_us} "
                        f"ELSE {numeric_us} END")
+        # records=true: a line that is not an object is a doubtful row, not a reason to read the
+        # whole file another way; ignore_errors: a line that is not JSON is one all-NULL row
+        # (still one row per non-blank line, so ordinals stay line ordinals).
+        source = f"read_json(?, format='newline_delimited', records=true, ignore_errors=true, columns={{{spec}}})"
+        if not ts_text:
+            source = (f"(SELECT *, {text(ts)} AS {ts_as_text}, TRY_CAST({text(ts)} AS DOUBLE) AS {ts_as_number} "
+                      f"FROM {source})")
         try:
-            # records=true: a line that is not an object is a doubtful row, not a reason to
-            # read the whole file another way; ignore_errors: a line that is not JSON is one
-            # all-NULL row (still one row per non-blank line, so ordinals stay line ordinals).
             self.con.execute(
                 f"""CREATE OR REPLACE TEMP TABLE staged AS
                 SELECT {time_us} AS ts_us,
                        {value(ev)} AS event, {value(us)} AS "user", nullif({value(ac)}, '') AS account,
                        {_id_hash(value(idc))} AS id_hash
-                FROM read_json(?, format='newline_delimited', records=true, ignore_errors=true,
-                               columns={{{spec}}})""",
+                FROM {source}""",
                 [path],
             )
         except duckdb.Error:
