@@ -44,3 +44,20 @@ def test_a_miss_is_a_change_not_alerted_in_its_direction():
     small = missed(fleet, flags, _scores(accounts), {"drop"}, small=True)
     assert list(small["account"]) == ["d-small"]
     assert missed(fleet, flags, _scores(accounts), {"stop"}).empty
+
+
+def test_the_ingest_benchmark_times_each_store_statement_and_restores_the_connection(tmp_path):
+    """``ingest.py --statements``: one ingest with each of the store's statements timed."""
+    from ebbwatch.store import connection
+
+    from .benchmarks.ingest import timed_statements
+
+    events = tmp_path / "e.jsonl"
+    events.write_text("".join(f'{{"ts": "2026-03-0{d}T10:00:00Z", "event": "x", "user": "u{d}", "account": "a"}}\n'
+                              for d in range(1, 4)))
+    before = connection.StoreConnection.__init__
+    timings = timed_statements(str(events), str(tmp_path / "s.duckdb"))
+    assert connection.StoreConnection.__init__ is before
+    assert [s for s in timings if s[1].startswith("CREATE OR REPLACE TEMP TABLE staged AS")]
+    assert all(seconds >= 0 for seconds, _ in timings)
+    assert [t for t, _ in timings] == sorted((t for t, _ in timings), reverse=True)

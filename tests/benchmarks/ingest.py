@@ -1,8 +1,9 @@
 """Ingest speed on realistic file shapes: ebbwatch vs a bare DuckDB read_json (read_parquet) +
 GROUP BY (and pandas on the first shape), each shape generated and measured in one run.
 
-Run by hand: ``python tests/benchmarks/ingest.py [--events N] [--shapes a,b]`` (default
-2,000,000 events a shape).  Each route runs in its own process (so peak memory is its own) on
+Run by hand: ``python tests/benchmarks/ingest.py [--events N] [--shapes a,b] [--statements N]``
+(default 2,000,000 events a shape; ``--statements`` also prints, per shape, the N costliest store
+statements of one more ingest, each timed alone).  Each route runs in its own process (so peak memory is its own) on
 the same file, the routes alternating ``--repeat`` times; the ratios of the medians are printed.
 Targets (issue 21): every shape within 1.5x of the bare DuckDB time, and ebbwatch at least 10x
 faster than pandas.
@@ -13,9 +14,12 @@ from __future__ import annotations
 import argparse
 import gzip
 import os
+import re
 import shutil
 import sys
 import tempfile
+import time
+from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
@@ -123,6 +127,41 @@ RESULT = {{"seconds": time.perf_counter() - t, "groups": len(out)}}
 """
 
 
+def timed_statements(path: str, db: str) -> list[tuple[float, str]]:
+    """One ingest of ``path`` into a new store at ``db`` with every ``execute`` of the store's
+    connections timed: ``(seconds, statement with its whitespace folded)``, costliest first.  The
+    connection class is restored afterwards."""
+    import ebbwatch
+    from ebbwatch.store import connection
+
+    timings = []
+
+    class TimedConnection:
+        def __init__(self, con):
+            self._con = con
+
+        def execute(self, query, *args, **kwargs):
+            start = time.perf_counter()
+            result = self._con.execute(query, *args, **kwargs)
+            timings.append((time.perf_counter() - start, re.sub(r"\s+", " ", query).strip()))
+            return result
+
+        def __getattr__(self, name):
+            return getattr(self._con, name)
+
+    original = connection.StoreConnection.__init__
+
+    def timed_init(self, con, store_path):
+        original(self, TimedConnection(con), store_path)
+
+    connection.StoreConnection.__init__ = timed_init
+    try:
+        ebbwatch.ingest_files([path], db=db, now=datetime(2026, 6, 1, tzinfo=timezone.utc))
+    finally:
+        connection.StoreConnection.__init__ = original
+    return sorted(timings, key=lambda t: -t[0])
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--events", type=int, default=2_000_000)
@@ -130,6 +169,8 @@ def main():
     parser.add_argument("--skip-pandas", action="store_true")
     parser.add_argument("--repeat", type=int, default=3, help="runs of each route, alternated (medians compared)")
     parser.add_argument("--dir", help="keep the generated files here and reuse them (default: a temp directory)")
+    parser.add_argument("--statements", type=int, default=0,
+                        help="also print each shape's N costliest store statements (one more ingest, in this process)")
     args = parser.parse_args()
     tmp = args.dir or tempfile.mkdtemp(prefix="ebbwatch-ingest-bench-")
     os.makedirs(tmp, exist_ok=True)
@@ -157,6 +198,16 @@ def main():
             runs["bare"].append(run_measured(BARE_DUCKDB.format(query=bare_query(path, shape))))
             if with_pandas:
                 runs["pandas"].append(run_measured(PANDAS.format(path=path)))
+        if args.statements:
+            db = os.path.join(tmp, "statements.duckdb")
+            for stale in (db, db + ".wal"):
+                if os.path.exists(stale):
+                    os.remove(stale)
+            timings = timed_statements(path, db)
+            os.remove(db)
+            print(f"{name}: {sum(t for t, _ in timings):.2f} s in {len(timings)} statements; the costliest:")
+            for seconds, statement in timings[:args.statements]:
+                print(f"  {seconds:6.3f}  {statement[:110]}")
         if not args.dir:
             os.remove(path)
         median = {key: float(np.median([r["seconds"] for r in v])) for key, v in runs.items() if v}
