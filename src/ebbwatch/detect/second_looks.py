@@ -16,6 +16,15 @@ def long_windows(windows) -> tuple:
     return tuple(k for k in windows if k >= BASE_WINDOW)
 
 
+def _again(tests: WindowTests, accounts, values, factors, first_seen, half_event, whole_weeks_only, params,
+           priors, **changed) -> WindowTests:
+    """The first look's tests with the ``changed`` parameters, fitted on ``accounts`` alone
+    (``values`` and ``factors`` already those accounts' rows)."""
+    return WindowTests(**{**tests.get_params(), **changed}).fit(
+        values, factors, first_seen[accounts], half_event[accounts], priors=priors,
+        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only[accounts])
+
+
 def falling_tail_second_look(tests: WindowTests, values, factors, first_seen, half_event, whole_weeks_only,
                              hist_end: int, params) -> None:
     """Replace ``tests.p_low_`` of the windows of a week or more, for the accounts whose falling
@@ -27,11 +36,10 @@ def falling_tail_second_look(tests: WindowTests, values, factors, first_seen, ha
     if not accounts.size:
         return
     factors = factors[accounts]
-    second = WindowTests(**{**tests.get_params(), "windows": long_windows(tests.windows_),
-                            "median_reference_from": params.falling_median_reference_from}).fit(
-        cap_heavy_days(values[accounts], factors, hist_end, params.heavy_day_multiple), factors,
-        first_seen[accounts], half_event[accounts], priors=tests.priors_.second_look or tests.priors_,
-        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only[accounts])
+    second = _again(tests, accounts, cap_heavy_days(values[accounts], factors, hist_end, params.heavy_day_multiple),
+                    factors, first_seen, half_event, whole_weeks_only, params,
+                    tests.priors_.second_look or tests.priors_, windows=long_windows(tests.windows_),
+                    median_reference_from=params.falling_median_reference_from)
     tests.p_low_[np.ix_(accounts, columns)] = second.p_low_
 
 
@@ -41,18 +49,16 @@ def rising_tail_against_median_week(tests: WindowTests, values, factors, first_s
     their p-value against the median week of the half-year, where that is larger, for the accounts
     whose rising p-value there is at most ``rising_screen_p`` (``ScanParams``).  In place."""
     start = params.rising_median_reference_from
-    if not start:
+    judged = tuple(k for k in tests.windows_ if k >= start) if start else ()
+    if not judged:
         return
-    judged = tuple(k for k in tests.windows_ if k >= start)
     columns = [list(tests.windows_).index(k) for k in judged]
-    accounts = np.flatnonzero(tests.p_high_[:, columns].min(axis=1) <= params.rising_screen_p) if columns else []
-    if not len(accounts):
+    accounts = np.flatnonzero(tests.p_high_[:, columns].min(axis=1) <= params.rising_screen_p)
+    if not accounts.size:
         return
     # The tests need the weekly window beside the judged ones (their spread leans on its own).
-    again = WindowTests(**{**tests.get_params(), "windows": tuple(sorted({BASE_WINDOW, *judged})),
-                           "median_reference_from": start}).fit(
-        values[accounts], factors[accounts], first_seen[accounts], half_event[accounts], priors=tests.priors_,
-        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only[accounts])
+    again = _again(tests, accounts, values[accounts], factors[accounts], first_seen, half_event, whole_weeks_only,
+                   params, tests.priors_, windows=tuple(sorted({BASE_WINDOW, *judged})), median_reference_from=start)
     again_columns = [list(again.windows_).index(k) for k in judged]
     rows = np.ix_(accounts, columns)
     tests.p_high_[rows] = np.maximum(tests.p_high_[rows], again.p_high_[:, again_columns])
