@@ -1,4 +1,5 @@
-"""The by-hand benchmark tools that have logic of their own: ``missed.py``'s table of misses."""
+"""The by-hand benchmark tools that have logic of their own: ``missed.py``'s table of misses,
+``ingest.py``'s statement timings and ``young.py``'s young accounts."""
 
 from __future__ import annotations
 
@@ -61,3 +62,33 @@ def test_the_ingest_benchmark_times_each_store_statement_and_restores_the_connec
     assert [s for s in timings if s[1].startswith("CREATE OR REPLACE TEMP TABLE staged AS")]
     assert all(seconds >= 0 for seconds, _ in timings)
     assert [t for t, _ in timings] == sorted((t for t, _ in timings), reverse=True)
+
+
+def test_the_young_accounts_benchmark_cuts_quiet_histories_and_plants_changes_in_them():
+    """``young.py``: long quiet accounts cut to 42-119 days, a third of them made to slide and a
+    third to drop, and every other account left as generated."""
+    from .benchmarks.fleets import generate
+    from .benchmarks.young import make_young
+
+    fleet = generate("A", 90, 3, share_changed=0.2)
+    made, young = make_young(fleet, 7)
+    truth = made.truth.set_index("account")
+    assert len(young) >= 9
+    assert set(truth.loc[young, "kind"]) == {"quiet", "slide", "drop"}
+    for account in made.accounts:
+        row = made.accounts.index(account)
+        if account not in young:
+            assert (made.counts[row] == fleet.counts[row]).all()
+            continue
+        t = truth.loc[account]
+        start = (t["first_day"] - made.start).days
+        assert 42 <= made.n_days - start <= 119 and not made.counts[row, :start].any()
+        assert t["traits"].endswith("young") and "seasonal" not in t["traits"] and t["usual"] > 0
+        if t["kind"] == "quiet":
+            assert (made.counts[row, start:] == fleet.counts[row, start:]).all()
+        else:
+            onset = (t["onset"] - made.start).days
+            assert start + 14 <= onset and made.n_days - onset == t["age_days"]
+            # Thinned from the generated counts: never more, and clearly fewer since the onset.
+            assert (made.counts[row] <= fleet.counts[row]).all()
+            assert made.counts[row, onset:].sum() < 0.9 * fleet.counts[row, onset:].sum()
