@@ -67,10 +67,14 @@ def _score_chunk(panel, *, cfg: Config, loader):
 
 
 def fleet_factor_summary(voters: int) -> dict:
-    """Whether the scan divided out fleet-wide days, and on how many voting accounts."""
-    from ..series import FLEET_MIN_ACCOUNTS
+    """Whether the scan divided out fleet-wide days, and on how many voting accounts: in full
+    from ``needed`` of them, only the moves that stand out of the votes' noise from
+    ``needed_for_large_moves`` (``large_moves_only``), not at all below that."""
+    from ..series import FLEET_MIN_ACCOUNTS, FLEET_MIN_SMALL
 
-    return {"estimated": voters >= FLEET_MIN_ACCOUNTS, "voting_accounts": int(voters), "needed": FLEET_MIN_ACCOUNTS}
+    return {"estimated": voters >= FLEET_MIN_SMALL, "voting_accounts": int(voters), "needed": FLEET_MIN_ACCOUNTS,
+            "large_moves_only": FLEET_MIN_SMALL <= voters < FLEET_MIN_ACCOUNTS,
+            "needed_for_large_moves": FLEET_MIN_SMALL}
 
 
 def default_as_of(last_day: date | None, today: date | None = None) -> date:

@@ -136,15 +136,24 @@ def _segments(rows: list[dict]) -> list[str]:
             + f'</tr></thead><tbody>{body}</tbody></table>']
 
 
+def _fleet_words(fleet: dict) -> str:
+    """What the fleet's size let the factor read, or nothing for a fleet that reads it all."""
+    if fleet.get("large_moves_only"):
+        return (f'<p>With {fleet["voting_accounts"]} voting accounts the factor divides out only the days '
+                f'nearly all of them moved on together; {fleet["needed"]} are needed to read smaller moves.</p>')
+    if fleet.get("estimated", True):
+        return ""
+    return (f'<p>No fleet-wide factor: {fleet["voting_accounts"]} account(s) vote, '
+            f'{fleet.get("needed_for_large_moves", fleet["needed"])} are needed to tell a holiday from a few '
+            "accounts' own changes, so each account is judged on its own.</p>")
+
+
 def _fleet_section(data: dict) -> list[str]:
     s, fleet = data["summary"], data["fleet"]
     masked = [i for i, m in enumerate(fleet["masked"]) if m]
     dips = [i for i, f in enumerate(fleet["factor"]) if f < 0.9 and not fleet["masked"][i]]
     return ['<h3>Fleet-wide daily factor</h3>',
-            ("" if s.get("fleet_factor", {}).get("estimated", True) else
-             f'<p>No fleet-wide factor: {s["fleet_factor"]["voting_accounts"]} account(s) vote, '
-             f'{s["fleet_factor"]["needed"]} are needed to tell a holiday from a few accounts\' own changes, '
-             'so each account is judged on its own.</p>'),
+            _fleet_words(s.get("fleet_factor", {})),
             '<p class="muted">1 is an ordinary day (the dotted line); grey stripes mark masked data-gap days'
             + (f" ({esc(', '.join(fleet['masked_days']))})" if fleet["masked_days"] else "")
             + (f"; {len(dips)} day(s) under 0.9 were divided out as fleet-wide dips" if dips else "") + ".</p>",
