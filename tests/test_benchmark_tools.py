@@ -92,3 +92,18 @@ def test_the_young_accounts_benchmark_cuts_quiet_histories_and_plants_changes_in
             # Thinned from the generated counts: never more, and clearly fewer since the onset.
             assert (made.counts[row] <= fleet.counts[row]).all()
             assert made.counts[row, onset:].sum() < 0.9 * fleet.counts[row, onset:].sum()
+
+
+def test_every_benchmark_script_answers_help_without_running():
+    """``python tests/benchmarks/X.py --help`` prints its usage and exits: a help text with a '%'
+    once crashed argparse, and a script without options ran its whole benchmark."""
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    scripts = sorted(p for p in (Path(__file__).parent / "benchmarks").glob("*.py")
+                     if "__main__" in p.read_text())
+    assert len(scripts) >= 8
+    for script in scripts:
+        out = subprocess.run([sys.executable, str(script), "--help"], capture_output=True, text=True, timeout=120)
+        assert out.returncode == 0 and out.stdout.startswith("usage:"), (script.name, out.stderr[-500:])

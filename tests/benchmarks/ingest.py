@@ -165,7 +165,9 @@ def timed_statements(path: str, db: str) -> list[tuple[float, str]]:
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--events", type=int, default=2_000_000)
-    parser.add_argument("--shapes", help="comma-separated shape names (default: all): " + ", ".join(SHAPES))
+    # (argparse expands '%' in help texts, and one shape's name holds one.)
+    parser.add_argument("--shapes", help="comma-separated shape names (default: all): "
+                        + ", ".join(SHAPES).replace("%", "%%"))
     parser.add_argument("--skip-pandas", action="store_true")
     parser.add_argument("--repeat", type=int, default=3, help="runs of each route, alternated (medians compared)")
     parser.add_argument("--dir", help="keep the generated files here and reuse them (default: a temp directory)")
@@ -175,6 +177,9 @@ def main():
     tmp = args.dir or tempfile.mkdtemp(prefix="ebbwatch-ingest-bench-")
     os.makedirs(tmp, exist_ok=True)
     names = [n.strip() for n in args.shapes.split(",")] if args.shapes else list(SHAPES)
+    unknown = [n for n in names if n not in SHAPES]
+    if unknown:
+        parser.error(f"unknown shape(s) {', '.join(map(repr, unknown))}; the shapes are: {', '.join(SHAPES)}")
     rows = []
     for k, name in enumerate(names):
         shape = SHAPES[name]

@@ -15,6 +15,7 @@ Run by hand: ``python tests/benchmarks/real_series.py``.  Data is read in place 
 
 from __future__ import annotations
 
+import argparse
 import json
 import os
 import sys
@@ -124,7 +125,8 @@ def run_tcpd():
           f"{'met' if f1 > best_f1 and cover > best_cover else 'missed'}")
 
 
-def main():
+def main(argv=None):
+    argparse.ArgumentParser(description=__doc__.splitlines()[0]).parse_args(argv)  # --help, and no options
     if not DATA.exists():
         print(f"{DATA} not found: the real labelled series are not available here; nothing to run.")
         return
