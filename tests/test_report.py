@@ -251,3 +251,16 @@ def test_up_and_down_have_their_own_colours_that_pass_wcag_contrast(report):
     directions = set(alerts["direction"])
     assert all(f'<div class="card {d}"' in text for d in directions)
     assert '<span class="dir">' in text
+
+
+def test_the_fleet_section_says_what_the_fleet_size_let_the_factor_read():
+    """20+ voting accounts: nothing to say; 8-19: only the days nearly all moved on together;
+    fewer: no factor, each account on its own (the scan summary's ``fleet_factor``)."""
+    from ebbwatch.api.common import fleet_factor_summary
+    from ebbwatch.report.html import _fleet_words
+
+    assert _fleet_words(fleet_factor_summary(300)) == ""
+    assert "12 voting accounts the factor divides out only the days nearly all of them moved on" in \
+        _fleet_words(fleet_factor_summary(12))
+    words = _fleet_words(fleet_factor_summary(3))
+    assert "No fleet-wide factor: 3 account(s) vote, 8 are needed" in words and "judged on its own" in words
