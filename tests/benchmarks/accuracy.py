@@ -49,6 +49,8 @@ def main(argv=None):
     parser.add_argument("--first-seed", type=int, default=0)
     parser.add_argument("--accounts", type=int, default=400)
     parser.add_argument("--share-changed", type=float, default=0.3)
+    parser.add_argument("--days", type=int, default=0,
+                        help="days of data in each fleet (default: the family's own, 560-730); a short one is a young store")
     parser.add_argument("--peers", default="", help="comma-separated: hand,stl,ets,prophet,capa,kernelcpd")
     parser.add_argument("--peer-sample", type=int, default=100,
                         help="score slow peers (prophet) on this many accounts a fleet (0 = all)")
@@ -65,7 +67,8 @@ def main(argv=None):
         calib_down, calib_up = [], []
         timing = {}
         for seed in range(args.first_seed, args.first_seed + args.seeds):
-            fleet = generate(family, args.accounts, seed, share_changed=args.share_changed)
+            fleet = generate(family, args.accounts, seed, share_changed=args.share_changed,
+                             **({"n_days": args.days} if args.days else {}))
             with tempfile.TemporaryDirectory() as tmp:
                 started = time.perf_counter()
                 flags, scores = planted.run_ebbwatch(fleet, Path(tmp))
