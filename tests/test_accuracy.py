@@ -114,3 +114,30 @@ def test_more_caught_and_fewer_false_alerts_than_the_hand_rule(development_runs)
     kinds = ("drop", "stop", "slide", "surge")
     assert sum(ours[k][0] for k in kinds) >= 2 * sum(hand[k][0] for k in kinds)
     assert 2 * ours["quiet"][0] <= hand["quiet"][0]
+
+
+def test_the_priors_of_a_fleet_too_small_to_measure_them_follow_the_measured_ones():
+    """Reference: the window priors measured on 400-account fleets of the development family.
+    A fleet with under 20 long histories cannot measure its own, and takes
+    ``contrasts.neutral_priors``: each window's spread against the week's within 0.7-1.4 times the
+    measured (they go as (7/k)^0.85; measured 0.79-1.05 of them, 2026-12-05), and its excess beyond
+    count noise not below the measured nor over three times it (measured 1.24-2.58 times), so a
+    small fleet's long windows are not judged as widely as its week nor its two-day windows as
+    narrowly (until 2026-12-05 every window took the week's spread: 0.28 times the measured
+    two-day ratio, 3.4 times the 28-day one)."""
+    from ebbwatch.detect import ScanParams, fleet_window_priors
+    from ebbwatch.detect.contrasts import neutral_priors
+    from ebbwatch.series import fleet_factor
+
+    for seed in (500, 501):
+        fleet = generate(DEV_FAMILY, 400, seed)
+        counts = fleet.counts.astype(float)
+        first_full = np.array([(day - fleet.start).days + 1 for day in fleet.truth["first_day"]])
+        factor, masked = fleet_factor(counts)
+        measured = fleet_window_priors(counts, factor, masked, np.arange(fleet.n_days), ScanParams(),
+                                       first_full_day=first_full)
+        neutral = neutral_priors(measured.windows)
+        ratio = np.array(neutral.ratio) / np.array(measured.ratio)
+        excess = np.array(neutral.excess) / np.array(measured.excess)
+        assert ((ratio >= 0.7) & (ratio <= 1.4)).all(), (seed, measured.windows, ratio)
+        assert ((excess >= 1.0) & (excess <= 3.0)).all(), (seed, measured.windows, excess)

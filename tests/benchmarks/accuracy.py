@@ -42,6 +42,11 @@ def header():
     return f"{'':<26}" + "".join(f"{k if k != 'quiet' else 'quiet flagged':>16}" for k in REPORTED + ("quiet",))
 
 
+# Quiet accounts' traits that put a real change inside a store of a few months: an old level
+# shift (months back in a two-year fleet) and a season's swing.
+CHANGES_IN_A_SHORT_STORE = ("old_shift", "seasonal")
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--families", default="A,B,C,D")
@@ -65,6 +70,7 @@ def main(argv=None):
         print(header())
         total, total_small, matched = {}, {}, {}
         calib_down, calib_up = [], []
+        steady_calib, steady_flagged = [], {}
         timing = {}
         for seed in range(args.first_seed, args.first_seed + args.seeds):
             fleet = generate(family, args.accounts, seed, share_changed=args.share_changed,
@@ -80,6 +86,11 @@ def main(argv=None):
             cal = planted.calibration(fleet.truth, scores)
             calib_down.append(cal["p_down"])
             calib_up.append(cal["p_up"])
+            if args.days:
+                steady = fleet.truth[~fleet.truth["traits"].str.contains("|".join(CHANGES_IN_A_SHORT_STORE))]
+                steady_cal = planted.calibration(steady, scores)
+                steady_calib.append((steady_cal["p_down"], steady_cal["p_up"]))
+                planted.add(steady_flagged, {"quiet": planted.recall(steady, flags)["quiet"]})
             if peers:
                 from peers import SLOW, peer_scores
 
@@ -102,6 +113,12 @@ def main(argv=None):
             sd = np.sqrt(alpha * (1 - alpha) / max(n, 1))
             cells.append(f"a={alpha:g}: down {np.mean(p_down < alpha):.4f} up {np.mean(p_up < alpha):.4f} (±{2 * sd:.4f})")
         print(f"calibration on {n} judged quiet accounts, share with p < a (2 SE): " + "; ".join(cells))
+        if steady_calib:
+            d, u = (np.concatenate([c[i] for c in steady_calib]) for i in (0, 1))
+            hit, total_steady = steady_flagged["quiet"]
+            print(f"without the quiet accounts whose level shift or season falls inside {args.days} days of data "
+                  f"(real changes there): {hit}/{total_steady} flagged; " + "; ".join(
+                      f"a={a:g}: down {np.mean(d < a):.4f} up {np.mean(u < a):.4f}" for a in planted.ALPHAS))
         if matched:
             print(f"\nrecall at matched false rates (family {family}, cut on quiet accounts' scores)")
             for rate in (0.01, 0.02):

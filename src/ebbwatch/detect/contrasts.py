@@ -49,9 +49,25 @@ class WindowPriors:
         return self.excess[i], self.ratio[i]
 
 
+# Priors for a fleet with too few long histories to measure them: a week's contrast varies by
+# NEUTRAL_WEEK_EXCESS beyond its count noise, and a k-day window's excess and spread ratio go as
+# (7 / k) ** NEUTRAL_DECAY: k days averaged, as independent days would (exponent 1), a little
+# slower since levels wander.  The development family's measured priors fall with exponents 0.8-1.1
+# and its weekly excess is 0.019, so these are on the wide side of it.
+NEUTRAL_WEEK_EXCESS = 0.05
+NEUTRAL_DECAY = 0.85
+
+
+def neutral_priors(windows) -> WindowPriors:
+    """The :class:`WindowPriors` of a fleet too small to measure them (see ``NEUTRAL_DECAY``)."""
+    scale = [(BASE_WINDOW / k) ** NEUTRAL_DECAY for k in windows]
+    return WindowPriors(tuple(windows), tuple(NEUTRAL_WEEK_EXCESS * f for f in scale), tuple(scale))
+
+
 def _priors_from(by_window, windows, min_accounts: int = 20) -> WindowPriors:
     base = by_window[BASE_WINDOW]
     long = (base["points"] >= 20) & (base["spread"] > 0)
+    neutral = neutral_priors(windows)
     excess, ratio = [], []
     for k in windows:
         s = by_window[k]
@@ -60,8 +76,8 @@ def _priors_from(by_window, windows, min_accounts: int = 20) -> WindowPriors:
             excess.append(float(np.median(np.maximum(s["spread"][good] ** 2 - s["count_var"][good], 0.0))))
             ratio.append(float(np.median((s["spread"][good] / base["spread"][good]) ** 2)))
         else:
-            excess.append(0.05)
-            ratio.append(1.0)
+            excess.append(neutral.excess[len(excess)])
+            ratio.append(neutral.ratio[len(ratio)])
     return WindowPriors(tuple(windows), tuple(excess), tuple(ratio))
 
 
@@ -71,7 +87,7 @@ def window_priors(values, factors, first_seen, half_event, *, windows, reference
     """The fleet-wide :class:`WindowPriors`, from accounts with long histories in a sample.
 
     ``values``/``factors`` (S, D) as :class:`WindowTests` takes them.  With fewer than
-    ``min_accounts`` long histories, neutral priors: excess 0.05, ratio 1.
+    ``min_accounts`` long histories, :func:`neutral_priors`.
     """
     p = dict(windows=tuple(windows), reference_days=reference_days, min_reference_days=min_reference_days,
              history_gap_days=history_gap_days, prior_windows=prior_windows, median_reference_from=median_reference_from)
