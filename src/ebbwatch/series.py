@@ -15,9 +15,9 @@ FLEET_GAP_RATIO = 0.3  # a day at under 30% of the fleet's usual volume is a dat
 FLEET_LOOKBACK_WEEKS = 4
 FLEET_DEADBAND = 0.05  # fleet-wide moves under ±5% are left alone (noise of the median)
 # A fleet-wide move is read in full from at least FLEET_MIN_ACCOUNTS voting accounts.  From
-# FLEET_MIN_SMALL to one fewer than that, a day's move counts only as far as it stands beyond
-# FLEET_SMALL_Z standard errors of the votes' centre: a handful of accounts can still tell a
-# holiday that moves nearly all of them from their own changes, not a small one from noise.
+# FLEET_MIN_SMALL to one fewer than that, a day's move counts (in full) only where it stands
+# beyond FLEET_SMALL_Z standard errors of the votes' centre: a handful of accounts can still tell
+# a holiday that moves nearly all of them from their own changes, not a small one from noise.
 # Fewer than FLEET_MIN_SMALL cannot, and such a fleet's accounts are judged on their own.
 FLEET_MIN_ACCOUNTS = 20
 FLEET_MIN_SMALL = 8
