@@ -93,13 +93,13 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
 
 
 def _fleet_words(fleet: dict) -> str:
-    if fleet.get("large_moves_only"):
+    if fleet["large_moves_only"]:
         return (f"; fleet-wide days read from {fleet['voting_accounts']:,} accounts, only where nearly all "
                 f"moved together ({fleet['needed']} needed to read smaller moves)")
     if fleet["estimated"]:
         return f"; fleet-wide days read from {fleet['voting_accounts']:,} accounts"
-    needed = fleet.get("needed_for_large_moves", fleet["needed"])
-    return f"; no fleet-wide factor ({fleet['voting_accounts']} account(s) vote, {needed} needed): each account judged on its own"
+    return (f"; no fleet-wide factor ({fleet['voting_accounts']} account(s) vote, {fleet['needed_for_large_moves']} "
+            "needed): each account judged on its own")
 
 
 @main.command("explain")

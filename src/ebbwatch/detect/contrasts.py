@@ -68,16 +68,13 @@ def _priors_from(by_window, windows, min_accounts: int = 20) -> WindowPriors:
     base = by_window[BASE_WINDOW]
     long = (base["points"] >= 20) & (base["spread"] > 0)
     neutral = neutral_priors(windows)
-    excess, ratio = [], []
-    for k in windows:
+    excess, ratio = list(neutral.excess), list(neutral.ratio)
+    for i, k in enumerate(windows):
         s = by_window[k]
         good = long & (s["points"] >= 8)
         if good.sum() >= min_accounts:
-            excess.append(float(np.median(np.maximum(s["spread"][good] ** 2 - s["count_var"][good], 0.0))))
-            ratio.append(float(np.median((s["spread"][good] / base["spread"][good]) ** 2)))
-        else:
-            excess.append(neutral.excess[len(excess)])
-            ratio.append(neutral.ratio[len(ratio)])
+            excess[i] = float(np.median(np.maximum(s["spread"][good] ** 2 - s["count_var"][good], 0.0)))
+            ratio[i] = float(np.median((s["spread"][good] / base["spread"][good]) ** 2))
     return WindowPriors(tuple(windows), tuple(excess), tuple(ratio))
 
 

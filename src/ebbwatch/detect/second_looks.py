@@ -16,6 +16,11 @@ def long_windows(windows) -> tuple:
     return tuple(k for k in windows if k >= BASE_WINDOW)
 
 
+def _columns(windows, chosen) -> list:
+    """The positions in ``windows`` of the ``chosen`` window lengths."""
+    return [list(windows).index(k) for k in chosen]
+
+
 def _again(tests: WindowTests, accounts, values, factors, first_seen, half_event, whole_weeks_only, params,
            priors, **changed) -> WindowTests:
     """The first look's tests with the ``changed`` parameters, fitted on ``accounts`` alone
@@ -31,7 +36,7 @@ def falling_tail_second_look(tests: WindowTests, values, factors, first_seen, ha
     p-value there is at most ``falling_screen_p``, by the same tests with heavy days capped
     (``heavy_days``) and the longest windows against the median week of their half-year
     (``ScanParams``).  In place."""
-    columns = [list(tests.windows_).index(k) for k in long_windows(tests.windows_)]
+    columns = _columns(tests.windows_, long_windows(tests.windows_))
     accounts = np.flatnonzero(tests.p_low_[:, columns].min(axis=1) <= params.falling_screen_p)
     if not accounts.size:
         return
@@ -52,13 +57,13 @@ def rising_tail_against_median_week(tests: WindowTests, values, factors, first_s
     judged = tuple(k for k in tests.windows_ if k >= start) if start else ()
     if not judged:
         return
-    columns = [list(tests.windows_).index(k) for k in judged]
+    columns = _columns(tests.windows_, judged)
     accounts = np.flatnonzero(tests.p_high_[:, columns].min(axis=1) <= params.rising_screen_p)
     if not accounts.size:
         return
     # The tests need the weekly window beside the judged ones (their spread leans on its own).
     again = _again(tests, accounts, values[accounts], factors[accounts], first_seen, half_event, whole_weeks_only,
                    params, tests.priors_, windows=tuple(sorted({BASE_WINDOW, *judged})), median_reference_from=start)
-    again_columns = [list(again.windows_).index(k) for k in judged]
+    again_columns = _columns(again.windows_, judged)
     rows = np.ix_(accounts, columns)
     tests.p_high_[rows] = np.maximum(tests.p_high_[rows], again.p_high_[:, again_columns])

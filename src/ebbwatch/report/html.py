@@ -144,7 +144,7 @@ def _fleet_words(fleet: dict) -> str:
     if fleet.get("estimated", True):
         return ""
     return (f'<p>No fleet-wide factor: {fleet["voting_accounts"]} account(s) vote, '
-            f'{fleet.get("needed_for_large_moves", fleet["needed"])} are needed to tell a holiday from a few '
+            f'{fleet["needed_for_large_moves"]} are needed to tell a holiday from a few '
             "accounts' own changes, so each account is judged on its own.</p>")
 
 
