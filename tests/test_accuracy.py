@@ -73,15 +73,18 @@ def test_calibration_on_held_out_families_stays_where_it_was_measured(quiet, fam
     directions), the share below alpha is 0.8-9.3 times alpha at 0.001, 0.85-3.0 times at 0.01,
     0.42-1.30 times at 0.05 and 0.36-1.22 times at 0.1 (the 0.36: C's falling p-values, made more
     conservative when the growth rate stopped being subtracted).  This pins those measurements
-    against getting worse: at most 12, 3.5, 1.6 and 1.6 times alpha, at least 0.35 times at 0.05
-    and 0.1."""
+    against getting worse: at most 12, 3.5, 1.6 and 1.6 times alpha, at least 0.33 times at 0.05
+    and 0.1.  (That floor was 0.35 until young accounts' own weeks began to count, 2026-12-05:
+    C's falling share at 0.1 went 0.0356 -> 0.0347, 42 -> 41 of 1,180 quiet accounts; of the 103
+    young accounts whose p-value moved, 7 -> 6 fell below 0.1, the median moved by a factor 0.999.
+    A floor one account from its measurement cannot tell noise from a regression.)"""
     runs = quiet[family]
     for side in (0, 1):
         for alpha, high in ((0.001, 12.0), (0.01, 3.5), (0.05, 1.6), (0.1, 1.6)):
             share, _ = _shares(runs, alpha, side)
             assert share <= high * alpha, (family, side, alpha, share)
             if alpha >= 0.05:
-                assert share >= 0.35 * alpha, (family, side, alpha, share)
+                assert share >= 0.33 * alpha, (family, side, alpha, share)
 
 
 @pytest.fixture(scope="module")
@@ -141,3 +144,31 @@ def test_the_priors_of_a_fleet_too_small_to_measure_them_follow_the_measured_one
         excess = np.array(neutral.excess) / np.array(measured.excess)
         assert ((ratio >= 0.7) & (ratio <= 1.4)).all(), (seed, measured.windows, ratio)
         assert ((excess >= 1.0) & (excess <= 3.0)).all(), (seed, measured.windows, excess)
+
+
+@pytest.fixture(scope="module")
+def young_store_quiet(tmp_path_factory):
+    """Per quiet fleet of the development family with only its last 100 days of data (every
+    account young, the window priors neutral and set by its young accounts' own weeks): the
+    (p_down, p_up) of the accounts whose old level shift or season does not fall inside them."""
+    from .benchmarks.accuracy import CHANGES_IN_A_SHORT_STORE
+
+    runs = []
+    for seed in (210, 211):
+        fleet = generate(DEV_FAMILY, 300, seed, share_changed=0.0, n_days=100)
+        _, scores = planted.run_ebbwatch(fleet, tmp_path_factory.mktemp(f"young{seed}"))
+        steady = fleet.truth[~fleet.truth["traits"].str.contains("|".join(CHANGES_IN_A_SHORT_STORE))]
+        cal = planted.calibration(steady, scores)
+        runs.append((cal["p_down"], cal["p_up"]))
+    return runs
+
+
+@pytest.mark.parametrize("alpha", ALPHAS)
+@pytest.mark.parametrize("side", [0, 1], ids=["down", "up"])
+def test_a_young_store_raises_no_more_than_alpha(young_store_quiet, alpha, side):
+    """Reference: the uniform distribution.  In a store of 100 days the accounts' own weeks set
+    both their spread and the fleet's neutral prior; quiet accounts may then be judged
+    conservatively (measured 2026-12-05, two fleets of 300: 0.004-0.009 below 0.01, 0.021-0.094
+    below 0.1) but never fall under alpha more often than sampling error allows."""
+    share, se = _shares(young_store_quiet, alpha, side)
+    assert share <= alpha + 4 * se, f"{share:.4f} against {alpha} (se {se:.4f})"

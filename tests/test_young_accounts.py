@@ -22,15 +22,20 @@ START = datetime(2026, 10, 2, 3, 0, tzinfo=timezone.utc)  # 14:00 in Sydney
 RATES = {"yg-alpha": 14, "yg-beta": 12, "yg-gamma": 10, "yg-syd": 18, "yg-delta": 9}
 WEEK = np.array([1.15, 1.1, 1.1, 1.05, 1.0, 0.3, 0.3])
 DROP_DAY = 45  # yg-beta keeps 30% of its activity from this day on
+SLIDE_DAY = 32  # a sliding account's last day at its usual level is the day before this one
 
 
-def _events(rng):
+def _events(rng, sliding: str | None = None):
+    """The fleet's events; ``sliding``: an account that keeps its level for 32 days and then
+    slides linearly to 30% of it by the last day."""
     rows = []
     end = START + timedelta(days=59, hours=20)
     for account, rate in RATES.items():
         for d in range(60):
             day = (START + timedelta(days=d)).date()
             mult = WEEK[day.weekday()] * (0.3 if account == "yg-beta" and d >= DROP_DAY else 1.0)
+            if account == sliding and d >= SLIDE_DAY:
+                mult *= 1.0 - 0.7 * (d - SLIDE_DAY + 1) / (60 - SLIDE_DAY)
             midnight = datetime(day.year, day.month, day.day, tzinfo=timezone.utc)
             for hour in rng.uniform(0, 24, rng.poisson(rate * mult)):
                 ts = midnight + timedelta(hours=float(hour))
@@ -48,16 +53,18 @@ def _events(rng):
     return rows
 
 
-@pytest.fixture(scope="module")
-def young_store(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("young")
-    rng = np.random.default_rng(7)
-    (folder / "events.jsonl").write_text("".join(json.dumps(r) + "\n" for r in _events(rng)))
+def _store(folder, rng, sliding: str | None = None) -> str:
+    (folder / "events.jsonl").write_text("".join(json.dumps(r) + "\n" for r in _events(rng, sliding)))
     (folder / "accounts.csv").write_text("account,timezone\n" + "".join(
         f"{a},{'Australia/Sydney' if a == 'yg-syd' else ''}\n" for a in [*RATES, "yg-old"]))
     db = str(folder / "s.duckdb")
     ebbwatch.ingest_files([str(folder / "events.jsonl")], db=db, accounts=str(folder / "accounts.csv"))
     return db
+
+
+@pytest.fixture(scope="module")
+def young_store(tmp_path_factory):
+    return _store(tmp_path_factory.mktemp("young"), np.random.default_rng(7))
 
 
 def test_every_young_account_is_judged_from_its_first_full_day(young_store):
@@ -151,3 +158,24 @@ def test_a_young_accounts_step_is_a_drop_from_its_day(young_store):
     onset = date.fromisoformat(info["changepoint"]["onset"])
     assert info["changepoint"]["kind_if_down"] == "drop"
     assert abs((onset - (START.date() + timedelta(days=DROP_DAY))).days) <= 3, onset
+
+
+def test_a_young_accounts_slide_is_alerted_while_it_runs(tmp_path):
+    """Issue 20 item 7: an account with two months of history that slides from its level to 30% over
+    its last four weeks was never alerted (the prior's weekly spread, 0.05, was all a young account
+    was judged by).  Its own steady weeks now count, and the fleet's young accounts' weeks set
+    the neutral prior.  A daily run over the last week: the slide is alerted on some day in at least
+    four of six stores (each a different draw of the same fleet; the code of 2026-12-04 alerted it
+    in one), and no steady young account is alerted on any day."""
+    caught, false = 0, []
+    for seed in range(6):
+        folder = tmp_path / f"s{seed}"
+        folder.mkdir()
+        db = _store(folder, np.random.default_rng(seed), sliding="yg-gamma")
+        alerted = set()
+        for back in range(7):
+            alerted |= set(ebbwatch.scan(db=db, as_of=AS_OF - timedelta(days=back)).account)
+        caught += "yg-gamma" in alerted
+        false += sorted(alerted & {"yg-alpha", "yg-delta", "yg-syd", "yg-old"})
+    assert caught >= 4, caught
+    assert not false, false

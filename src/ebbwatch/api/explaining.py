@@ -59,6 +59,9 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
     if row["model"] == "history":
         why = (f"its own history: the same comparisons on {points} earlier days show how much its "
                "activity varies when nothing in particular happens")
+    elif row["own_weeks"]:
+        why = (f"its own {int(row['own_weeks'])} weeks before the last three, weighed against the fleet's typical "
+               f"variation: only {points} earlier days to compare with")
     else:
         why = (f"mostly the fleet's typical variation: only {points} earlier days to compare with, "
                "so its own history is weighted against the fleet's")
@@ -73,7 +76,7 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         "today": today_alerts,
         "masked_days_in_window": [day_to_date(x).isoformat() for x in days[-cfg.scan.window_days:]
                                   if loader.masked[int(x) - loader.start_day]],
-        "baseline": {"model": row["model"], "why": why, "history_days": points,
+        "baseline": {"model": row["model"], "why": why, "history_days": points, "own_weeks": int(row["own_weeks"]),
                      "growth_pct_year": f(row["growth_pct_year"]), "low_volume": bool(row["low_volume"]),
                      "reference_ends": day_to_date(reference_end).isoformat()},
         "weekday_factors": dict(zip(weekday_names, (round(float(v), 3) for v in row["weekday_factors"]))),

@@ -118,7 +118,7 @@ SCORE_COLUMNS = (
     "percentile", "percentile_down", "percentile_up", "window_level", "window_baseline", "level", "baseline_level",
     "change_pct", "change_down_pct", "change_up_pct", "window_days",
     "window_down", "window_up", "trend_change_pct", "trend_weeks", "growth_pct_year", "onset_day", "level_before", "level_after",
-    "silent_days", "model", "down_kind", "n_reference", "low_volume", "reference_end_day", "weekday_factors",
+    "silent_days", "model", "down_kind", "n_reference", "own_weeks", "low_volume", "reference_end_day", "weekday_factors",
     "weekday_shape_since_day",
 )
 MIN_SEGMENT_DAYS = 7  # a change needs a week of the account before it
@@ -368,6 +368,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
         "model": np.where(points >= tests.prior_windows, "history", "prior").astype(object),
         "down_kind": down_kind,
         "n_reference": tests.history_points_,
+        "own_weeks": tests.own_weeks_,
         "low_volume": tests.baseline_[:, week] * 7 < 2 * half_event * tests.count_floor_events,
         "reference_end_day": panel.start_day + reference_end,
         "weekday_factors": list(np.round(profile.factors_, 4)),

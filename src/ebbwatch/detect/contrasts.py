@@ -56,18 +56,34 @@ class WindowPriors:
 # and its weekly excess is 0.019, so these are on the wide side of it.
 NEUTRAL_WEEK_EXCESS = 0.05
 NEUTRAL_DECAY = 0.85
+# Where MIN_OWN_WEEKS_ACCOUNTS or more young accounts (a window history shorter than the prior's
+# weight) have their own weeks to show, the week's excess is their mean excess when that is
+# smaller, never below NEUTRAL_LEAST_WEEK_EXCESS: a fleet of young steady accounts is not judged
+# by a guess made for a wider one.  The mean, not the median: each account's estimate is a
+# variance from a few weeks, skewed, and the median of such estimates falls below their mean.
+NEUTRAL_LEAST_WEEK_EXCESS = 0.01
+MIN_OWN_WEEKS_ACCOUNTS = 5
 
 
-def neutral_priors(windows) -> WindowPriors:
+def neutral_priors(windows, week_excess: float = NEUTRAL_WEEK_EXCESS) -> WindowPriors:
     """The :class:`WindowPriors` of a fleet too small to measure them (see ``NEUTRAL_DECAY``)."""
     scale = [(BASE_WINDOW / k) ** NEUTRAL_DECAY for k in windows]
-    return WindowPriors(tuple(windows), tuple(NEUTRAL_WEEK_EXCESS * f for f in scale), tuple(scale))
+    return WindowPriors(tuple(windows), tuple(week_excess * f for f in scale), tuple(scale))
 
 
-def _priors_from(by_window, windows, min_accounts: int = 20) -> WindowPriors:
+def _neutral_week_excess(base, prior_windows: float, min_accounts: int = MIN_OWN_WEEKS_ACCOUNTS) -> float:
+    """The week's excess of :func:`neutral_priors` for a fleet whose 7-day window statistics are
+    ``base`` (see ``MIN_OWN_WEEKS_ACCOUNTS``)."""
+    own = base["own_excess"][(base["own_points"] >= 3) & (base["points"] < prior_windows)]
+    if own.size < min_accounts:
+        return NEUTRAL_WEEK_EXCESS
+    return float(np.clip(np.mean(own), NEUTRAL_LEAST_WEEK_EXCESS, NEUTRAL_WEEK_EXCESS))
+
+
+def _priors_from(by_window, windows, prior_windows: float, min_accounts: int = 20) -> WindowPriors:
     base = by_window[BASE_WINDOW]
     long = (base["points"] >= 20) & (base["spread"] > 0)
-    neutral = neutral_priors(windows)
+    neutral = neutral_priors(windows, _neutral_week_excess(base, prior_windows))
     excess, ratio = list(neutral.excess), list(neutral.ratio)
     for i, k in enumerate(windows):
         s = by_window[k]
@@ -90,7 +106,7 @@ def window_priors(values, factors, first_seen, half_event, *, windows, reference
              history_gap_days=history_gap_days, prior_windows=prior_windows, median_reference_from=median_reference_from)
     by_window, _ = window_statistics(np.asarray(values, float), np.asarray(factors, float), np.asarray(first_seen),
                                      np.asarray(half_event, float), p)
-    return _priors_from(by_window, p["windows"], min_accounts)
+    return _priors_from(by_window, p["windows"], prior_windows, min_accounts)
 
 
 class WindowTests(Estimator):
@@ -175,7 +191,8 @@ class WindowTests(Estimator):
 
         Sets ``p_low_``/``p_high_``/``z_``/``change_pct_`` (A, W), ``growth_`` (A, log per day;
         reported, not taken out),
-        ``history_points_`` (A, 7-day history points), ``percentile_`` (A, W: where each window's
+        ``history_points_`` (A, 7-day history points), ``own_weeks_`` (A, the account's own whole
+        weeks that counted beside a short history, 0 where they did not), ``percentile_`` (A, W: where each window's
         contrast falls among the same window's contrasts in the account's history, 0-100 by mid-rank:
         0 below every one, 100 above every one, NaN without a history), ``level_`` and ``baseline_``
         (A, W: each window's level and its reference's, per day, weekday-adjusted) and ``priors_``.
@@ -189,11 +206,20 @@ class WindowTests(Estimator):
                  median_reference_from=self.median_reference_from)
         by_window, growth = window_statistics(values, factors, np.asarray(first_seen), half_event, p)
         if priors is None:
-            priors = _priors_from(by_window, windows)
+            priors = _priors_from(by_window, windows, self.prior_windows)
         base = by_window[BASE_WINDOW]
         n0 = self.prior_windows
         base_excess, _ = priors.of(BASE_WINDOW)
-        weekly_var = (base["points"] * base["spread"] ** 2 + n0 * (base_excess + base["count_var"])) / (base["points"] + n0)
+        # Where the window history is short, the account's own recent weeks say how steady it
+        # is, as many points as they outnumber the history's.
+        own_points = np.maximum(base["own_points"] - base["points"], 0.0)
+        own_excess = np.maximum(base["own_excess"], 0.0)
+        known = base["points"] + own_points + n0
+        weekly_var = (base["points"] * base["spread"] ** 2 + own_points * (own_excess + base["count_var"])
+                      + n0 * (base_excess + base["count_var"])) / known
+        # ... and scale the fleet's excess of every window by how this account's weeks compare.
+        steadiness = 1.0 - own_points / known * (1.0 - own_excess / max(base_excess, 1e-9))
+        self.own_weeks_ = np.where(own_points > 0, base["own_points"] + 1, 0).astype(np.int64)
         shape = (values.shape[0], len(windows))
         self.p_low_, self.p_high_ = np.ones(shape), np.ones(shape)
         self.z_, self.change_pct_ = np.full(shape, np.nan), np.full(shape, np.nan)
@@ -204,12 +230,13 @@ class WindowTests(Estimator):
             excess, ratio = priors.of(k)
             weight = s["points"] / (s["points"] + n0)
             if k == BASE_WINDOW:
-                var = weight * s["spread"] ** 2 + (1 - weight) * (excess + s["count_var"])
+                var = np.where(own_points > 0, weekly_var,
+                               weight * s["spread"] ** 2 + (1 - weight) * (excess + s["count_var"]))
                 points = s["points"]
             else:
                 # A long window has few independent points of history: its spread leans on the
                 # weekly spread times the fleet's ratio between the two.
-                prior = np.maximum(ratio * weekly_var, excess + s["count_var"])
+                prior = np.maximum(ratio * weekly_var, excess * steadiness + s["count_var"])
                 w2 = s["points"] / (s["points"] + self.ratio_prior_windows)
                 var = w2 * s["spread"] ** 2 + (1 - w2) * prior
                 points = s["points"] + self.ratio_prior_windows
@@ -229,7 +256,7 @@ class WindowTests(Estimator):
             sd_high = sd * np.clip(1 + weight * (s["half_high"] - 1), 0.5, 1.0)
             centre = weight * s["centre"]
             z_low, z_high = (s["current"] - centre) / sd_low, (s["current"] - centre) / sd_high
-            df = np.clip(points + n0, 3.0, 50.0)
+            df = np.clip(points + own_points + n0, 3.0, 50.0)
             ordered, n = s["ordered"], s["n"]
             anchor = max(self.anchor_points, -(-k // s["stride"]))  # at least one window's worth
             with np.errstate(invalid="ignore"):

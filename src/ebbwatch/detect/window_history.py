@@ -13,6 +13,7 @@ import numpy as np
 from ..series import fast_nanmedian_rows
 
 BASE_WINDOW = 7  # the window every other window's spread is pooled against (a whole week)
+OWN_WEEKS_GAP = 14  # an account's own weeks end this many days before the judged week
 
 
 def _cumulative(matrix, dtype=np.float64) -> np.ndarray:
@@ -76,6 +77,33 @@ class _Sums:
         enough = np.isfinite(level).sum(axis=2) >= min_weeks
         median = fast_nanmedian_rows(level.reshape(n_accounts * n_columns, weeks), overwrite_input=True)
         return np.where(enough, median.reshape(n_accounts, n_columns), np.nan).astype(np.float32)
+
+    def own_weeks(self, last_end: int, reference_days: int, half_event):
+        """Each account's own week-to-week variation, from the whole weeks of its life ending by
+        column ``last_end`` and starting within ``reference_days`` of it: the variance of their
+        log levels beyond count noise (log scale², (A,); below 0 where they vary less than their
+        counts would) and its degrees of freedom (weeks - 1; both 0 with fewer than three weeks of
+        at least four valid days, none starting before the account's first full day)."""
+        ends = last_end - 7 * np.arange(reference_days // 7)
+        ends = ends[ends >= 7]
+        n_accounts = self.X.shape[0]
+        if ends.size < 3:
+            return np.zeros(n_accounts), np.zeros(n_accounts)
+        half = np.asarray(half_event, float)[:, None]
+        days = self.N[:, ends] - self.N[:, ends - 7]
+        observed = self.X[:, ends] - self.X[:, ends - 7]
+        usual = self.F[:, ends] - self.F[:, ends - 7]
+        good = (days >= 4) & (usual > 0) & ((ends - 7)[None, :] >= self.first_seen[:, None])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            level = np.where(good, np.log((observed + half) / usual), np.nan)
+            count_var = np.where(good, 1.0 / (observed / (2.0 * half) + 0.5), np.nan)
+        weeks = good.sum(axis=1)
+        enough = weeks >= 3
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.nansum(level, axis=1) / np.maximum(weeks, 1)
+            var = np.nansum((level - mean[:, None]) ** 2, axis=1) / np.maximum(weeks - 1, 1)
+            excess = var - np.nansum(count_var, axis=1) / np.maximum(weeks, 1)
+        return np.where(enough, excess, 0.0), np.where(enough, weeks - 1.0, 0.0)
 
     @staticmethod
     def lag(span, k: int):
@@ -194,6 +222,9 @@ def window_statistics(values, factors, first_seen, half_event, p):
         out[k] = {**last, "ordered": ordered, "n": n, "centre": centre, "stride": stride,
                   "spread": spread, "half_low": half_low, "half_high": half_high,
                   "points": n * stride / k, "count_var": count_var, "events": events}
+        if k == BASE_WINDOW:
+            out[k]["own_excess"], out[k]["own_points"] = sums.own_weeks(
+                values.shape[1] - BASE_WINDOW - OWN_WEEKS_GAP, p["reference_days"], half_event)
         if k < BASE_WINDOW:
             out[k]["same_weekday"] = _same_weekday_summary(sums, k, cut, half_event, p["min_reference_days"])
     return out, growth
