@@ -10,7 +10,7 @@ from ebbwatch.alerts import benjamini_hochberg
 from ebbwatch.baseline import nbinom_mid_p
 from ebbwatch.detect.calibrate import cauchy_combination, history_tail_p, nested_min_p
 from ebbwatch.detect.changepoint import ChangepointSearch, cusum_split
-from ebbwatch.detect.trend import mann_kendall, theil_sen
+from ebbwatch.detect.trend import _single_regressor_sse, mann_kendall, step_or_ramp, theil_sen
 
 
 def test_negative_binomial_mid_p_against_scipy_nbinom():
@@ -224,3 +224,35 @@ def test_pooled_dispersion_recovers_a_negative_binomial():
     assert pooled_dispersion(poisson) == pytest.approx(0.0, abs=0.01)
     big = stats.poisson.rvs(50.0, size=(40, 200), random_state=rng).astype(float)
     assert pooled_dispersion(big) == 0.0  # no low-volume account in the sample
+
+
+def test_regression_sse_over_each_rows_own_columns_against_numpy_lstsq():
+    """Reference: numpy's least squares (``np.linalg.lstsq``) of y on [1, x] over the columns from
+    each row's first one: rows that start later are fitted on their own columns only."""
+    rng = np.random.default_rng(4)
+    y = rng.normal(size=(3, 40))
+    x = np.vstack([np.arange(40.0), (np.arange(40) >= 25).astype(float)])
+    first = np.array([0, 10, 30])
+    got = _single_regressor_sse(y, x, first)
+    for a in range(3):
+        for k in range(2):
+            cols = slice(first[a], None)
+            design = np.column_stack([np.ones(40 - first[a]), x[k, cols]])
+            coef, *_ = np.linalg.lstsq(design, y[a, cols], rcond=None)  # rank 1 where x is constant there
+            assert np.isclose(got[a, k], ((y[a, cols] - design @ coef) ** 2).sum()), (a, k)
+
+
+def test_a_young_rows_filled_prehistory_does_not_move_its_ramp():
+    """Planted: 60 days flat at 0, then a ramp down by 1 over the last 28 days; before them, 120
+    filled columns at the first day's value (+0.8, as ``fill_gaps`` leaves a young account).  Told
+    where the row starts, the ramp starts within a week of day 32 (untold, the filled columns
+    pull it to the earliest start allowed)."""
+    rng = np.random.default_rng(9)
+    life = np.where(np.arange(60) < 32, 0.0, -(np.arange(60) - 31) / 28.0) + rng.normal(0, 0.1, 60)
+    life[0] = 0.8
+    y = np.concatenate([np.full(120, life[0]), life])[None, :]
+    earliest = np.array([127])
+    _, _, start = step_or_ramp(y, earliest, first=np.array([120]))
+    assert abs(int(start[0]) - (120 + 32)) <= 7, start
+    _, _, untold = step_or_ramp(y, earliest)
+    assert untold[0] == 127

@@ -166,12 +166,19 @@ def test_a_young_accounts_slide_is_alerted_while_it_runs(tmp_path):
     was judged by).  Its own steady weeks now count, and the fleet's young accounts' weeks set
     the neutral prior.  A daily run over the last week: the slide is alerted on some day in at least
     four of six stores (each a different draw of the same fleet; the code of 2026-12-04 alerted it
-    in one), and no steady young account is alerted on any day."""
-    caught, false = 0, []
-    for seed in range(6):
+    in one), and no steady young account is alerted on any day.  In twelve stores the change is
+    placed where the slide began or later, never at the account's first allowed week (the onset
+    search and the step-or-ramp fit once counted the filled days before the account's first as
+    data, and put a young slide's start there in one store of twelve)."""
+    caught, false, onsets = 0, [], []
+    slide_start = START.date() + timedelta(days=SLIDE_DAY)
+    for seed in range(12):
         folder = tmp_path / f"s{seed}"
         folder.mkdir()
         db = _store(folder, np.random.default_rng(seed), sliding="yg-gamma")
+        onsets.append(date.fromisoformat(ebbwatch.explain("yg-gamma", db=db, as_of=AS_OF)["changepoint"]["onset"]))
+        if seed >= 6:
+            continue
         alerted = set()
         for back in range(7):
             alerted |= set(ebbwatch.scan(db=db, as_of=AS_OF - timedelta(days=back)).account)
@@ -179,3 +186,4 @@ def test_a_young_accounts_slide_is_alerted_while_it_runs(tmp_path):
         false += sorted(alerted & {"yg-alpha", "yg-delta", "yg-syd", "yg-old"})
     assert caught >= 4, caught
     assert not false, false
+    assert all(onset >= slide_start - timedelta(days=7) for onset in onsets), (slide_start, onsets)

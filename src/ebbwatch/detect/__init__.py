@@ -170,6 +170,18 @@ def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams =
     return replace(priors, second_look=second_look)
 
 
+def _own_columns_breakpoints(segment, starts, penalty_factor: float) -> list:
+    """:class:`ChangepointSearch` breakpoints of each row of ``segment`` (A, L), searched from the
+    row's own first column ``starts`` (A,) on: the columns before a young account's first day
+    are no data, and filled in they would shape the search's penalty and segments."""
+    found = ChangepointSearch(penalty_factor=penalty_factor).fit(segment).breakpoints_
+    for i in np.flatnonzero(np.asarray(starts) > 0):
+        start = int(starts[i])
+        own = ChangepointSearch(penalty_factor=penalty_factor).fit(segment[i:i + 1, start:]).breakpoints_[0]
+        found[i] = [start + b for b in own]
+    return found
+
+
 def history_segments(panel: Panel, params: ScanParams = ScanParams()) -> list[list[tuple[int, int, float]]]:
     """Each account's whole history cut where it changed: per account, ``(first day, last day,
     level)`` tuples (day numbers; level in activity-index units a day, weekday-adjusted), from
@@ -292,9 +304,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     level_after = np.full(n_accounts, np.nan)
     reference_end = np.full(n_accounts, hist_end)
     if candidates.size:
-        search = ChangepointSearch(penalty_factor=params.penalty_factor).fit(segment[candidates])
-        pairs = [(row, b) for row, bkps in zip(candidates, search.breakpoints_) for b in bkps[:-1]
-                 if b >= earliest[row]]
+        found = _own_columns_breakpoints(segment[candidates], first_seen[candidates] - offset, params.penalty_factor)
+        pairs = [(row, b) for row, bkps in zip(candidates, found) for b in bkps[:-1] if b >= earliest[row]]
         if pairs:
             pair_rows, pair_bkps = np.array(pairs, dtype=np.int64).T
             rows_cp, onset, before, after = sustained_changes(values[:, offset:], factors[:, offset:], pair_rows, pair_bkps)
@@ -315,7 +326,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     changing |= (p_trend < params.trend_screen_p) | ((window_down >= 14) & (p_level_low < 0.01))
     maybe = np.flatnonzero(changing & ~stop & enough & ~dormant & (p_down <= params.onset_screen_p))
     if maybe.size:
-        sse_step, sse_ramp, ramp_start = step_or_ramp(filled[maybe], earliest[maybe])
+        sse_step, sse_ramp, ramp_start = step_or_ramp(filled[maybe], earliest[maybe],
+                                                      first=np.maximum(first_seen[maybe] - offset, 0))
         ramp = (sse_ramp < params.ramp_advantage * sse_step) & (ramp_start >= 0)
         ramp_rows = maybe[ramp]
         slide[ramp_rows] = True

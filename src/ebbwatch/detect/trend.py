@@ -63,8 +63,15 @@ def trend_test(weekly):
     return stats.norm.cdf(z), stats.norm.sf(z), relative
 
 
-def _single_regressor_sse(y, x):
-    """Residual sum of squares of y ~ a + b·x for each row of y (A, L) and each row of x (K, L)."""
+def _single_regressor_sse(y, x, first=None):
+    """Residual sum of squares of y ~ a + b·x for each row of y (A, L) and each row of x (K, L).
+    ``first`` (A,): the first column of each row that counts (None: all); only rows that start
+    later take the weighted route, so a whole row's sums are the plain ones."""
+    if first is not None and (np.asarray(first) > 0).any():
+        out = _single_regressor_sse(y, x)
+        late = np.flatnonzero(np.asarray(first) > 0)
+        out[late] = _weighted_sse(y[late], x, np.arange(y.shape[1])[None, :] >= np.asarray(first)[late, None])
+        return out
     yc = y - y.mean(axis=1, keepdims=True)
     xc = x - x.mean(axis=1, keepdims=True)
     sxx = (xc**2).sum(axis=1)  # (K,)
@@ -75,14 +82,30 @@ def _single_regressor_sse(y, x):
         return syy - np.where(sxx > 0, sxy**2 / np.where(sxx > 0, sxx, 1.0), 0.0)
 
 
-def step_or_ramp(y, earliest, *, min_ramp: int = 21, grid: int = 7):
+def _weighted_sse(y, x, counts):
+    """:func:`_single_regressor_sse` over the columns where ``counts`` (A, L) bool is true."""
+    w = counts.astype(float)
+    yw = y * w
+    n = w.sum(axis=1, keepdims=True)
+    sy, syy = yw.sum(axis=1, keepdims=True), (yw * y).sum(axis=1, keepdims=True)
+    sx, sxx = np.einsum("al,kl->ak", w, x), np.einsum("al,kl->ak", w, x * x)
+    sxy = np.einsum("al,kl->ak", yw, x)
+    with np.errstate(all="ignore"):
+        var_x = sxx - sx**2 / n
+        cov = sxy - sx * sy / n
+        return (syy - sy**2 / n) - np.where(var_x > 1e-12, cov**2 / np.where(var_x > 1e-12, var_x, 1.0), 0.0)
+
+
+def step_or_ramp(y, earliest, *, min_ramp: int = 21, grid: int = 7, first=None):
     """Is the recent change in each row of ``y`` (A, L; no NaN) a step or a ramp?
 
     Fits two one-change families by least squares: a step at ``k`` and a ramp that runs from
     ``k1`` to ``k2`` (at least ``min_ramp`` days) and is flat on either side, with ``k``, ``k1``,
     ``k2`` on a ``grid``-day lattice from ``earliest`` (a column, or one per row: a young
-    account's change cannot start before its history does).  Returns ``(sse_step, sse_ramp,
-    ramp_start)``, each (A,); a row with no room for a ramp gets ``inf`` and ``-1``.
+    account's change cannot start before its history does).  ``first`` (A,): the column each
+    row's history starts at; the columns before it (filled, not data) do not count in the fits.
+    Returns ``(sse_step, sse_ramp, ramp_start)``, each (A,); a row with no room for a ramp gets
+    ``inf`` and ``-1``.
     """
     y = np.asarray(y, float)
     n = y.shape[1]
@@ -91,7 +114,7 @@ def step_or_ramp(y, earliest, *, min_ramp: int = 21, grid: int = 7):
     lowest = int(earliest.min()) if earliest.size else 0
     steps = np.arange(max(lowest, 1), n - 1, max(1, grid // 2))
     step_x = (t[None, :] >= steps[:, None]).astype(float)
-    sse_step = np.where(steps[None, :] >= earliest[:, None], _single_regressor_sse(y, step_x), np.inf).min(axis=1)
+    sse_step = np.where(steps[None, :] >= earliest[:, None], _single_regressor_sse(y, step_x, first), np.inf).min(axis=1)
     starts, ends = [], []
     for k1 in range(max(lowest, 0), n - min_ramp + 1, grid):
         for k2 in range(k1 + min_ramp, n + grid, grid):
@@ -102,7 +125,7 @@ def step_or_ramp(y, earliest, *, min_ramp: int = 21, grid: int = 7):
     k1 = np.array(starts)[:, None]
     k2 = np.array(ends)[:, None]
     ramp_x = np.clip(t[None, :] - k1, 0, k2 - k1).astype(float)
-    sse = np.where(k1[:, 0][None, :] >= earliest[:, None], _single_regressor_sse(y, ramp_x), np.inf)
+    sse = np.where(k1[:, 0][None, :] >= earliest[:, None], _single_regressor_sse(y, ramp_x, first), np.inf)
     best = sse.argmin(axis=1)
     found = np.isfinite(sse[np.arange(y.shape[0]), best])
     return sse_step, sse[np.arange(y.shape[0]), best], np.where(found, np.array(starts)[best], -1)
