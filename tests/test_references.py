@@ -166,6 +166,17 @@ def test_cusum_split_finds_a_step():
     assert abs(k[0] - 80) <= 2 and stat[0] < -8
 
 
+def test_cusum_split_from_a_rows_own_start_is_the_split_of_its_own_columns():
+    """A young row (data from column 30, the columns before it filled with its first value)
+    gets the statistic and split of its own columns searched alone."""
+    rng = np.random.default_rng(2)
+    own = np.concatenate([rng.normal(0, 1, 50), rng.normal(-2, 1, 20)])
+    row = np.concatenate([np.full(30, own[0]), own])[None, :]
+    k, stat = cusum_split(row, 40, 98, np.array([1.0]), starts=np.array([30]))
+    k_own, stat_own = cusum_split(own[None, :], 10, 68, np.array([1.0]))
+    assert k[0] == k_own[0] + 30 and np.isclose(stat[0], stat_own[0])
+
+
 def test_mann_kendall_reference_values():
     """Reference: for 20 strictly increasing values S = 190, Var(S) = 20·19·45/18 = 950 and
     z = (S − 1)/√Var = 6.132 (Mann 1945 / Kendall 1975 formulas; ../shared/METHODS.md)."""

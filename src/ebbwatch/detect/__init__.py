@@ -291,11 +291,12 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     segment = u[:, -span:]
     filled = fill_gaps(segment)
     sigma = np.maximum(robust_sigma(u[:, max(0, hist_end - 182):hist_end]), 0.05)
-    split, statistic = cusum_split(filled, span - params.horizon_days, span - 2, sigma)
+    offset = n_days - span
+    split, statistic = cusum_split(filled, span - params.horizon_days, span - 2, sigma,
+                                   starts=np.maximum(first_seen - offset, 0))
     # Onsets and kinds matter only where an alert is possible: no account whose p-value is above
     # ``onset_screen_p`` (at least the alert threshold, since q >= p) needs the exact search.
     # A change starts within the horizon and after the account's first full week.
-    offset = n_days - span
     earliest = np.maximum(span - params.horizon_days, first_seen + MIN_SEGMENT_DAYS - offset)
     candidates = np.flatnonzero(enough & ~dormant & (np.abs(statistic) > params.cusum_threshold)
                                 & (np.minimum(p_down, p_up) <= params.onset_screen_p))

@@ -151,22 +151,33 @@ def pelt_l2_rows(signal, penalties, min_size: int) -> list[list[int]]:
     return _SEARCH_ROWS(signal, np.asarray(penalties, np.float64), int(min_size))
 
 
-def cusum_split(u, first: int, last: int, sigma):
+def cusum_split(u, first: int, last: int, sigma, starts=None):
     """The best single split of each row of ``u`` (A, L) with a split column in [first, last].
 
     For each split ``k``, the standardised difference of the means after and before,
     ``(mean[k:] − mean[:k]) / (σ · sqrt(1/k + 1/(L − k)))``.  Returns ``(k, statistic)`` with
-    the statistic signed (negative for a drop).  ``u`` must have no NaN.
+    the statistic signed (negative for a drop).  ``u`` must have no NaN.  ``starts`` (A,): the
+    column each row's data begins at (None: 0); the "before" side counts from there, and a split
+    at or before it scores 0.
     """
     u = np.asarray(u, float)
     n = u.shape[1]
     csum = np.cumsum(u, axis=1)
     total = csum[:, -1:]
     ks = np.arange(max(first, 1), min(last, n - 1) + 1)
-    before = csum[:, ks - 1] / ks
+    if starts is None:
+        before = csum[:, ks - 1] / ks
+        width = ks[None, :]
+    else:
+        starts = np.asarray(starts, np.int64)[:, None]
+        ahead = np.where(starts > 0, np.take_along_axis(csum, np.maximum(starts - 1, 0), axis=1), 0.0)
+        width = np.maximum(ks[None, :] - starts, 1)
+        before = (csum[:, ks - 1] - ahead) / width
     after = (total - csum[:, ks - 1]) / (n - ks)
-    scale = np.maximum(np.asarray(sigma, float), 1e-9)[:, None] * np.sqrt(1.0 / ks + 1.0 / (n - ks))
+    scale = np.maximum(np.asarray(sigma, float), 1e-9)[:, None] * np.sqrt(1.0 / width + 1.0 / (n - ks))
     stat = (after - before) / scale
+    if starts is not None:
+        stat = np.where(ks[None, :] > starts, stat, 0.0)
     best = np.abs(stat).argmax(axis=1)
     return ks[best], stat[np.arange(u.shape[0]), best]
 
