@@ -11,8 +11,7 @@ WEEK = np.array([1.15, 1.1, 1.1, 1.05, 1.0, 0.3, 0.3])
 
 
 def _weekday_factors(n_days):
-    factors = np.tile(WEEK / WEEK.mean(), n_days // 7 + 1)[:n_days]
-    return factors
+    return np.tile(WEEK / WEEK.mean(), n_days // 7 + 1)[:n_days]
 
 
 def test_own_weeks_is_the_sample_variance_of_weekly_levels_less_their_count_noise():

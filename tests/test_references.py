@@ -263,7 +263,7 @@ def test_a_young_rows_filled_prehistory_does_not_move_its_ramp():
     life[0] = 0.8
     y = np.concatenate([np.full(120, life[0]), life])[None, :]
     earliest = np.array([127])
-    _, _, start = step_or_ramp(y, earliest, first=np.array([120]))
+    _, _, start = step_or_ramp(y, earliest, starts=np.array([120]))
     assert abs(int(start[0]) - (120 + 32)) <= 7, start
     _, _, untold = step_or_ramp(y, earliest)
     assert untold[0] == 127

@@ -297,8 +297,8 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     filled = fill_gaps(segment)
     sigma = np.maximum(robust_sigma(u[:, max(0, hist_end - 182):hist_end]), 0.05)
     offset = n_days - span
-    split, statistic = cusum_split(filled, span - params.horizon_days, span - 2, sigma,
-                                   starts=np.maximum(first_seen - offset, 0))
+    own_start = np.maximum(first_seen - offset, 0)  # each account's first column in the segment
+    split, statistic = cusum_split(filled, span - params.horizon_days, span - 2, sigma, starts=own_start)
     # Onsets and kinds matter only where an alert is possible: no account whose p-value is above
     # ``onset_screen_p`` (at least the alert threshold, since q >= p) needs the exact search.
     # A change starts within the horizon and after the account's first full week.
@@ -310,7 +310,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     level_after = np.full(n_accounts, np.nan)
     reference_end = np.full(n_accounts, hist_end)
     if candidates.size:
-        found = _own_columns_breakpoints(segment[candidates], first_seen[candidates] - offset, params.penalty_factor)
+        found = _own_columns_breakpoints(segment[candidates], own_start[candidates], params.penalty_factor)
         pairs = [(row, b) for row, bkps in zip(candidates, found) for b in bkps[:-1] if b >= earliest[row]]
         if pairs:
             pair_rows, pair_bkps = np.array(pairs, dtype=np.int64).T
@@ -332,8 +332,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     changing |= (p_trend < params.trend_screen_p) | ((window_down >= 14) & (p_level_low < 0.01))
     maybe = np.flatnonzero(changing & ~stop & enough & ~dormant & (p_down <= params.onset_screen_p))
     if maybe.size:
-        sse_step, sse_ramp, ramp_start = step_or_ramp(filled[maybe], earliest[maybe],
-                                                      first=np.maximum(first_seen[maybe] - offset, 0))
+        sse_step, sse_ramp, ramp_start = step_or_ramp(filled[maybe], earliest[maybe], starts=own_start[maybe])
         ramp = (sse_ramp < params.ramp_advantage * sse_step) & (ramp_start >= 0)
         ramp_rows = maybe[ramp]
         slide[ramp_rows] = True

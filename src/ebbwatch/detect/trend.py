@@ -63,14 +63,16 @@ def trend_test(weekly):
     return stats.norm.cdf(z), stats.norm.sf(z), relative
 
 
-def _single_regressor_sse(y, x, first=None):
+def _single_regressor_sse(y, x, starts=None):
     """Residual sum of squares of y ~ a + b·x for each row of y (A, L) and each row of x (K, L).
-    ``first`` (A,): the first column of each row that counts (None: all); only rows that start
+    ``starts`` (A,): the first column of each row that counts (None: all); only rows that start
     later take the weighted route, so a whole row's sums are the plain ones."""
-    if first is not None and (np.asarray(first) > 0).any():
-        out = _single_regressor_sse(y, x)
-        late = np.flatnonzero(np.asarray(first) > 0)
-        out[late] = _weighted_sse(y[late], x, np.arange(y.shape[1])[None, :] >= np.asarray(first)[late, None])
+    late = np.flatnonzero(np.asarray(starts) > 0) if starts is not None else np.zeros(0, np.int64)
+    if late.size:
+        whole = np.setdiff1d(np.arange(len(y)), late)
+        out = np.empty((len(y), len(x)))
+        out[whole] = _single_regressor_sse(y[whole], x)
+        out[late] = _weighted_sse(y[late], x, np.arange(y.shape[1])[None, :] >= np.asarray(starts)[late, None])
         return out
     yc = y - y.mean(axis=1, keepdims=True)
     xc = x - x.mean(axis=1, keepdims=True)
@@ -96,13 +98,13 @@ def _weighted_sse(y, x, counts):
         return (syy - sy**2 / n) - np.where(var_x > 1e-12, cov**2 / np.where(var_x > 1e-12, var_x, 1.0), 0.0)
 
 
-def step_or_ramp(y, earliest, *, min_ramp: int = 21, grid: int = 7, first=None):
+def step_or_ramp(y, earliest, *, min_ramp: int = 21, grid: int = 7, starts=None):
     """Is the recent change in each row of ``y`` (A, L; no NaN) a step or a ramp?
 
     Fits two one-change families by least squares: a step at ``k`` and a ramp that runs from
     ``k1`` to ``k2`` (at least ``min_ramp`` days) and is flat on either side, with ``k``, ``k1``,
     ``k2`` on a ``grid``-day lattice from ``earliest`` (a column, or one per row: a young
-    account's change cannot start before its history does).  ``first`` (A,): the column each
+    account's change cannot start before its history does).  ``starts`` (A,): the column each
     row's history starts at; the columns before it (filled, not data) do not count in the fits.
     Returns ``(sse_step, sse_ramp, ramp_start)``, each (A,); a row with no room for a ramp gets
     ``inf`` and ``-1``.
@@ -114,18 +116,18 @@ def step_or_ramp(y, earliest, *, min_ramp: int = 21, grid: int = 7, first=None):
     lowest = int(earliest.min()) if earliest.size else 0
     steps = np.arange(max(lowest, 1), n - 1, max(1, grid // 2))
     step_x = (t[None, :] >= steps[:, None]).astype(float)
-    sse_step = np.where(steps[None, :] >= earliest[:, None], _single_regressor_sse(y, step_x, first), np.inf).min(axis=1)
-    starts, ends = [], []
+    sse_step = np.where(steps[None, :] >= earliest[:, None], _single_regressor_sse(y, step_x, starts), np.inf).min(axis=1)
+    ramp_starts, ramp_ends = [], []
     for k1 in range(max(lowest, 0), n - min_ramp + 1, grid):
         for k2 in range(k1 + min_ramp, n + grid, grid):
-            starts.append(k1)
-            ends.append(min(k2, n))
-    if not starts:
+            ramp_starts.append(k1)
+            ramp_ends.append(min(k2, n))
+    if not ramp_starts:
         return sse_step, np.full(y.shape[0], np.inf), np.full(y.shape[0], -1)
-    k1 = np.array(starts)[:, None]
-    k2 = np.array(ends)[:, None]
+    k1 = np.array(ramp_starts)[:, None]
+    k2 = np.array(ramp_ends)[:, None]
     ramp_x = np.clip(t[None, :] - k1, 0, k2 - k1).astype(float)
-    sse = np.where(k1[:, 0][None, :] >= earliest[:, None], _single_regressor_sse(y, ramp_x, first), np.inf)
+    sse = np.where(k1[:, 0][None, :] >= earliest[:, None], _single_regressor_sse(y, ramp_x, starts), np.inf)
     best = sse.argmin(axis=1)
     found = np.isfinite(sse[np.arange(y.shape[0]), best])
-    return sse_step, sse[np.arange(y.shape[0]), best], np.where(found, np.array(starts)[best], -1)
+    return sse_step, sse[np.arange(y.shape[0]), best], np.where(found, np.array(ramp_starts)[best], -1)

@@ -94,12 +94,11 @@ class _Sums:
         observed = self.X[:, ends] - self.X[:, ends - 7]
         usual = self.F[:, ends] - self.F[:, ends - 7]
         good = (days >= 4) & (usual > 0) & ((ends - 7)[None, :] >= self.first_seen[:, None])
-        with np.errstate(invalid="ignore", divide="ignore"):
-            level = np.where(good, np.log((observed + half) / usual), np.nan)
-            count_var = np.where(good, 1.0 / (observed / (2.0 * half) + 0.5), np.nan)
         weeks = good.sum(axis=1)
         enough = weeks >= 3
         with np.errstate(invalid="ignore", divide="ignore"):
+            level = np.where(good, np.log((observed + half) / usual), np.nan)
+            count_var = np.where(good, 1.0 / (observed / (2.0 * half) + 0.5), np.nan)
             mean = np.nansum(level, axis=1) / np.maximum(weeks, 1)
             var = np.nansum((level - mean[:, None]) ** 2, axis=1) / np.maximum(weeks - 1, 1)
             excess = var - np.nansum(count_var, axis=1) / np.maximum(weeks, 1)
