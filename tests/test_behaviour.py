@@ -229,7 +229,7 @@ def test_a_small_fleet_divides_out_only_the_days_nearly_all_its_accounts_moved_o
     votes' centre: a dip to half shared by all of 12 accounts is divided out, the same dip in a
     third of them is not (their own changes), nor is any ordinary day's noise; 6 accounts read no
     fleet-wide day at all, and 40 read the shared dip in full."""
-    from ebbwatch.series import fleet_voting_accounts
+    from ebbwatch.series import fleet_factor_and_voters, fleet_voting_accounts
 
     rng = np.random.default_rng(6)
 
@@ -242,6 +242,9 @@ def test_a_small_fleet_divides_out_only_the_days_nearly_all_its_accounts_moved_o
         counts = dipped(n, share)
         factor, _ = fleet_factor(counts)
         assert fleet_voting_accounts(counts) == n
+        # The scan's loader reads the voters off the factor's own first references.
+        together = fleet_factor_and_voters(counts)
+        assert together[2] == n and np.array_equal(together[0], factor)
         assert (factor[100:105].max() < 0.8) == read, (n, share, factor[100:105])
         if n < 20:
             # Days with four weeks of reference and no dip: noise, read as fleet-wide on at most

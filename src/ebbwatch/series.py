@@ -284,19 +284,29 @@ def shorth_location(votes: np.ndarray, coverage: float = 0.6) -> np.ndarray:
 
 def fleet_factor(counts: np.ndarray, *, gap_ratio: float = FLEET_GAP_RATIO,
                  iterations: int = 3) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`fleet_factor_and_voters` without the voters: ``(factor (D,), masked (D,) bool)``."""
+    factor, masked, _ = fleet_factor_and_voters(counts, gap_ratio=gap_ratio, iterations=iterations)
+    return factor, masked
+
+
+def fleet_factor_and_voters(counts: np.ndarray, *, gap_ratio: float = FLEET_GAP_RATIO,
+                            iterations: int = 3) -> tuple[np.ndarray, np.ndarray, int]:
     """The fleet-wide daily factor and the data-gap mask from a sample of accounts' counts (A, D).
 
     Each account votes with its day's count over its own median of the same weekday in the
     previous weeks; the factor is the shorth of the votes, so even a large minority of accounts
     changing moves it little, and an ordinary day's value is scaled to 1.  The references are then recomputed on counts with the factor divided out, a few
     times without the days the fleet moved on, so that the weeks after a holiday are not read as
-    a lift over holiday-depressed references.  Returns ``(factor (D,), masked (D,) bool)``; a day under ``gap_ratio`` is masked.
+    a lift over holiday-depressed references.  Returns ``(factor (D,), masked (D,) bool, voters)``;
+    a day under ``gap_ratio`` is masked; ``voters`` as :func:`fleet_voting_accounts` counts them
+    (from the first references, which are those of the counts as they are).
     """
     counts = np.where(np.isnan(counts), 0.0, counts)
     n_days = counts.shape[1]
     factor = np.ones(n_days)
     masked = np.zeros(n_days, dtype=bool)
-    for _ in range(iterations):
+    voting = 0
+    for iteration in range(iterations):
         # Days the fleet moved on are left out of the later days' references rather than divided
         # by their factor: dividing fed every estimate's noise into the next weeks' references,
         # and over a month the factor crept up to 1.3 on an ordinary fleet.
@@ -304,6 +314,8 @@ def fleet_factor(counts: np.ndarray, *, gap_ratio: float = FLEET_GAP_RATIO,
         adjusted[:, masked | (np.abs(np.log(factor)) > FLEET_EXCLUDE)] = np.nan
         reference = _same_weekday_reference(adjusted)
         voters = reference >= FLEET_MIN_REFERENCE
+        if iteration == 0:
+            voting = _typical_voters(voters)
         with np.errstate(all="ignore"):
             ratio = np.where(voters, counts / reference, np.nan)
         n_voters = voters.sum(axis=0)
@@ -325,7 +337,7 @@ def fleet_factor(counts: np.ndarray, *, gap_ratio: float = FLEET_GAP_RATIO,
         noise = FLEET_SMALL_Z * _centre_standard_error(ratio[:, few])
         log_factor[few] = np.where(np.abs(log_factor[few]) > noise, log_factor[few], 0.0)
     shrunk = np.sign(log_factor) * np.maximum(np.abs(log_factor) - FLEET_DEADBAND, 0.0)
-    return np.where(masked, 1.0, np.exp(shrunk)), masked
+    return np.where(masked, 1.0, np.exp(shrunk)), masked, voting
 
 
 def _centre_standard_error(votes: np.ndarray) -> np.ndarray:
@@ -353,8 +365,14 @@ def fleet_voting_accounts(counts: np.ndarray) -> int:
     counts = np.where(np.isnan(counts), 0.0, np.asarray(counts, float))
     if counts.size == 0:
         return 0
-    voters = (_same_weekday_reference(counts) >= FLEET_MIN_REFERENCE).sum(axis=0)
-    return int(np.median(voters[FLEET_LOOKBACK_WEEKS * 7:])) if counts.shape[1] > FLEET_LOOKBACK_WEEKS * 7 else 0
+    return _typical_voters(_same_weekday_reference(counts) >= FLEET_MIN_REFERENCE)
+
+
+def _typical_voters(voters: np.ndarray) -> int:
+    """The median over days (after the first references' weeks) of the accounts voting, from
+    ``voters`` (A, D) bool."""
+    per_day = voters.sum(axis=0)
+    return int(np.median(per_day[FLEET_LOOKBACK_WEEKS * 7:])) if voters.shape[1] > FLEET_LOOKBACK_WEEKS * 7 else 0
 
 
 def adjust_for_fleet(panel: Panel) -> np.ndarray:

@@ -54,10 +54,11 @@ def write_fleet(path: str, n_accounts: int, n_days: int, chunk: int = 10_000, se
 
 
 SCAN = """
-import time, ebbwatch
+import inspect, time, ebbwatch
 t = time.perf_counter()
-alerts = ebbwatch.scan(db={db!r}, as_of={as_of!r}, max_alerts=100000, chunk_size={chunk})
-RESULT = {{"seconds": time.perf_counter() - t, "alerts": len(alerts), "judged": alerts.attrs["summary"]["judged"]}}
+alerts = ebbwatch.scan(db={db!r}, as_of={as_of!r}, max_alerts=100000{chunk})
+RESULT = {{"seconds": time.perf_counter() - t, "alerts": len(alerts), "judged": alerts.attrs["summary"]["judged"],
+          "chunk": inspect.signature(ebbwatch.scan).parameters["chunk_size"].default if {given} is None else {given}}}
 """
 
 LOOP = """
@@ -85,7 +86,7 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--accounts", type=int, default=100_000)
     parser.add_argument("--days", type=int, default=730)
-    parser.add_argument("--chunk", type=int, default=10_000)
+    parser.add_argument("--chunk", type=int, help="accounts scored at once (default: the scan's own default)")
     parser.add_argument("--loop-sample", type=int, default=3000)
     parser.add_argument("--repeat", type=int, default=3, help="scan and loop runs, alternated (medians compared)")
     parser.add_argument("--dir", help="keep the generated files here (default: a temp directory)")
@@ -110,14 +111,15 @@ RESULT = {{"seconds": time.perf_counter() - t, "rows": s["daily_rows_loaded"]}}
     # run alternately, each in a fresh process, and the medians are compared.
     scans, loops = [], []
     for _ in range(args.repeat):
-        scans.append(run_measured(SCAN.format(db=db, as_of=as_of, chunk=args.chunk)))
+        chunk = "" if args.chunk is None else f", chunk_size={args.chunk}"
+        scans.append(run_measured(SCAN.format(db=db, as_of=as_of, chunk=chunk, given=args.chunk)))
         loops.append(run_measured(LOOP.format(db=db, n=args.loop_sample)))
     scan_seconds = float(np.median([s["seconds"] for s in scans]))
     loop_ms = float(np.median([loop["per_account_ms"] for loop in loops]))
     peak_mb = max(s["peak_rss_mb"] for s in scans)
     per_account_scan_ms = 1000 * scan_seconds / args.accounts
     print(f"{'route (median of ' + str(args.repeat) + ' runs; all runs in brackets)':<58}{'seconds':>9}{'ms/account':>12}{'peak MB':>9}")
-    print(f"{'ebbwatch scan, ' + format(args.accounts, ',') + ' accounts (chunks of ' + format(args.chunk, ',') + ')':<58}"
+    print(f"{'ebbwatch scan, ' + format(args.accounts, ',') + ' accounts (chunks of ' + format(scans[0]['chunk'], ',') + ')':<58}"
           f"{scan_seconds:>9.1f}{per_account_scan_ms:>12.3f}{peak_mb:>9.0f}")
     print(f"{'':<4}[{', '.join(format(s['seconds'], '.1f') for s in scans)}] s")
     print(f"{'per-account loop (KernelCPD + scipy lognorm), ' + str(loops[0]['accounts']) + ' accounts':<58}"

@@ -9,6 +9,7 @@ history), ``replaying`` (the backtest), ``reporting`` (the HTML report's data), 
 a module never replaces a function of the same name on this package.
 """
 
+from ..engine import DEFAULT_CHUNK_SIZE
 from .common import _config, _fleet_params, _scan_params, parse_day
 from .demo_run import run_demo
 from .explaining import alert_history, explain, lift_snooze, snooze, snoozes
@@ -18,6 +19,6 @@ from .replaying import backtest
 from .reporting import report_data, write_report
 from .scanning import export_index, scan
 
-__all__ = ["PanelLoader", "alert_history", "backtest", "daily_frame", "explain", "export_daily", "export_index",
+__all__ = ["DEFAULT_CHUNK_SIZE", "PanelLoader", "alert_history", "backtest", "daily_frame", "explain", "export_daily", "export_index",
            "fleet_sample", "ingest_files", "lift_snooze", "parse_day", "report_data", "run_demo", "scan", "snooze",
            "snoozes", "status", "write_report", "_config", "_fleet_params", "_scan_params"]

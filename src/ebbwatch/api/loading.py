@@ -126,13 +126,12 @@ class PanelLoader:
         sample of ``accounts``, read through ``st`` (default the loader's store)."""
         from ..baseline.counts import pooled_dispersion
         from ..detect import fleet_window_priors
-        from ..series import fleet_factor, fleet_voting_accounts, missing_before_first_full_day
+        from ..series import fleet_factor_and_voters, missing_before_first_full_day
 
         counts = self.sample_counts(accounts, st)
         sample, _ = fleet_sample(accounts)
         first_full = self.first_full_of(sample, st)
-        self.fleet_factor, self.masked = fleet_factor(counts)
-        self.fleet_voters = fleet_voting_accounts(counts)
+        self.fleet_factor, self.masked, self.fleet_voters = fleet_factor_and_voters(counts)
         # The same fleet-wide count dispersion and window priors for every chunk (see
         # backtest.replay_fleet_factors).
         started = missing_before_first_full_day(counts, first_full - self.start_day)

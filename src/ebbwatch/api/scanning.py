@@ -11,6 +11,7 @@ import numpy as np
 
 from .. import store as store_mod
 from ..alerts import day_to_date
+from ..engine import DEFAULT_CHUNK_SIZE
 from ..errors import InputError, UsageError
 from .common import (
     _clean_value, _config, _fleet_params, _score_chunk, check_as_of, default_as_of, fleet_factor_summary,
@@ -50,7 +51,7 @@ def scan(
     config=None,
     kinds=None,
     max_alerts: int | None = None,
-    chunk_size: int = 10_000,
+    chunk_size: int = DEFAULT_CHUNK_SIZE,
     progress=None,
     today: date | None = None,
     record: bool = False,

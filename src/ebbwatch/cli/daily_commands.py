@@ -24,8 +24,8 @@ from .base import (
               help="Only these kinds (repeatable).")
 @click.option("--max-alerts", type=click.IntRange(min=0), help="At most this many alerts, most severe first.")
 @click.option("--fail-on-alert", is_flag=True, help="Exit with 1 when there is at least one alert.")
-@click.option("--chunk-size", type=click.IntRange(min=1), default=10_000, show_default=True,
-              help="Accounts scored at once (bounds memory).")
+@click.option("--chunk-size", type=click.IntRange(min=1), default=api.DEFAULT_CHUNK_SIZE, show_default=True,
+              help="Accounts scored at once (bounds memory; results do not depend on it).")
 @click.option("--all", "show_all", is_flag=True, help="Print every open alert, not only new and escalated ones.")
 @click.option("--wide", is_flag=True,
               help="The table and Markdown add the model's details: level and usual level, window, "

@@ -3,6 +3,6 @@
 ``engine.dask`` is imported only when the Dask engine is asked for.
 """
 
-from .local import chunked, default_threads, run_local
+from .local import DEFAULT_CHUNK_SIZE, chunked, default_threads, run_local
 
-__all__ = ["chunked", "default_threads", "run_local"]
+__all__ = ["DEFAULT_CHUNK_SIZE", "chunked", "default_threads", "run_local"]
