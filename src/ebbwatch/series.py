@@ -169,6 +169,13 @@ def dense_matrix(account_index, day, value, n_accounts: int, start_day: int, n_d
     return flat.reshape(n_accounts, n_days)
 
 
+def cells_matrix(cell, value, n_accounts: int, n_days: int) -> np.ndarray:
+    """Sum ``value`` rows into a zero-filled (A, D) float64 matrix at their flat places ``cell``
+    (``account * n_days + column``, all inside it); repeated places add up."""
+    return np.bincount(np.asarray(cell, np.int64), weights=np.asarray(value, float),
+                       minlength=n_accounts * n_days).reshape(n_accounts, n_days)
+
+
 def build_panel(
     account_index, day, value, events, users, *, accounts, start_day: int, end_day: int,
     normalise: str = "none", seats=None, fleet_factor=None, masked=None, first_full_day=None,
@@ -185,14 +192,26 @@ def build_panel(
     n_days = end_day - start_day + 1
     n_accounts = len(accounts)
     counts = dense_matrix(account_index, day, value, n_accounts, start_day, n_days)
+    active = dense_matrix(account_index, day, users, n_accounts, start_day, n_days) \
+        if normalise == "active_users" and users is not None else None
+    return panel_from_counts(counts, accounts=accounts, start_day=start_day, normalise=normalise, seats=seats,
+                             active_users=active, fleet_factor=fleet_factor, masked=masked,
+                             first_full_day=first_full_day)
+
+
+def panel_from_counts(counts, *, accounts, start_day: int, normalise: str = "none", seats=None, active_users=None,
+                      fleet_factor=None, masked=None, first_full_day=None) -> Panel:
+    """:func:`build_panel` from the summed counts (A, D) float64 (taken over, not copied) and, for
+    ``active_users``, each account-day's users (A, D)."""
+    n_accounts, n_days = counts.shape
     if normalise == "seats":
         s = np.asarray(seats, dtype=float) if seats is not None else np.ones(n_accounts)
         s = np.where(np.isfinite(s) & (s > 0), s, 1.0)
         values = counts / s[:, None]
     elif normalise == "active_users":
-        if users is None:
+        if active_users is None:
             raise ValueError("normalise='active_users' needs each account-day's users")
-        active = dense_matrix(account_index, day, users, n_accounts, start_day, n_days)
+        active = active_users
         with np.errstate(invalid="ignore", divide="ignore"):
             values = np.where(active > 0, counts / np.maximum(active, 1), 0.0)
     elif normalise == "none":

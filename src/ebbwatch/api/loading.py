@@ -77,24 +77,21 @@ class PanelLoader:
         first = self.first_full(st)
         return np.array([first.get(a, NEVER_ACTIVE) for a in accounts], dtype=np.int64)
 
-    def _rows(self, accounts, *, users: bool = False, ranges=None, st=None):
-        """``(account_index, day, value, events, users)``; ``events``/``users`` are None and
-        account-days may repeat (one row per event name) unless ``users`` is asked for.
-        ``ranges``: id ranges holding the accounts (``Store.index_rows``); ``st``: the store
-        handle to read through (default the loader's own)."""
+    def _counts(self, accounts, ranges=None, st=None) -> np.ndarray:
+        """Raw weighted totals (A, D) of ``accounts`` over the loader's days.  ``ranges``: id
+        ranges holding the accounts (``Store.index_cells``); ``st``: the store handle to read
+        through (default the loader's own)."""
+        from ..series import cells_matrix
+
         st = st or self.st
-        start, end = day_to_date(self.start_day), day_to_date(self.end_day)
-        if users:
-            return st.weighted_daily(self.weights, list(accounts), start, end)
-        return (*st.index_rows(self.weights, list(accounts), start, end, ranges), None, None)
+        cell, value = st.index_cells(self.weights, list(accounts), day_to_date(self.start_day),
+                                     day_to_date(self.end_day), ranges)
+        return cells_matrix(cell, value, len(accounts), self.end_day - self.start_day + 1)
 
     def sample_counts(self, accounts, st=None) -> np.ndarray:
         """Raw weighted totals (S, D) of the fleet sample (:func:`fleet_sample`) of ``accounts``."""
-        from ..series import dense_matrix
-
         sample, ranges = fleet_sample(accounts)
-        idx, day, value, _, _ = self._rows(sample, ranges=ranges, st=st)
-        return dense_matrix(idx, day, value, len(sample), self.start_day, self.end_day - self.start_day + 1)
+        return self._counts(sample, ranges=ranges, st=st)
 
     def fit_fleet_in_background(self, accounts):
         """Start :meth:`fit_fleet` in a thread of its own, on a cursor of the store (closed when
@@ -145,14 +142,17 @@ class PanelLoader:
     def read(self, accounts):
         """The block's :class:`series.Panel` without the fleet-wide factor and gap mask, which
         :meth:`with_fleet` adds (so a block can be read while the fleet fit runs)."""
-        from ..series import build_panel
+        from ..series import build_panel, panel_from_counts
 
-        idx, day, value, events, users = self._rows(accounts, users=self.cfg.index.normalise == "active_users")
         seats = [self.seats.get(a) for a in accounts]
-        return build_panel(idx, day, value, events, users, accounts=accounts, start_day=self.start_day,
-                           end_day=self.end_day, normalise=self.cfg.index.normalise,
-                           seats=np.array([np.nan if s is None else s for s in seats], float),
-                           first_full_day=self.first_full_of(accounts))
+        settings = dict(accounts=accounts, start_day=self.start_day, normalise=self.cfg.index.normalise,
+                        seats=np.array([np.nan if s is None else s for s in seats], float),
+                        first_full_day=self.first_full_of(accounts))
+        if self.cfg.index.normalise == "active_users":
+            idx, day, value, events, users = self.st.weighted_daily(
+                self.weights, list(accounts), day_to_date(self.start_day), day_to_date(self.end_day))
+            return build_panel(idx, day, value, events, users, end_day=self.end_day, **settings)
+        return panel_from_counts(self._counts(accounts), **settings)
 
     def with_fleet(self, panel):
         """A panel from :meth:`read` with the fleet factor and gap mask applied (waiting for a

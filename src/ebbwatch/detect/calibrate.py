@@ -6,6 +6,7 @@ Shapes: ``A`` accounts; a history is (A, n) with NaN where a point is missing.
 
 from __future__ import annotations
 
+import threading
 from functools import lru_cache
 
 import numpy as np
@@ -63,9 +64,11 @@ def history_tail_p(z, z_history, df, anchor_points, *, lower: bool = True, indep
 
 
 MULTIPLICITY_SAMPLES = 400_000
+# Chunks are scored in threads, and the first two would both simulate the factor (0.2 s each)
+# before either had cached it.
+_MULTIPLICITY_LOCK = threading.Lock()
 
 
-@lru_cache(maxsize=16)
 def nested_window_multiplicity(windows: tuple, reference_days: int, samples: int = MULTIPLICITY_SAMPLES):
     """How much more often the smallest of the windows' one-sided tests falls below a level than
     one test does, when days are independent: ``(z grid, factor)``, factor = P(min z < g) / Φ(g).
@@ -76,6 +79,12 @@ def nested_window_multiplicity(windows: tuple, reference_days: int, samples: int
     correlation between days makes nested windows more alike, so the factor is an upper bound
     for the autocorrelated series activity is.
     """
+    with _MULTIPLICITY_LOCK:
+        return _simulated_multiplicity(windows, reference_days, samples)
+
+
+@lru_cache(maxsize=16)
+def _simulated_multiplicity(windows: tuple, reference_days: int, samples: int):
     rng = np.random.default_rng(20_201)
     longest = max(windows)
     grid = np.linspace(-5.0, 0.0, 201)
