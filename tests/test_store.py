@@ -204,3 +204,17 @@ def test_version_6_store_migrates_its_per_user_rows_to_user_hashes(db, monkeypat
         assert kept == [("a-1", "edit", "ann", 3), ("a-2", "edit", "cy", 5)]
         assert st.con.execute("SELECT account, event, events, users FROM daily ORDER BY ALL").fetchall() == [
             ("a-1", "edit", 3, 1), ("a-2", "edit", 5, 1)]
+
+
+def test_first_active_days_count_only_weighted_events_with_activity(db):
+    """Each account's first day of weighted activity: an earlier day of an event weighted 0, or
+    of a zero count, does not count; a name with a quote in it is matched as it is."""
+    rows = [("a", "2026-01-01", "noise", 5), ("a", "2026-01-03", "it's", 2), ("a", "2026-01-02", "it's", 0),
+            ("b", "2026-01-05", "use", 1), ("b", "2026-01-04", "noise", 9), ("c", "2026-01-01", "noise", 4)]
+    with store_mod.open_store(db) as st:
+        st.con.executemany("INSERT INTO daily VALUES (?, CAST(? AS DATE), ?, ?, NULL)", rows)
+        first = st.first_active_days({"it's": 1.0, "use": 0.5, "noise": 0.0})
+        nothing = st.first_active_days({"noise": 0.0})
+    day = lambda text: (date.fromisoformat(text) - date(1970, 1, 1)).days  # noqa: E731
+    assert first == {"a": day("2026-01-03"), "b": day("2026-01-05")}
+    assert nothing == {}

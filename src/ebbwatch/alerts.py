@@ -46,6 +46,12 @@ def benjamini_hochberg(p_values, family_size: int | None = None) -> np.ndarray:
     return q
 
 
+# The score columns select_alerts reads (score frames from before the window tests lack some).
+_SELECTION_COLUMNS = ("account", "p_down", "p_up", "change_pct", "change_down_pct", "change_up_pct", "window_down",
+                      "window_up", "trend_change_pct", "percentile", "percentile_down", "percentile_up", "down_kind",
+                      "onset_day", "level", "baseline_level", "model", "silent_days")
+
+
 def select_alerts(
     scores: pd.DataFrame,
     *,
@@ -73,7 +79,10 @@ def select_alerts(
         if unknown:
             raise ValueError(f"unknown alert kind(s) {', '.join(sorted(unknown))}; expected {', '.join(ALERT_KINDS)}")
     names = names or {}
-    judged = scores[scores["status"] == "judged"].reset_index(drop=True)
+    # Only the columns read here are copied (the per-account weekday factors are Python objects:
+    # copying them for 100,000 accounts cost more than the rest of this function's pandas work).
+    used = [name for name in _SELECTION_COLUMNS if name in scores.columns]
+    judged = scores.loc[(scores["status"] == "judged").to_numpy(), used].reset_index(drop=True)
     n = len(judged)
     q = benjamini_hochberg(np.concatenate([judged["p_down"].to_numpy(float), judged["p_up"].to_numpy(float)]),
                            family_size=family_size)
@@ -223,7 +232,8 @@ def still_changed(scores: pd.DataFrame, min_change_pct: float = 30.0) -> set:
     """
     if not len(scores):
         return set()
-    judged = scores[scores["status"] == "judged"]
+    judged = scores.loc[(scores["status"] == "judged").to_numpy(),
+                        ["account", "level", "baseline_level", "down_kind", "silent_days"]]
     level = judged["level"].to_numpy(float)
     baseline = judged["baseline_level"].to_numpy(float)
     with np.errstate(invalid="ignore"):

@@ -235,7 +235,8 @@ def _add_drivers(st, loader, scores, alerts, as_of, window_days):
     from ..explain import drivers_phrase
     from ..textsafe import plain_text
 
-    reference_end = scores.set_index("account")["reference_end_day"]
+    # A dict rather than scores.set_index(...): that copied every column of the whole fleet's scores.
+    reference_end = dict(zip(scores["account"].tolist(), scores["reference_end_day"].tolist()))
     targets = [(a, int(reference_end[a]), d) for a, d in zip(alerts["account"], alerts["direction"])]
     driver_lists = _find_drivers(st, loader, targets, as_of, window_days, max_events=5)
     alerts["drivers"] = driver_lists

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import duckdb
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 
 from .sql import _USER_HASH, _arrow, _register
@@ -131,15 +130,14 @@ class Merging:
 
     def first_active_days(self, event_weights: dict[str, float]) -> dict:
         """Each account's first day with weighted activity (``event_weights`` > 0), as days since
-        1970-01-01: ``{account: day}``, accounts without such activity left out."""
-        weights = pd.DataFrame({"event": list(event_weights), "weight": list(event_weights.values())})
-        _register(self.con, "event_weights", weights)
-        try:
-            rows = _arrow(self.con, """SELECT d.account, CAST(min(d.day) - DATE '1970-01-01' AS INTEGER) AS day
-                FROM daily d JOIN event_weights e ON e.event = d.event
-                WHERE e.weight > 0 AND d.events > 0 GROUP BY d.account""")
-        finally:
-            self.con.unregister("event_weights")
+        1970-01-01: ``{account: day}``, accounts without such activity left out.  The weighted
+        names are a list the scan of ``daily`` filters on, not a table it joins (65M rows of the
+        scan benchmark: 0.17 against 0.28 s, before the scan's first chunk can be read)."""
+        weighted = [name for name, weight in event_weights.items() if weight > 0]
+        if not weighted:
+            return {}
+        rows = _arrow(self.con, """SELECT account, CAST(min(day) - DATE '1970-01-01' AS INTEGER) AS day
+            FROM daily WHERE list_contains(?, event) AND events > 0 GROUP BY account""", [weighted])
         return dict(zip(rows.column("account").to_pylist(), rows.column("day").to_pylist()))
 
     def account_timezones(self) -> list[str]:
