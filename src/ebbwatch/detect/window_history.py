@@ -16,10 +16,24 @@ BASE_WINDOW = 7  # the window every other window's spread is pooled against (a w
 OWN_WEEKS_GAP = 14  # an account's own weeks end this many days before the judged week
 
 
-def _cumulative(matrix, dtype=np.float64) -> np.ndarray:
-    """Row-wise cumulative sums with a leading zero column, (A, D + 1)."""
+def _cumulative(matrix, dtype=np.float64, where=None) -> np.ndarray:
+    """Row-wise cumulative sums with a leading zero column, (A, D + 1); with ``where`` (A, D)
+    bool, of ``matrix`` where it holds and 0 elsewhere."""
     out = np.zeros((matrix.shape[0], matrix.shape[1] + 1), dtype)
-    np.cumsum(matrix, axis=1, out=out[:, 1:])
+    if where is None:
+        np.cumsum(matrix, axis=1, out=out[:, 1:])
+    else:
+        np.copyto(out[:, 1:], matrix, where=where)
+        np.cumsum(out[:, 1:], axis=1, out=out[:, 1:])
+    return out
+
+
+def _lagged_difference(cumulative, lag: int) -> np.ndarray:
+    """``cumulative`` (A, C) minus itself ``lag`` columns before (the first ``lag`` columns as
+    they are): each column's total over the ``lag`` columns before it."""
+    out = np.empty_like(cumulative)
+    out[:, :lag] = cumulative[:, :lag]
+    np.subtract(cumulative[:, lag:], cumulative[:, :cumulative.shape[1] - lag], out=out[:, lag:])
     return out
 
 
@@ -34,9 +48,11 @@ class _Sums:
 
     def __init__(self, values, factors, first_seen, reference_days: int):
         valid = np.isfinite(values)
-        self.X = _cumulative(np.where(valid, values, 0.0))
-        self.F = _cumulative(np.where(valid, factors, 0.0))
-        self.N = _cumulative(valid, np.int32)
+        self.X = _cumulative(values, where=valid)
+        self.F = _cumulative(factors, where=valid)
+        # Valid-day counts fit 16 bits for any history under 89 years (half the memory traffic of
+        # the windows' day counts).
+        self.N = _cumulative(valid, np.int16 if values.shape[1] < np.iinfo(np.int16).max else np.int32)
         # The histories are computed in single precision (half the memory traffic; a window's
         # count is still exact to well under an event); the judged window in double.
         self.X32, self.F32 = self.X.astype(np.float32), self.F.astype(np.float32)
@@ -46,15 +62,10 @@ class _Sums:
         # The sums are zero before the first activity, so a plain lag of R columns gives the same
         # totals; only the calendar span needs the first activity.
         lag = min(reference_days, n_days + 1)
-
-        def reference(m):
-            out = m.copy()
-            out[:, lag:] -= m[:, :n_days + 1 - lag]
-            return out
-
+        reference_sum = _lagged_difference(self.X32, lag)
         with np.errstate(invalid="ignore", divide="ignore"):
-            self.reference_level = np.divide(reference(self.X32), reference(self.F32))
-        self.reference_days = reference(self.N).astype(np.int16)
+            self.reference_level = np.divide(reference_sum, _lagged_difference(self.F32, lag), out=reference_sum)
+        self.reference_days = _lagged_difference(self.N, lag).astype(np.int16, copy=False)
         self.first_seen = np.asarray(first_seen)
         span = np.arange(n_days + 1, dtype=np.int16)[None, :] - self.first_seen.astype(np.int16)[:, None]
         np.clip(span, 0, reference_days, out=span)
