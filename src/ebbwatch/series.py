@@ -252,12 +252,14 @@ def _same_weekday_reference(matrix: np.ndarray, weeks: int = FLEET_LOOKBACK_WEEK
     or ``np.nanmedian`` on (weeks, A, D).
     """
     n_days = matrix.shape[1]
+    # NaN as +inf once, then each lag is a shifted copy of it.
+    unknown_inf = np.where(np.isnan(matrix), np.inf, matrix)
     lagged = []
     for k in range(1, weeks + 1):
-        lag = np.full(matrix.shape, np.inf)
-        if 7 * k < n_days:
-            lag[:, 7 * k:] = matrix[:, : n_days - 7 * k]
-        lag[np.isnan(lag)] = np.inf
+        lag = np.empty(matrix.shape)
+        shift = min(7 * k, n_days)
+        lag[:, :shift] = np.inf
+        lag[:, shift:] = unknown_inf[:, : n_days - shift]
         lagged.append(lag)
     spare = np.empty_like(lagged[0])  # the swaps write into buffers, not fresh arrays
     for i in range(weeks):
@@ -275,7 +277,10 @@ def _same_weekday_reference(matrix: np.ndarray, weeks: int = FLEET_LOOKBACK_WEEK
         np.copyto(lo, lagged[k], where=lower_rank == k)
         np.copyto(hi, lagged[k], where=upper_rank == k)
     with np.errstate(invalid="ignore"):
-        return np.where(count > 0, 0.5 * (lo + hi), np.nan)
+        np.add(lo, hi, out=lo)
+    lo *= 0.5
+    lo[count == 0] = np.nan
+    return lo
 
 
 def shorth_location(votes: np.ndarray, coverage: float = 0.6) -> np.ndarray:
@@ -388,8 +393,7 @@ def fleet_voting_accounts(counts: np.ndarray) -> int:
 
 
 def _typical_voters(voters: np.ndarray) -> int:
-    """The median over days (after the first references' weeks) of the accounts voting, from
-    ``voters`` (A, D) bool."""
+    """The median over days (past the references' first weeks) of ``voters`` (A, D) bool."""
     per_day = voters.sum(axis=0)
     return int(np.median(per_day[FLEET_LOOKBACK_WEEKS * 7:])) if voters.shape[1] > FLEET_LOOKBACK_WEEKS * 7 else 0
 
