@@ -130,7 +130,7 @@ def test_the_priors_of_a_fleet_too_small_to_measure_them_follow_the_measured_one
     two-day ratio, 3.4 times the 28-day one)."""
     from ebbwatch.detect import ScanParams, fleet_window_priors
     from ebbwatch.detect.contrasts import neutral_priors
-    from ebbwatch.series import fleet_factor
+    from ebbwatch.fleet import fleet_factor
 
     for seed in (500, 501):
         fleet = generate(DEV_FAMILY, 400, seed)

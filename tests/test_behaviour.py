@@ -9,7 +9,8 @@ from ebbwatch.alerts import select_alerts
 from ebbwatch.datasets import make_fleet
 from ebbwatch.detect import SCORE_COLUMNS, ScanParams, score_panel
 from ebbwatch.detect.contrasts import WindowTests
-from ebbwatch.series import build_panel, fleet_factor, with_fleet
+from ebbwatch.fleet import fleet_factor
+from ebbwatch.series import build_panel, with_fleet
 
 AS_OF = date(2026, 3, 31)
 
@@ -229,7 +230,7 @@ def test_a_small_fleet_divides_out_only_the_days_nearly_all_its_accounts_moved_o
     votes' centre: a dip to half shared by all of 12 accounts is divided out, the same dip in a
     third of them is not (their own changes), nor is any ordinary day's noise; 6 accounts read no
     fleet-wide day at all, and 40 read the shared dip in full."""
-    from ebbwatch.series import fleet_factor_and_voters, fleet_voting_accounts
+    from ebbwatch.fleet import fleet_factor_and_voters, fleet_voting_accounts
 
     rng = np.random.default_rng(6)
 

@@ -17,7 +17,7 @@ LAYERS = [
     {"alerts", "explain"},
     {"detect"},
     {"baseline"},
-    {"series"},
+    {"series", "fleet"},
     {"engine"},
     {"store"},
     {"ingest"},

@@ -15,7 +15,8 @@ import pandas as pd
 from .alerts import RESOLVE_DAYS, select_alerts
 from .baseline.counts import pooled_dispersion
 from .detect import ScanParams, fleet_window_priors, score_panel
-from .series import Panel, fleet_factor, missing_before_first_full_day
+from .fleet import fleet_factor
+from .series import Panel, missing_before_first_full_day
 
 DOWN_OUTCOMES = ("churned", "contracted")
 UP_OUTCOMES = ("expanded",)
@@ -52,7 +53,7 @@ def replay_fleet_factors(sample_counts, panel_start: int, as_of_days, *, history
     (NaN or 0 where none), column 0 being day ``panel_start``.  Returns per day in
     ``as_of_days`` a tuple ``(factor, masked, count_dispersion, window_priors)`` over the ``history_days``
     columns ending on that day, computed only from columns up to it (the fleet factor and
-    data-gap mask of ``series.fleet_factor``, the pooled dispersion of
+    data-gap mask of ``fleet.fleet_factor``, the pooled dispersion of
     ``baseline.counts.pooled_dispersion``).  ``first_full_day`` (S,): the sample accounts' first
     full days (``series.first_full_days``; None: histories start at the first activity).
     """

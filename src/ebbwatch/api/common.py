@@ -70,7 +70,7 @@ def fleet_factor_summary(voters: int) -> dict:
     """Whether the scan divided out fleet-wide days, and on how many voting accounts: in full
     from ``needed`` of them, only the moves that stand out of the votes' noise from
     ``needed_for_large_moves`` (``large_moves_only``), not at all below that."""
-    from ..series import FLEET_MIN_ACCOUNTS, FLEET_MIN_SMALL
+    from ..fleet import FLEET_MIN_ACCOUNTS, FLEET_MIN_SMALL
 
     return {"estimated": voters >= FLEET_MIN_SMALL, "voting_accounts": int(voters), "needed": FLEET_MIN_ACCOUNTS,
             "large_moves_only": FLEET_MIN_SMALL <= voters < FLEET_MIN_ACCOUNTS,
@@ -94,7 +94,7 @@ def last_complete_day(st, today: date | None = None) -> tuple[date, str]:
     """
     from zoneinfo import ZoneInfo
 
-    from ..series import fleet_gap_days
+    from ..fleet import fleet_gap_days
 
     as_of = default_as_of(st.last_day(), today)
     why = f"the store's last day {as_of}" if as_of == st.last_day() else f"the day before today ({as_of})"

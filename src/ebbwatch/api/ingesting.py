@@ -290,7 +290,7 @@ def _merge(st, cfg: Config, file_no: int | None) -> dict:
 
 def status(*, db: str | None = None, config=None) -> dict:
     """What the store holds: accounts, events, first and last day, last ingest, data-gap days."""
-    from ..series import fleet_gap_days
+    from ..fleet import fleet_gap_days
 
     cfg = _config(config)
     with store_mod.open_store(db or cfg.store_path, read_only=True) as st:

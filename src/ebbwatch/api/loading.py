@@ -123,7 +123,8 @@ class PanelLoader:
         sample of ``accounts``, read through ``st`` (default the loader's store)."""
         from ..baseline.counts import pooled_dispersion
         from ..detect import fleet_window_priors
-        from ..series import fleet_factor_and_voters, missing_before_first_full_day
+        from ..fleet import fleet_factor_and_voters
+        from ..series import missing_before_first_full_day
 
         counts = self.sample_counts(accounts, st)
         sample, _ = fleet_sample(accounts)
