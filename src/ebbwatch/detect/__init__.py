@@ -174,16 +174,14 @@ def _own_columns_breakpoints(segment, starts, penalty_factor: float) -> list:
     """:class:`ChangepointSearch` breakpoints of each row of ``segment`` (A, L), searched from the
     row's own first column ``starts`` (A,) on: the columns before a young account's first day
     are no data, and filled in they would shape the search's penalty and segments."""
-    starts = np.asarray(starts)
+    starts = np.maximum(np.asarray(starts), 0)
     found = [None] * len(segment)
-    whole = np.flatnonzero(starts <= 0)
-    if whole.size:
-        for i, breakpoints in zip(whole, ChangepointSearch(penalty_factor=penalty_factor).fit(segment[whole]).breakpoints_):
-            found[i] = breakpoints
-    for i in np.flatnonzero(starts > 0):
-        start = int(starts[i])
-        own = ChangepointSearch(penalty_factor=penalty_factor).fit(segment[i:i + 1, start:]).breakpoints_[0]
-        found[i] = [start + b for b in own]
+    # Rows that start on the same column are searched together, on the columns from it.
+    for start in np.unique(starts):
+        rows = np.flatnonzero(starts == start)
+        search = ChangepointSearch(penalty_factor=penalty_factor).fit(segment[rows, int(start):])
+        for i, breakpoints in zip(rows, search.breakpoints_):
+            found[i] = [int(start) + b for b in breakpoints]
     return found
 
 

@@ -165,19 +165,13 @@ def cusum_split(u, first: int, last: int, sigma, starts=None):
     csum = np.cumsum(u, axis=1)
     total = csum[:, -1:]
     ks = np.arange(max(first, 1), min(last, n - 1) + 1)
-    if starts is None:
-        before = csum[:, ks - 1] / ks
-        width = ks[None, :]
-    else:
-        starts = np.asarray(starts, np.int64)[:, None]
-        ahead = np.where(starts > 0, np.take_along_axis(csum, np.maximum(starts - 1, 0), axis=1), 0.0)
-        width = np.maximum(ks[None, :] - starts, 1)
-        before = (csum[:, ks - 1] - ahead) / width
+    starts = np.zeros((u.shape[0], 1), np.int64) if starts is None else np.asarray(starts, np.int64)[:, None]
+    ahead = np.where(starts > 0, np.take_along_axis(csum, np.maximum(starts - 1, 0), axis=1), 0.0)
+    width = np.maximum(ks[None, :] - starts, 1)
+    before = (csum[:, ks - 1] - ahead) / width
     after = (total - csum[:, ks - 1]) / (n - ks)
     scale = np.maximum(np.asarray(sigma, float), 1e-9)[:, None] * np.sqrt(1.0 / width + 1.0 / (n - ks))
-    stat = (after - before) / scale
-    if starts is not None:
-        stat = np.where(ks[None, :] > starts, stat, 0.0)
+    stat = np.where(ks[None, :] > starts, (after - before) / scale, 0.0)
     best = np.abs(stat).argmax(axis=1)
     return ks[best], stat[np.arange(u.shape[0]), best]
 
