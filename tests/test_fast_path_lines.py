@@ -43,6 +43,27 @@ def test_hex_ids_that_read_like_numbers_stay_on_the_native_reader(tmp_path, gz):
     assert daily(str(tmp_path / "1.duckdb")) == daily(str(tmp_path / "2.duckdb"))
 
 
+def test_digit_ids_and_users_are_judged_as_the_precise_parser_judges_them(tmp_path):
+    # Text read as VARCHAR hides whether it was a string: digit-led values of every length and
+    # form, as strings and as JSON numbers, in the id and the user (a float or a 20-digit number
+    # is not an id; a string of any digits is).
+    values = ["0000000000000001", "1234567890123456789", "12345678901234567890", "0012e45", "12.5", "7",
+              "9" * 19, "1" * 25, "18446744073709551616", "-12", "-1e3", "1e-7", "3e512", "3f2a0000000000e1"]
+    raw = []
+    for i, text in enumerate(values):
+        for value in (json.dumps(text), text):  # the string, then the bare JSON number
+            ts = f"2026-03-0{1 + i % 9}T10:00:00Z"
+            raw.append(f'{{"ts": "{ts}", "event": "doc.edit", "user": "u-{i}", "account": "a-1", "id": {value}}}'.encode())
+            raw.append(f'{{"ts": "{ts}", "event": "doc.edit", "user": {value}, "account": "a-1", "id": "k-{len(raw)}"}}'.encode())
+    path = write_jsonl(tmp_path / "e.jsonl", [ev("2026-03-02T09:00:00Z", id="first")], raw_lines=raw)
+    s = ingest(str(tmp_path / "1.duckdb"), [path])
+    ref = ingest_precisely(str(tmp_path / "2.duckdb"), [path])
+    assert s["paths"]["fast"] == 1
+    assert (s["ingested"], s["duplicates"], s["rejected"]) == (ref["ingested"], ref["duplicates"], ref["rejected"])
+    assert ref["rejected"]  # some of the bare numbers are not ids or users: the check has work to do
+    assert daily(str(tmp_path / "1.duckdb")) == daily(str(tmp_path / "2.duckdb"))
+
+
 def test_a_file_of_float_looking_string_ids_is_read_typed(tmp_path, db):
     # Every id reads like a number: too many lines to check one by one, so DuckDB reads the file
     # again with the fields typed, and nothing is left to the precise parser.

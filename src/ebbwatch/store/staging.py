@@ -83,6 +83,12 @@ class Staging:
             flagged = f"regexp_full_match({col}, {non_string_text})"
             if not integers_too:
                 flagged = f"({flagged} AND NOT regexp_full_match({col}, '-?[0-9]{{1,19}}'))"
+                # A text of at most 19 bytes that starts with a digit and holds no '.', 'e' or 'E'
+                # can match the pattern only as an integer, which ids take either way: no regex
+                # runs on decimal ids such as "0000000000000001" (2M of them: 0.18 s of staging).
+                plain_digits = (f"{col} >= '0' AND {col} < ':' AND strlen({col}) <= 19 AND NOT contains({col}, '.') "
+                                f"AND NOT contains({col}, 'e') AND NOT contains({col}, 'E')")
+                flagged = f"(CASE WHEN {plain_digits} THEN false ELSE {flagged} END)"
             first_byte_may_start_non_string = " OR ".join(
                 [f"{col} < ':'"] + [f"({col} >= '{c}' AND {col} < '{chr(ord(c) + 1)}')" for c in "[{tfnNiI"])
             # Past 25 bytes the only non-string texts are objects, arrays (a bracket first) and
