@@ -1,6 +1,9 @@
 import json
+import os
 import subprocess
 import sys
+
+import pytest
 
 from click.testing import CliRunner
 
@@ -47,6 +50,38 @@ def test_stdin_with_dash(tmp_path):
     line = json.dumps({"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "a"}) + "\n"
     result = run("ingest", "-", "--db", db, "--format", "json", input=line)
     assert result.exit_code == 0 and json.loads(result.stdout)["ingested"] == 1
+
+
+def test_stdin_is_copied_beside_the_store_while_it_is_ingested_and_removed_after(tmp_path):
+    import io
+
+    import ebbwatch
+
+    line = json.dumps({"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "a"}) + "\n"
+    seen = []
+    store = tmp_path / "store" / "s.duckdb"
+    store.parent.mkdir()
+    s = ebbwatch.ingest_files(["-"], db=str(store), stdin=io.BytesIO(line.encode()),
+                              progress=lambda *_: seen.extend(p.name for p in store.parent.iterdir()))
+    assert s["ingested"] == 1 and s["stdin_copies_left"] == []
+    assert any(name.startswith(f".ebbwatch-stdin-{os.getpid()}-") for name in seen)  # beside the store
+    assert not any(p.name.startswith(".ebbwatch-stdin-") for p in store.parent.iterdir())  # and gone
+
+
+@pytest.mark.skipif(os.name != "posix", reason="whether a process still runs is checked with POSIX kill(pid, 0)")
+def test_a_killed_ingests_copy_of_stdin_is_reported_and_kept(tmp_path):
+    gone = int(subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True,
+                              text=True, check=True).stdout)  # a process that has ended
+    left = tmp_path / f".ebbwatch-stdin-{gone}-k1.jsonl"
+    left.write_text(json.dumps({"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u", "account": "a"}) + "\n")
+    running = tmp_path / f".ebbwatch-stdin-{os.getpid()}-r1.jsonl"  # this process's: still in use
+    running.write_text("")
+    f = write_jsonl(tmp_path / "e.jsonl", [{"ts": "2026-03-03T10:00:00Z", "event": "x", "user": "u", "account": "a"}])
+    result = run("ingest", str(f), "--db", str(tmp_path / "s.duckdb"), "--format", "json")
+    assert result.exit_code == 0 and json.loads(result.stdout)["stdin_copies_left"] == [str(left)]
+    human = run("ingest", str(f), "--db", str(tmp_path / "s.duckdb"))
+    assert str(left) in human.stderr and "never ingested" in human.stderr and str(running) not in human.stderr
+    assert left.exists() and running.exists()  # reported, never removed
 
 
 def test_exit_code_2_for_usage_and_config_errors(tmp_path):

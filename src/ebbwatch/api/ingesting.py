@@ -17,7 +17,7 @@ from ..errors import InputError, UsageError
 from ..frames import FileResult, Reject
 from ..ingest import csvs
 from ..ingest.lines import LineRules
-from ..ingest.readers import STDIN, expand_inputs, remove_quietly, spool_stdin
+from ..ingest.readers import STDIN, expand_inputs, left_spools, remove_quietly, spool_stdin
 from ..ingest.timestamps import parse_rfc3339
 from .common import Progress, _config
 
@@ -95,7 +95,7 @@ def ingest_files(
         "skipped_files": [], "errors": [], "accounts_loaded": 0, "identities_loaded": 0,
         "daily_rows_loaded": 0, "paths": {"fast": 0, "precise": 0}, "lines_rechecked": 0, "held_back": {}, "recovered": 0, "taken_back": 0,
         "files_over_reject_share": [], "max_reject_share": cfg.ingest.max_reject_share,
-        "rejects_file": None,
+        "rejects_file": None, "stdin_copies_left": [],
     }
     summary["skipped_files"].extend(passed_over)
     db_path = store_mod.resolve_path(db or cfg.store_path)
@@ -143,6 +143,8 @@ def ingest_files(
                         summary["files_over_reject_share"].append(
                             {"file": display, "lines": outcome.lines, "rejected": lost})
             summary["unknown_accounts"] = st.unknown_accounts()
+        if _spool_directory(db_path):
+            summary["stdin_copies_left"] = left_spools(_spool_directory(db_path))
     except BaseException:
         wrote = summary["files"] or any(summary[k] for k in ("accounts_loaded", "identities_loaded", "daily_rows_loaded"))
         if new_store and not wrote:  # a run that failed before writing anything leaves no store behind
@@ -156,6 +158,12 @@ def ingest_files(
         summary["rejects_file"] = rejects_path
     summary["seconds"] = round(time.perf_counter() - started, 3)
     return summary
+
+
+def _spool_directory(store_path: str) -> str | None:
+    """Where standard input is copied while it is ingested: the store's directory (None for an
+    in-memory store: the system's temporary directory)."""
+    return None if store_path == ":memory:" else str(Path(store_path).resolve().parent)
 
 
 def _add_to_summary(summary: dict, display: str, outcome):
@@ -182,7 +190,7 @@ def _ingest_here(st, files, cfg, rules, progress, stdin, again=False):
     legacy_digest = st.has_legacy_digests()  # files this run logs use the new hash alone
     for position, item in enumerate(files, start=1):
         display = "<stdin>" if item == STDIN else item
-        path = spool_stdin(stdin) if item == STDIN else item
+        path = spool_stdin(stdin, _spool_directory(st.path)) if item == STDIN else item
         if progress:
             progress(display, position, len(files))
         rejects: list[Reject] = []

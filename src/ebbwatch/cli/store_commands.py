@@ -125,6 +125,10 @@ def _print_ingest_summary(s: dict):
         err(f"Skipped {skipped['file']}: {skipped['reason']}.")
     for error in s["errors"]:
         err(f"Error: {error['file']}: {error['error']} (nothing written for it)")
+    for left in s["stdin_copies_left"]:
+        err(f"Found {left}: a copy of standard input left by an ingest that was stopped before it "
+            "finished. It may hold events that were never ingested: ingest it (ebbwatch ingest FILE) "
+            "and delete it, or delete it.")
 
 
 @main.command()

@@ -128,13 +128,54 @@ def looks_like_csv(path: str, peek_bytes: int = 1 << 16) -> str | None:
     return None
 
 
-def spool_stdin(stream=None) -> str:
-    """Copy standard input to a temporary file so it can be hashed and read twice."""
+STDIN_SPOOL_PREFIX = ".ebbwatch-stdin-"
+
+
+def spool_stdin(stream=None, directory: str | None = None) -> str:
+    """Copy standard input to a file so it can be hashed and read twice, and return its path.
+
+    The copy is a hidden file in ``directory`` (the store's, beside its rejects file; the
+    system's temporary directory without one) whose name carries this process's id: events can
+    be personal data, and a copy left by an ingest killed before it could remove it then stays
+    beside the store, where :func:`left_spools` finds it, not in a shared temporary directory.
+    """
     stream = stream if stream is not None else sys.stdin.buffer
-    handle = tempfile.NamedTemporaryFile(prefix="ebbwatch-stdin-", suffix=".jsonl", delete=False)
+    prefix = f"{STDIN_SPOOL_PREFIX}{os.getpid()}-"
+    try:
+        handle = tempfile.NamedTemporaryFile(prefix=prefix, suffix=".jsonl", dir=directory, delete=False)
+    except OSError:  # a store directory this process may not create files in
+        handle = tempfile.NamedTemporaryFile(prefix=prefix, suffix=".jsonl", delete=False)
     with handle:
         shutil.copyfileobj(stream, handle, 1 << 20)
     return handle.name
+
+
+def _process_gone(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)  # signal 0: a check, nothing sent
+    except ProcessLookupError:
+        return True
+    except OSError:
+        return False  # alive, another user's
+    return False
+
+
+def left_spools(directory: str) -> list[str]:
+    """Copies of standard input in ``directory`` whose ingest is no longer running (it was killed
+    before it could remove its copy), oldest first.  They may hold events that were never
+    ingested, so they are reported, never removed.  Empty where a process cannot be checked
+    without side effects (Windows, where ``os.kill`` would end it)."""
+    if os.name != "posix":
+        return []
+    left = []
+    for path in Path(directory).glob(f"{STDIN_SPOOL_PREFIX}*.jsonl"):
+        pid = path.name[len(STDIN_SPOOL_PREFIX):].split("-", 1)[0]
+        if pid.isdigit() and _process_gone(int(pid)):
+            try:
+                left.append((path.stat().st_mtime, str(path)))
+            except OSError:
+                pass  # removed meanwhile
+    return [name for _, name in sorted(left)]
 
 
 # A line nesting deeper than N needs at least 2N bytes, so only lines this long are counted.
