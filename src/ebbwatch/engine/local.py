@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import os
 from collections import deque
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import FIRST_COMPLETED, ThreadPoolExecutor, wait
 from typing import Callable, Sequence
 
 
@@ -53,7 +53,7 @@ def run_local(accounts: Sequence[str], load: Callable, score: Callable, *, chunk
         return results
     with ThreadPoolExecutor(1) as reader, ThreadPoolExecutor(threads) as scorers:
         to_load = iter(enumerate(chunks))
-        loading, scoring = deque(), deque()
+        loading, scoring = deque(), {}
 
         def load_next():
             for i, chunk in to_load:  # at most one
@@ -65,11 +65,15 @@ def run_local(accounts: Sequence[str], load: Callable, score: Callable, *, chunk
         while loading or scoring:
             while loading and len(scoring) < threads:
                 i, panel = loading.popleft()
-                scoring.append((i, scorers.submit(score, panel.result())))
+                scoring[scorers.submit(score, panel.result())] = i
                 load_next()
-            i, result = scoring.popleft()
-            results[i] = result.result()
-            done += len(chunks[i])
-            if progress:
-                progress(done, len(accounts))
+            # Whichever chunk finishes first frees its thread for the next: waiting on the oldest
+            # left a thread idle whenever a younger chunk finished before it.
+            finished, _ = wait(scoring, return_when=FIRST_COMPLETED)
+            for future in finished:
+                i = scoring.pop(future)
+                results[i] = future.result()
+                done += len(chunks[i])
+                if progress:
+                    progress(done, len(accounts))
     return results
