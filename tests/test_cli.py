@@ -68,6 +68,15 @@ def test_stdin_is_copied_beside_the_store_while_it_is_ingested_and_removed_after
     assert not any(p.name.startswith(".ebbwatch-stdin-") for p in store.parent.iterdir())  # and gone
 
 
+def test_an_unreadable_stdin_is_named_as_standard_input_not_by_its_copy(tmp_path):
+    import gzip
+
+    cut_short = gzip.compress(b'{"ts": "2026-03-02T10:00:00Z", "event": "x", "user": "u"}\n' * 50)[:30]
+    result = run("ingest", "-", "--db", str(tmp_path / "s.duckdb"), input=cut_short)
+    assert result.exit_code == 3
+    assert "<stdin>: cannot read standard input" in result.stderr and ".ebbwatch-stdin-" not in result.stderr
+
+
 @pytest.mark.skipif(os.name != "posix", reason="whether a process still runs is checked with POSIX kill(pid, 0)")
 def test_a_killed_ingests_copy_of_stdin_is_reported_and_kept(tmp_path):
     gone = int(subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True,

@@ -155,6 +155,28 @@ def test_line_index_finds_every_non_blank_line(tmp_path, block, final_newline):
     assert numbers.tolist() == [4, 10] and read_spans(str(path), starts, ends) == [b'{"b": 22}', b"zz"]
 
 
+def test_line_index_asked_past_its_lines_gives_no_spans(tmp_path):
+    # The native reader saw more rows than the index has lines: the caller then reads the file
+    # line by line; asking must not fail.
+    path = tmp_path / "f.txt"
+    path.write_bytes(b'{"a": 1}\n{"b": 2}\n')
+    index = LineIndex()
+    index.feed(path.read_bytes(), np.array([8, 17]))
+    count, numbers, starts, ends = index.nonblank_lines(str(path), np.array([1, 2]))
+    assert count == 2 and numbers.size == starts.size == ends.size == 0
+
+
+@pytest.mark.parametrize("cut", [30, 200])
+@pytest.mark.parametrize("name", ["e.jsonl.gz", "e.jsonl"])
+def test_a_gzip_stream_cut_short_is_an_error_whatever_the_file_is_called(tmp_path, name, cut):
+    whole = b"".join(json.dumps(ev(f"2026-03-02T10:{i % 60:02d}:00Z", id=f"e-{i}")).encode() + b"\n" for i in range(500))
+    path = tmp_path / name
+    path.write_bytes(gzip.compress(whole)[:cut])
+    s = ingest(str(tmp_path / "s.duckdb"), [path])
+    assert s["files"] == 0 and s["ingested"] == 0
+    assert [e["file"] for e in s["errors"]] == [str(path)] and "to its end" in s["errors"][0]["error"]
+
+
 def test_scan_file_builds_the_same_index_for_a_gzip_file(tmp_path):
     data = b"".join(b'{"n": %d}\n' % i if i % 13 else b"\n" for i in range(200_000))
     plain, packed = tmp_path / "f.jsonl", tmp_path / "f.jsonl.gz"

@@ -197,7 +197,8 @@ def _ingest_here(st, files, cfg, rules, progress, stdin, again=False):
         try:
             result = _ingest_one(st, path, display, cfg, rules, rejects, legacy_digest, again)
         except InputError as exc:
-            yield display, str(exc), []
+            # Standard input's copy is gone once this returns: name what the user gave instead.
+            yield display, str(exc).replace(path, "standard input") if item == STDIN else str(exc), []
             continue
         finally:
             if item == STDIN:

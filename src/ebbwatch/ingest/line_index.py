@@ -102,9 +102,14 @@ class LineIndex:
         """For the ``ordinals`` (0-based among non-blank lines, ascending): ``(nonblank_count,
         line_numbers, starts, ends)``, the number of non-blank lines in all, the lines' 1-based
         numbers, and the byte offsets in the (decompressed) text of each line's first byte and
-        of its end (before ``\\n``)."""
+        of its end (before ``\\n``).  Ordinals at or past the count (the reader saw more lines
+        than the index, as in a gzip stream cut short) get no lines: three empty arrays."""
         blank = self.blank_lines(path)
         ordinals = np.asarray(ordinals, dtype=np.int64)
+        nonblank = self.line_count - blank.size
+        if ordinals.size and ordinals.max() >= nonblank:
+            nothing = np.zeros(0, dtype=np.int64)
+            return nonblank, nothing, nothing, nothing
         # The line index of ordinal k: k plus the blank lines at or before it (a fixed point).
         lines = ordinals.copy()
         while True:
@@ -113,7 +118,7 @@ class LineIndex:
                 break
             lines = moved
         starts, ends = self._spans(lines) if lines.size else (lines, lines)
-        return self.line_count - blank.size, lines + 1, starts, ends
+        return nonblank, lines + 1, starts, ends
 
 
 def read_spans(path: str, starts: np.ndarray, ends: np.ndarray) -> list[bytes]:

@@ -273,6 +273,10 @@ def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None,
                         rest = inflater.unused_data
                         inflater = zlib.decompressobj(wbits=47)
                         block = rest
+        if inflater is not None and not inflater.eof:
+            # The precise path's reader says the same of such a file (``iter_lines``); DuckDB
+            # would read one named .jsonl as raw bytes.
+            raise InputError(f"cannot read {path} to its end: the gzip stream stops before its end-of-stream marker")
     except zlib.error as exc:
         raise InputError(f"cannot read {path}: not a valid gzip file ({exc})") from exc
     except OSError as exc:
