@@ -46,6 +46,21 @@ def test_hand_computed_confusion_table():
     assert late["outcomes"]["churned"]["recall_at_lead"] == 0.0  # 50 days of lead is not 55
 
 
+def test_outcomes_the_replay_cannot_see_are_not_counted_in_recall():
+    """Replayed days 0-99.  A churn on day 10 (its span 90-30 days before: days -80..-20) and one
+    on day 200 (110..170) had no replayed day to be caught on; the churn on day 60 is caught.
+    Recall 1/1, not 1/3, and the two are reported apart.  With c's churn on day 120 too (seen,
+    alerted only 25 days ahead) recall is 1/2; precision counts an alert followed by any churn."""
+    d = lambda k: START + timedelta(days=k)  # noqa: E731
+    a = alerts([(d(20), "a", "down", "drop", 5), (d(95), "c", "down", "drop", 5)])
+    o = outcomes([("a", d(60), "churned"), ("b", d(10), "churned"), ("c", d(200), "churned"), ("c", d(120), "churned")])
+    m = evaluate(a, o, EXPOSURE, lead_days=30, horizon_days=90)["outcomes"]["churned"]
+    assert (m["count"], m["outside_replay"], m["recall_at_lead"]) == (2, 2, 0.5)
+    assert m["precision"] == 1.0 and m["caught_within_horizon"] == 2
+    seen = evaluate(a, outcomes([("a", d(60), "churned"), ("b", d(10), "churned")]), EXPOSURE)["outcomes"]["churned"]
+    assert (seen["count"], seen["outside_replay"], seen["recall_at_lead"]) == (1, 1, 1.0)
+
+
 def test_an_episode_lasts_until_the_lifecycle_resolves_it():
     """An alert that stops for two replayed days and comes back is one episode (the daily scan
     shows it as clearing, then ongoing); absent three days, it resolved, and the next is new."""
@@ -161,6 +176,20 @@ def test_backtest_uses_the_daily_scans_judgement(tmp_path):
         assert key in result
     for key in ("count", "recall_at_lead", "median_lead_days", "precision"):
         assert key in result["outcomes"]["churned"]
+
+
+def test_outcomes_of_accounts_the_store_does_not_hold_are_left_out_and_named(tmp_path):
+    fleet, db, o = _fleet_store(tmp_path, seed=6)
+    day = fleet.as_of - timedelta(days=3)
+    mine = ebbwatch.backtest(str(o), start=day, end=day, db=db)
+    stranger = tmp_path / "o2.csv"
+    stranger.write_text(o.read_text() + f"no-such-account,{fleet.as_of},churned\n")
+    with_stranger = ebbwatch.backtest(str(stranger), start=day, end=day, db=db)
+    assert with_stranger["outcomes"] == mine["outcomes"]
+    assert with_stranger["outcomes_for_unknown_accounts"] == {"outcomes": 1, "accounts": 1, "examples": ["no-such-account"]}
+    from ebbwatch.report.backtest_text import render_backtest
+
+    assert "store does not hold (no-such-account)" in render_backtest(with_stranger)
 
 
 def test_unknown_outcome_kind_names_the_line(tmp_path):

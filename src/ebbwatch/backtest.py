@@ -201,8 +201,11 @@ def evaluate(alerts: pd.DataFrame, outcomes: pd.DataFrame, exposure: pd.DataFram
     replayed to tell new alerts from running ones).
 
     * recall_at_lead: share of outcomes with a matching alert (down for churned/contracted, up for
-      expanded) on a day in [date − horizon, date − lead].
-    * lead times: date minus the first matching alert day in [date − horizon, date].
+      expanded) on a day in [date − horizon, date − lead], over the outcomes with a sampled
+      replayed day in that span (``count``); the others (``outside_replay``: before the replay
+      could see them, or after it) could not be caught and are not counted.
+    * lead times: date minus the first matching alert day in [date − horizon, date], over the
+      same outcomes.
     * precision: share of accounts with an alert in that direction that have a matching outcome
       within ``horizon_days`` after one of their alerts.
     * alerts_per_day: alerts new on a sampled day (:func:`new_episodes`) per sampled day: what
@@ -217,9 +220,14 @@ def evaluate(alerts: pd.DataFrame, outcomes: pd.DataFrame, exposure: pd.DataFram
     result = {"outcomes": {}}
     episodes = new_episodes(alerts, exposure)
     judged_days = exposure[exposure["sampled"]] if "sampled" in exposure else exposure
+    replayed = np.sort(pd.to_datetime(judged_days["as_of"]).to_numpy(dtype="datetime64[ns]"))
+    first_seen = np.searchsorted(replayed, (outs["date"] - pd.Timedelta(days=horizon_days)).to_numpy())
+    last_seen = np.searchsorted(replayed, (outs["date"] - pd.Timedelta(days=lead_days)).to_numpy(), side="right")
+    within_replay = pd.Series(last_seen > first_seen, index=outs.index)
     for kind in sorted(set(outs["outcome"])):
         direction = "up" if kind in UP_OUTCOMES else "down"
-        rows = outs[outs["outcome"] == kind]
+        every = outs[outs["outcome"] == kind]
+        rows = every[within_replay[every.index]]
         mine = alerts[alerts["direction"] == direction]
         hits, leads = 0, []
         for o in rows.itertuples():
@@ -231,14 +239,15 @@ def evaluate(alerts: pd.DataFrame, outcomes: pd.DataFrame, exposure: pd.DataFram
             hits += bool(len(early))
         alerted = set(mine["account"])
         with_outcome = 0
-        for account in alerted:
+        for account in alerted:  # an alert followed by its outcome, wherever the outcome falls
             a_days = mine.loc[mine["account"] == account, "as_of"]
-            o_days = rows.loc[rows["account"] == account, "date"]
+            o_days = every.loc[every["account"] == account, "date"]
             if any(((o_days - d).dt.days.between(0, horizon_days)).any() for d in a_days):
                 with_outcome += 1
         q = np.percentile(leads, [25, 50, 75]) if leads else [None] * 3
         result["outcomes"][kind] = {
-            "count": int(len(rows)), "recall_at_lead": hits / len(rows) if len(rows) else None,
+            "count": int(len(rows)), "outside_replay": int(len(every) - len(rows)),
+            "recall_at_lead": hits / len(rows) if len(rows) else None,
             "caught_within_horizon": len(leads), "median_lead_days": None if q[1] is None else float(q[1]),
             "lead_days_q1": None if q[0] is None else float(q[0]), "lead_days_q3": None if q[2] is None else float(q[2]),
             "precision": with_outcome / len(alerted) if alerted else None, "alerted_accounts": len(alerted),

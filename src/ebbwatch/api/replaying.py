@@ -63,6 +63,11 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
         if start > end:
             raise UsageError(f"--from {start} is after --to {end}")
         accounts = st.account_ids()
+        # An outcome for an account the store does not hold (a misspelt id, another product's
+        # customer) could only ever count as missed: it is left out, and said so.
+        held = outcome_frame["account"].isin(set(accounts))
+        unknown = sorted(set(outcome_frame.loc[~held, "account"]))
+        outcome_frame = outcome_frame[held]
         segments = st.accounts().set_index("account")["segment"].dropna().to_dict()
         history = max((end - first_day).days + 1, cfg.scan.window_days + 14)
         loader = PanelLoader(st, cfg, end, history)
@@ -117,6 +122,8 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
             "alerts_per_day": chosen["alerts_per_day"],
             "config": f"[scan]\nmin_severity = {chosen['min_severity']}\n"},
         "seconds": round(time.perf_counter() - started, 3),
+        "outcomes_for_unknown_accounts": {"outcomes": int((~held).sum()), "accounts": len(unknown),
+                                          "examples": unknown[:5]},
     })
     if (budget or target_precision) and chosen is None:
         result["calibration"] = {"min_severity": None, "budget": budget, "target_precision": target_precision,

@@ -21,6 +21,15 @@ def render_backtest(r: dict) -> str:
         lead = f"{_days(m['lead_days_q1'])}/{_days(m['median_lead_days'])}/{_days(m['lead_days_q3'])}"
         lines.append(f"{kind:<12}{m['count']:>7}{_pct(m['recall_at_lead']):>13}{m['caught_within_horizon']:>8}{lead:>18}"
                      f"{_pct(m['precision']):>11}{m['alerted_accounts']:>9}")
+    for kind, m in r["outcomes"].items():
+        if m.get("outside_replay"):
+            lines.append(f"  not counted: {m['outside_replay']} {kind} outcome(s) with no replayed day between "
+                         f"{r['horizon_days']} and {r['lead_days']} days before them (before or after the replay)")
+    unknown = r.get("outcomes_for_unknown_accounts") or {}
+    if unknown.get("outcomes"):
+        names = ", ".join(unknown["examples"]) + (", ..." if unknown["accounts"] > len(unknown["examples"]) else "")
+        lines.append(f"  left out: {unknown['outcomes']} outcome(s) of {unknown['accounts']} account(s) the store "
+                     f"does not hold ({names}); a misspelt id?")
     fa = r["false_alerts_per_100_account_months"]
     lines += ["", f"new alerts on the days judged {r['alert_episodes']}, {r['alerts_per_day']:.2f} a day; false alerts "
                   f"{'-' if fa is None else f'{fa:.2f}'} per 100 account-months", "",
