@@ -117,6 +117,24 @@ def test_messages_with_drivers_never_show_a_missing_value(fleet_store):
     assert "since" not in message and not re.search(r"\bnan\b", message, re.IGNORECASE), message
 
 
+def test_a_stops_drivers_are_its_silent_days(fleet_store):
+    """Drivers explain the change the alert states, over the alert's own window: for a stop the
+    silent days, where every event fell to nothing (over the scan's 7-day window they read as
+    a partial fall, and a message said "no activity for 3 days ...; mostly edit (-25%)")."""
+    fleet, db = fleet_store
+    alerts = ebbwatch.scan(db=db, as_of=fleet.as_of, max_alerts=1000)
+    stopped = alerts[alerts["kind"] == "stop"]
+    # The same stops a few days after they began: silent for fewer days than a week.
+    back = int(stopped["window_days"].min()) - 4
+    earlier = ebbwatch.scan(db=db, as_of=fleet.as_of - timedelta(days=back), max_alerts=1000)
+    stops = earlier[(earlier["kind"] == "stop") & (earlier["window_days"] < 7)]
+    assert len(stops)
+    for drivers, message in zip(stops["drivers"], stops["message"]):
+        events = [d for d in drivers if d["type"] == "event"]
+        assert events and all(d["observed"] == 0 and d["change_pct"] == -100 for d in events), drivers
+        assert "(-100%)" in message or "mostly" not in message, message
+
+
 def test_cli_table_kind_filter_and_fail_on_alert(fleet_store):
     fleet, db = fleet_store
     runner = CliRunner()

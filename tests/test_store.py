@@ -115,7 +115,8 @@ def test_version_1_store_migrates_to_2_keeping_its_data(db, monkeypatch):
 
 def test_event_period_sums_match_the_frame_route(db):
     """The store's grouped totals for the drivers equal explain.event_period_sums on the rows
-    (several events, a weight of 0 and of 2, masked days, one account asked for twice)."""
+    (several events, a weight of 0 and of 2, masked days, one account asked for twice with two
+    windows of its own)."""
     import numpy as np
     import pandas as pd
 
@@ -134,18 +135,23 @@ def test_event_period_sums_match_the_frame_route(db):
                           FROM rows_in""")
         st.con.unregister("rows_in")
         masked = [20_010, 20_055]
-        window = (20_053, 20_059)
-        periods = [("a-1", 20_020, 20_050), ("a-2", 20_000, 20_030), ("a-1", 20_040, 20_052), ("a-9", 20_000, 20_050)]
+        periods = [("a-1", 20_020, 20_050, 20_053), ("a-2", 20_000, 20_030, 20_053), ("a-1", 20_040, 20_052, 20_057),
+                   ("a-9", 20_000, 20_050, 20_053)]
         targets = pd.DataFrame({"place": range(len(periods)), "account": [p[0] for p in periods],
-                                "first": [p[1] for p in periods], "last": [p[2] for p in periods]})
-        from_store = st.event_period_sums(weights, targets, window, masked)
+                                "first": [p[1] for p in periods], "last": [p[2] for p in periods],
+                                "window_first": [p[3] for p in periods], "window_last": 20_059})
+        from_store = st.event_period_sums(weights, targets, masked)
     keep = lambda first, last: [d for d in range(first, last + 1) if d not in masked]  # noqa: E731
-    baselines = [(a, keep(first, last)) for a, first, last in periods]
-    from_rows = event_period_sums(rows, weights, baselines, keep(*window))
+    baselines = [(a, keep(first, last)) for a, first, last, _ in periods]
+    windows = [keep(window_first, 20_059) for *_, window_first in periods]
+    from_rows = event_period_sums(rows, weights, baselines, windows)
     from_rows = from_rows[from_rows["event"] != "noise"].reset_index(drop=True)
     pd.testing.assert_frame_equal(from_store.reset_index(drop=True), from_rows, check_dtype=False)
-    sizes = [len(days) for _, days in baselines]
-    assert drivers_from_sums(from_store, weights, sizes, 6) == drivers_from_sums(from_rows, weights, sizes, 6)
+    sizes, window_sizes = [len(days) for _, days in baselines], [len(days) for days in windows]
+    assert drivers_from_sums(from_store, weights, sizes, window_sizes) == drivers_from_sums(from_rows, weights, sizes,
+                                                                                            window_sizes)
+    assert drivers_from_sums(from_store, weights, sizes, window_sizes)[2] != drivers_from_sums(
+        from_store, weights, sizes, [6] * len(periods))[2]  # the own window counts
 
 
 def test_version_2_store_still_recognises_files_logged_by_sha256(tmp_path, db, monkeypatch):

@@ -106,7 +106,8 @@ def test_driver_expectations_count_only_days_the_account_existed(young_store):
     'expected' was too low (54 a week against a usual 97) and the message named the wrong cause."""
     info = ebbwatch.explain("yg-beta", db=young_store, as_of=AS_OF)
     events = [d for d in info["drivers"] if d["type"] == "event"]
-    expected_week = sum(d["expected"] for d in events)  # drivers compare the last 7 days
+    # Drivers compare the account's telling window (explain's "recent" window) with the baseline.
+    expected_week = sum(d["expected"] for d in events) / info["recent"]["window_days"] * 7
     rows = [r for r in _events(np.random.default_rng(7)) if r["account"] == "yg-beta"]
     days = pd.to_datetime([r["ts"] for r in rows]).tz_convert(None).normalize()
     before_drop = (days >= pd.Timestamp(START.date()) + pd.Timedelta(days=1)) & \

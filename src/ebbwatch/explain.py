@@ -29,51 +29,60 @@ def event_drivers(event_days: pd.DataFrame, weights: dict, baseline_days, window
     event's part of the whole change in the index, so the shares add up to 1; the list is ranked
     by the size of each event's change.
     """
-    return event_drivers_many(event_days.assign(account=""), weights, [("", baseline_days)], window_days)[0]
+    return event_drivers_many(event_days.assign(account=""), weights, [("", baseline_days)], [window_days])[0]
 
 
-def event_drivers_many(event_days: pd.DataFrame, weights: dict, baselines, window_days) -> list[list[dict]]:
+def event_drivers_many(event_days: pd.DataFrame, weights: dict, baselines, windows) -> list[list[dict]]:
     """:func:`event_drivers` for many accounts in one pass of frame operations.
 
     ``event_days``: rows ``account, day, event, events``; ``baselines``: ``(account,
-    baseline_days)`` pairs, one per wanted result (in that order); ``window_days`` is shared.
+    baseline_days)`` pairs, one per wanted result (in that order); ``windows``: each wanted
+    result's window days (an alert's own window: a stop's silent days, a slide's four weeks).
     """
-    sums = event_period_sums(event_days, weights, baselines, window_days)
-    return drivers_from_sums(sums, weights, [len(days) for _, days in baselines], len(window_days))
+    sums = event_period_sums(event_days, weights, baselines, windows)
+    return drivers_from_sums(sums, weights, [len(days) for _, days in baselines], [len(days) for days in windows])
 
 
-def event_period_sums(event_days: pd.DataFrame, weights: dict, baselines, window_days) -> pd.DataFrame:
+def _place_days(wanted) -> pd.DataFrame:
+    """Rows ``place, account, day``: each wanted ``(place, account, days)`` spread over its days."""
+    sizes = [len(d) for _, _, d in wanted]
+    return pd.DataFrame({"place": np.repeat([i for i, _, _ in wanted], sizes),
+                         "account": np.repeat(np.array([a for _, a, _ in wanted], dtype=object), sizes),
+                         "day": np.concatenate([np.asarray(days) for _, _, days in wanted]) if wanted else []})
+
+
+def event_period_sums(event_days: pd.DataFrame, weights: dict, baselines, windows) -> pd.DataFrame:
     """Index totals per wanted result and event name: rows ``place, event, baseline, observed``
     (``place`` indexes ``baselines``; see :func:`event_drivers_many` for the arguments).  The
     scan gets the same table from the store (``Store.event_period_sums``) without the rows."""
     columns = ["place", "event", "baseline", "observed"]
-    wanted = [(i, account, days) for i, (account, days) in enumerate(baselines) if len(days)]
-    if event_days.empty or not len(window_days) or not wanted:
+    wanted = [(i, account, days) for i, (account, days) in enumerate(baselines) if len(days) and len(windows[i])]
+    if event_days.empty or not wanted:
         return pd.DataFrame(columns=columns)
-    sizes = [len(d) for _, _, d in wanted]
-    place = pd.DataFrame({"place": np.repeat([i for i, _, _ in wanted], sizes),
-                          "account": np.repeat(np.array([a for _, a, _ in wanted], dtype=object), sizes),
-                          "day": np.concatenate([np.asarray(days) for _, _, days in wanted])})
     rows = event_days.assign(index=event_days["events"] * _event_weights(event_days["event"], weights))
-    # Each wanted result's baseline rows, and its account's window rows.
-    baseline = rows.merge(place, on=["account", "day"]).groupby(["place", "event"])["index"].sum()
-    in_window = rows[rows["day"].isin(np.asarray(window_days))]
-    accounts = pd.DataFrame({"place": [i for i, _, _ in wanted], "account": [a for _, a, _ in wanted]})
-    observed = in_window.merge(accounts, on="account").groupby(["place", "event"])["index"].sum()
+    # Each wanted result's baseline rows, and its window rows.
+    baseline = rows.merge(_place_days(wanted), on=["account", "day"]).groupby(["place", "event"])["index"].sum()
+    in_window = _place_days([(i, account, windows[i]) for i, account, _ in wanted])
+    observed = rows.merge(in_window, on=["account", "day"]).groupby(["place", "event"])["index"].sum()
     table = pd.concat({"baseline": baseline, "observed": observed}, axis=1).fillna(0.0).reset_index()
     return table[columns]
 
 
-def drivers_from_sums(sums: pd.DataFrame, weights: dict, baseline_sizes, window_size: int) -> list[list[dict]]:
+def drivers_from_sums(sums: pd.DataFrame, weights: dict, baseline_sizes, window_sizes) -> list[list[dict]]:
     """Drivers (see :func:`event_drivers`) from period totals ``place, event, baseline,
-    observed``; ``baseline_sizes[place]`` is the number of baseline days (a place with none
-    gets no drivers), ``window_size`` the window's."""
+    observed``; ``baseline_sizes[place]`` and ``window_sizes[place]`` are the numbers of
+    baseline and window days (a place without either gets no drivers)."""
     found = [[] for _ in baseline_sizes]
     sizes = np.asarray(baseline_sizes, dtype=float)
-    table = sums[sizes[sums["place"].to_numpy(int)] > 0] if len(sums) else sums
-    if not len(table) or not window_size:
+    window_sizes = np.asarray(window_sizes, dtype=float)
+    if len(sums):
+        place = sums["place"].to_numpy(int)
+        sums = sums[(sizes[place] > 0) & (window_sizes[place] > 0)]
+    table = sums
+    if not len(table):
         return found
-    table = table.assign(expected=table["baseline"].to_numpy(float) / sizes[table["place"].to_numpy(int)] * window_size)
+    place = table["place"].to_numpy(int)
+    table = table.assign(expected=table["baseline"].to_numpy(float) / sizes[place] * window_sizes[place])
     table["change"] = table["observed"] - table["expected"]
     total = table.groupby("place")["change"].transform("sum")
     table = table.assign(total=total, size=-table["change"].abs()).sort_values(["place", "size", "event"])

@@ -51,7 +51,7 @@ def explain(account: str, *, as_of=None, db: str | None = None, config=None, tod
         segments = history_segments(panel, params)[0]
         reference_end = int(row["reference_end_day"])
         direction = "down" if row["p_down"] <= row["p_up"] else "up"
-        drivers = _find_drivers(st, loader, [(account, reference_end, direction)], as_of, cfg.scan.window_days)[0]
+        drivers = _find_drivers(st, loader, [(account, reference_end, direction, int(row["window_days"]))], as_of)[0]
     today_alerts = _alerts_on(account, as_of, db=db, config=cfg)
     weekday_names = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
     f = lambda v: None if v is None or (isinstance(v, float) and not np.isfinite(v)) else float(v)  # noqa: E731

@@ -140,7 +140,7 @@ def scan(
         limit = cfg.scan.max_alerts if max_alerts is None else max_alerts
         shown = alerts[wanted].head(limit).reset_index(drop=True)  # alerts come most severe first
         if drivers and len(shown):
-            _add_drivers(st, loader, scores, shown, as_of, cfg.scan.window_days)
+            _add_drivers(st, loader, scores, shown, as_of)
         known = st.accounts().set_index("account")
         # What accounts.csv says of the shown accounts (MRR, segment), for the tables people read.
         details = {a: {"mrr": _clean_value(known.at[a, "mrr"]), "segment": _clean_value(known.at[a, "segment"])}
@@ -196,40 +196,44 @@ def _period_days(start_day: int, end_day: int, masked, panel_start: int) -> np.n
 BASELINE_DRIVER_DAYS = 56
 
 
-def _find_drivers(st, loader, targets, as_of, window_days, max_events=None) -> list[list[dict]]:
-    """Drivers for each ``(account, reference_end_day, direction)`` in ``targets``: the window is
-    the last ``window_days`` days, the baseline the 8 weeks before the reference history ends
-    (from the account's first full day if later), masked days left out of both; event totals are summed in the store, and user rows (where
+def _find_drivers(st, loader, targets, as_of, max_events=None) -> list[list[dict]]:
+    """Drivers for each ``(account, reference_end_day, direction, window_days)`` in ``targets``:
+    the window is the alert's own last ``window_days`` days (a stop's silent days, a slide's
+    telling window), so the drivers explain the change the alert states; the baseline the 8
+    weeks before the reference history ends (from the account's first full day if later),
+    masked days left out of both; event totals are summed in the store, and user rows (where
     the store has them) read in one query."""
     import pandas as pd
 
     from ..explain import drivers_from_sums, user_drivers
 
     end = (as_of - date(1970, 1, 1)).days
-    first_needed = max(min(ref for _, ref, _ in targets) - BASELINE_DRIVER_DAYS, loader.start_day)
-    accounts = [account for account, _, _ in targets]
-    window = _period_days(end - window_days + 1, end, loader.masked, loader.start_day)
+    first_needed = max(min(ref for _, ref, _, _ in targets) - BASELINE_DRIVER_DAYS, loader.start_day)
+    accounts = [account for account, _, _, _ in targets]
+    window_first = [end - int(days) + 1 for _, _, _, days in targets]
+    windows = [_period_days(first, end, loader.masked, loader.start_day) for first in window_first]
     # A young account's baseline starts at its first full day, not on days it did not exist.
     first_full = loader.first_full_of(accounts)
     baseline_first = [max(reference_end - BASELINE_DRIVER_DAYS, loader.start_day, int(first))
-                      for (_, reference_end, _), first in zip(targets, first_full)]
-    baselines = [(account, _period_days(first, reference_end - 1, loader.masked, loader.start_day))
-                 for first, (account, reference_end, _) in zip(baseline_first, targets)]
+                      for (_, reference_end, _, _), first in zip(targets, first_full)]
+    baselines = [_period_days(first, reference_end - 1, loader.masked, loader.start_day)
+                 for first, (_, reference_end, _, _) in zip(baseline_first, targets)]
     periods = pd.DataFrame({"place": np.arange(len(targets)), "account": accounts, "first": baseline_first,
-                            "last": [reference_end - 1 for _, reference_end, _ in targets]})
+                            "last": [reference_end - 1 for _, reference_end, _, _ in targets],
+                            "window_first": window_first, "window_last": end})
     masked_days = loader.start_day + np.flatnonzero(loader.masked)
-    sums = st.event_period_sums(loader.weights, periods, (end - window_days + 1, end), masked_days)
+    sums = st.event_period_sums(loader.weights, periods, masked_days)
     found = [drivers[:max_events] for drivers in
-             drivers_from_sums(sums, loader.weights, [len(days) for _, days in baselines], len(window))]
+             drivers_from_sums(sums, loader.weights, [len(days) for days in baselines], [len(days) for days in windows])]
     users = st.accounts_user_activity(accounts, date(1970, 1, 1) + timedelta(days=first_needed), as_of)
     users_by = dict(list(users.groupby("account")))
-    for drivers, (account, baseline), (_, _, direction) in zip(found, baselines, targets):
+    for drivers, account, baseline, window, (_, _, direction, _) in zip(found, accounts, baselines, windows, targets):
         if account in users_by:
             drivers += user_drivers(users_by[account], loader.weights, baseline, window, direction)
     return found
 
 
-def _add_drivers(st, loader, scores, alerts, as_of, window_days):
+def _add_drivers(st, loader, scores, alerts, as_of):
     """Fill the ``drivers`` column and extend each ``message`` with a short clause."""
     from ..alerts import alert_message
     from ..explain import drivers_phrase
@@ -237,8 +241,9 @@ def _add_drivers(st, loader, scores, alerts, as_of, window_days):
 
     # A dict rather than scores.set_index(...): that copied every column of the whole fleet's scores.
     reference_end = dict(zip(scores["account"].tolist(), scores["reference_end_day"].tolist()))
-    targets = [(a, int(reference_end[a]), d) for a, d in zip(alerts["account"], alerts["direction"])]
-    driver_lists = _find_drivers(st, loader, targets, as_of, window_days, max_events=5)
+    targets = [(a, int(reference_end[a]), d, int(w))
+               for a, d, w in zip(alerts["account"], alerts["direction"], alerts["window_days"])]
+    driver_lists = _find_drivers(st, loader, targets, as_of, max_events=5)
     alerts["drivers"] = driver_lists
     # Records from column lists: DataFrame.to_dict("records") boxes every cell (~0.15 s for
     # ~5,000 alerts).

@@ -65,7 +65,7 @@ class ScanParams:
 
     Days are calendar days.  ``windows`` are the lengths of the recent windows tested against
     the ``reference_days`` before them (``contrasts.WindowTests``); ``window_days`` is the
-    window of messages, drivers and the report's level.
+    window of messages and the report's level (an alert's drivers read its own window).
     """
 
     window_days: int = 7
