@@ -75,10 +75,10 @@ def drivers_from_sums(sums: pd.DataFrame, weights: dict, baseline_sizes, window_
     found = [[] for _ in baseline_sizes]
     sizes = np.asarray(baseline_sizes, dtype=float)
     window_sizes = np.asarray(window_sizes, dtype=float)
-    if len(sums):
-        place = sums["place"].to_numpy(int)
-        sums = sums[(sizes[place] > 0) & (window_sizes[place] > 0)]
-    table = sums
+    if not len(sums):
+        return found
+    place = sums["place"].to_numpy(int)
+    table = sums[(sizes[place] > 0) & (window_sizes[place] > 0)]
     if not len(table):
         return found
     place = table["place"].to_numpy(int)

@@ -143,8 +143,9 @@ def ingest_files(
                         summary["files_over_reject_share"].append(
                             {"file": display, "lines": outcome.lines, "rejected": lost})
             summary["unknown_accounts"] = st.unknown_accounts()
-        if _spool_directory(db_path):
-            summary["stdin_copies_left"] = left_spools(_spool_directory(db_path))
+        spools = _spool_directory(db_path)
+        if spools:
+            summary["stdin_copies_left"] = left_spools(spools)
     except BaseException:
         wrote = summary["files"] or any(summary[k] for k in ("accounts_loaded", "identities_loaded", "daily_rows_loaded"))
         if new_store and not wrote:  # a run that failed before writing anything leaves no store behind
