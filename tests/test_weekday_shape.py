@@ -6,7 +6,7 @@ from datetime import date, timedelta
 import numpy as np
 
 from ebbwatch.baseline import WeekdayProfile
-from ebbwatch.baseline.shape_change import weekday_shape_split
+from ebbwatch.baseline.shape_change import recent_weeks_departure, weekday_shape_split
 
 from ebbwatch.datasets import make_fleet
 
@@ -128,3 +128,45 @@ def test_explain_names_the_day_the_present_weekday_shape_began(tmp_path):
     assert info["weekday_shape_since"] == (SUNDAY - timedelta(days=41)).isoformat()
     assert f"this shape since {info['weekday_shape_since']}" in render_explanation(info)
     assert ebbwatch.explain("a0", db=db, as_of=SUNDAY)["weekday_shape_since"] is None
+
+
+def test_a_shape_one_or_two_weeks_old_is_noticed_and_stable_weeks_rarely_are():
+    rng = np.random.default_rng(17)
+    false = []
+    for shape in (FLAT, WEEKDAYS_ONLY, WEEKEND_HEAVY):
+        for rate in (3.0, 10.0, 50.0):
+            weeks = _counts(rng, [shape] * 16, np.full(1500, rate)).reshape(1500, 16, 7)
+            share = (weeks / weeks.mean(axis=2, keepdims=True)).transpose(0, 2, 1)
+            statistic, shift, _, _ = recent_weeks_departure(share, np.ones((1500, 16), bool))
+            false.append(float(((statistic > 25.0) & (shift > 0.4)).mean()))
+    # The scan's threshold (25) flags about 2-3% of stable accounts of 3+ events a day on the
+    # development fleets; each costs only the short windows' judgement for a day.  Allow 5%.
+    assert max(false) <= 0.05, false
+    for recent in (1, 2):
+        weeks = _counts(rng, [WEEKDAYS_ONLY] * (16 - recent) + [FLAT] * recent, np.full(500, 10.0)).reshape(500, 16, 7)
+        share = (weeks / weeks.mean(axis=2, keepdims=True)).transpose(0, 2, 1)
+        statistic, shift, _, _ = recent_weeks_departure(share, np.ones((500, 16), bool))
+        assert ((statistic > 25.0) & (shift > 0.4)).mean() >= 0.8, recent
+
+
+def test_an_account_that_began_working_weekends_two_weeks_ago_is_not_a_weekend_surge():
+    """Two weeks ago a weekday account spread its work over the whole week (the same weekly
+    total).  On a Sunday its weekend reads as many times its usual weekend, but the new shape is
+    too young for the split search (three weeks a side), so its own weekdays' and weekends' past
+    cannot judge a two-day window: only whole weeks do, and they have not moved."""
+    rng = np.random.default_rng(23)
+    totals = make_fleet(80, 365, as_of=SUNDAY, seed=2, share_changed=0.0).counts.sum(axis=2)
+    n_days = totals.shape[1]
+    first_monday = (7 - (SUNDAY - timedelta(days=n_days - 1)).weekday()) % 7
+    weeks = (n_days - first_monday) // 7
+    series = np.zeros(n_days)
+    series[first_monday:] = _counts(rng, [WEEKDAYS_ONLY] * (weeks - 2) + [FLAT] * 2, np.array([40.0]))[0]
+    series[:first_monday] = rng.poisson(40.0 * WEEKDAYS_ONLY[:first_monday] / WEEKDAYS_ONLY.mean())
+    scores, alerts = judge(np.vstack([totals, series]), as_of=SUNDAY)
+    account = f"a{totals.shape[0]}"
+    assert account not in set(alerts["account"]), alerts
+    assert scores.loc[account, "p_up"] > 0.01, scores.loc[account, ["p_up", "window_up", "change_up_pct"]]
+    # The same account whose whole week rose (a real surge) is still one.
+    series[-14:] *= 3.0
+    scores, _ = judge(np.vstack([totals, series]), as_of=SUNDAY)
+    assert scores.loc[account, "p_up"] < 0.001

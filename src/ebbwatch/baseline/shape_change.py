@@ -48,3 +48,66 @@ def weekday_shape_split(share, usable, *, min_weeks: int = 3, variance_floor: fl
         split = np.where(better, c, split)
         shift = np.where(better, np.abs(after - before).max(axis=1), shift)
     return best, split, shift
+
+
+def recent_weeks_departure(share, usable, *, recent_weeks=(1, 2), min_weeks_before: int = 3,
+                           variance_floor: float = 0.01):
+    """How far the last weeks' weekday shape departs from the weeks before them.
+
+    The statistic of :func:`weekday_shape_split` at the fixed splits that leave the last
+    ``recent_weeks`` usable weeks in the later run: a new shape one or two weeks old, too young
+    for the split search's ``min_weeks`` on both sides.  ``share`` (A, 7, W) and ``usable``
+    (A, W) as there.  Returns ``(statistic, shift, before, change)``: (A,) the larger statistic
+    over the ``recent_weeks`` (0 where fewer than ``min_weeks_before`` usable weeks come before)
+    and its largest absolute change of a weekday's mean share; (A, 7) the earlier run's mean
+    shares and the later run's change from them, by position in the week.
+    """
+    share = np.asarray(share, float)
+    usable = np.asarray(usable, bool)
+    n_accounts, _, n_weeks = share.shape
+    x = np.where(usable[:, None, :] & np.isfinite(share), share, 0.0)
+    # Usable weeks counted from the newest: a run of the last r usable weeks, wherever the
+    # unusable ones fall between them.
+    from_newest = np.cumsum(usable[:, ::-1], axis=1)[:, ::-1]
+    best = np.zeros(n_accounts)
+    shift = np.zeros(n_accounts)
+    best_before = np.ones((n_accounts, 7))
+    best_change = np.zeros((n_accounts, 7))
+    for r in recent_weeks:
+        later = usable & (from_newest <= r)
+        earlier = usable & ~later
+        na, nb = later.sum(axis=1), earlier.sum(axis=1)
+        possible = (na == r) & (nb >= min_weeks_before)
+        na_, nb_ = np.maximum(na, 1)[:, None], np.maximum(nb, 1)[:, None]
+        after = (x * later[:, None, :]).sum(axis=2) / na_
+        before = (x * earlier[:, None, :]).sum(axis=2) / nb_
+        squares = (x * x * earlier[:, None, :]).sum(axis=2) - nb_ * before**2
+        squares += (x * x * later[:, None, :]).sum(axis=2) - na_ * after**2
+        variance = np.maximum(squares, 0.0) / np.maximum(nb_ + na_ - 2, 1)
+        statistic = ((after - before) ** 2 / ((variance + variance_floor) * (1 / nb_ + 1 / na_))).sum(axis=1)
+        better = possible & (statistic > best)
+        best = np.where(better, statistic, best)
+        shift = np.where(better, np.abs(after - before).max(axis=1), shift)
+        best_before = np.where(better[:, None], before, best_before)
+        best_change = np.where(better[:, None], after - before, best_change)
+    return best, shift, best_before, best_change
+
+
+def carried_on(before, change, week) -> np.ndarray:
+    """How much of a recent change of weekday shape the next week carries on, (A,).
+
+    ``before`` and ``change`` (A, 7) from :func:`recent_weeks_departure`; ``week`` (A, 7) the
+    next week's days in the same positions (NaN where missing).  The least-squares coefficient
+    of the week's departure from ``before`` on ``change``: about 1 where the new shape goes on,
+    about 0 where the departure was a level that moved inside the last week (a drop on its
+    Thursday leaves the next week's shares as they were, only lower).  NaN where the week has
+    under six days or no activity.
+    """
+    week = np.asarray(week, float)
+    valid = np.isfinite(week)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(valid, week, 0.0).sum(axis=1) / valid.sum(axis=1)
+        departure = np.where(valid, week / mean[:, None] - before, 0.0)
+        change = np.where(valid, change, 0.0)
+        coefficient = (departure * change).sum(axis=1) / (change * change).sum(axis=1)
+    return np.where((valid.sum(axis=1) >= 6) & (mean > 0), coefficient, np.nan)

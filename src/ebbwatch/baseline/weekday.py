@@ -6,7 +6,7 @@ import numpy as np
 
 from ..series import fast_nanmedian_rows
 from ._base import Estimator, check_matrix
-from .shape_change import weekday_shape_split
+from .shape_change import carried_on, recent_weeks_departure, weekday_shape_split
 
 
 class WeekdayProfile(Estimator):
@@ -32,29 +32,43 @@ class WeekdayProfile(Estimator):
         shape).  None: every week votes.
     change_shift : float
         Least change of a weekday's mean share (in units of the week's mean) that counts.
+    recent_statistic : float or None
+        Where the last one or two weeks depart from the voting weeks before them with a statistic
+        above this (:func:`~ebbwatch.baseline.shape_change.recent_weeks_departure`) and a shift
+        above ``change_shift``, and the week after the fitted days (``following`` in :meth:`fit`)
+        carries the new shape on (by half or more,
+        :func:`~ebbwatch.baseline.shape_change.carried_on`), ``recent_change_`` is set: a new shape
+        is starting that is too young to vote alone.  The factors are unchanged.  None: not
+        tested.
     """
 
-    _parameters = ("shrink_weeks", "floor", "min_days_per_week", "change_statistic", "change_shift")
+    _parameters = ("shrink_weeks", "floor", "min_days_per_week", "change_statistic", "change_shift",
+                   "recent_statistic")
 
     def __init__(self, shrink_weeks: float = 4.0, floor: float = 0.1, min_days_per_week: int = 6,
-                 change_statistic: float | None = None, change_shift: float = 0.4):
+                 change_statistic: float | None = None, change_shift: float = 0.4,
+                 recent_statistic: float | None = None):
         self.shrink_weeks = shrink_weeks
         self.floor = floor
         self.min_days_per_week = min_days_per_week
         self.change_statistic = change_statistic
         self.change_shift = change_shift
+        self.recent_statistic = recent_statistic
 
-    def fit(self, values, first_weekday: int):
-        """``values`` (A, D) with NaN for missing days; ``first_weekday`` of column 0 (Monday 0).
+    def fit(self, values, first_weekday: int, following=None):
+        """``values`` (A, D) with NaN for missing days; ``first_weekday`` of column 0 (Monday 0);
+        ``following`` (A, 7): the seven days after ``values`` (the week being judged), which do
+        not vote but tell a young change of shape from a level that moved (None: no young change
+        is looked for).
 
-        Sets ``factors_`` (A, 7) indexed by weekday, ``weeks_`` (A,) weeks that voted and
+        Sets ``factors_`` (A, 7) indexed by weekday, ``weeks_`` (A,) weeks that voted,
         ``change_start_`` (A,): the column of ``values`` where a changed weekday shape began, -1
-        where none was found.
+        where none was found, and ``recent_change_`` (A,) bool (see ``recent_statistic``).
         """
         if self.shrink_weeks < 0 or not 0 < self.floor < 1:
             raise ValueError("shrink_weeks must be >= 0 and floor in (0, 1)")
-        if (self.change_statistic is not None and self.change_statistic < 0) or self.change_shift < 0:
-            raise ValueError("change_statistic must be None or >= 0, and change_shift >= 0")
+        if any(s is not None and s < 0 for s in (self.change_statistic, self.recent_statistic)) or self.change_shift < 0:
+            raise ValueError("change_statistic and recent_statistic must be None or >= 0, and change_shift >= 0")
         values = check_matrix(values, "values")
         n_accounts, n_days = values.shape
         n_weeks = n_days // 7
@@ -62,6 +76,7 @@ class WeekdayProfile(Estimator):
         weeks_used = np.zeros(n_accounts, dtype=int)
         changed = np.zeros(n_accounts, bool)
         change_start = np.full(n_accounts, -1)
+        recent = np.zeros(n_accounts, bool)
         if n_weeks:
             offset = n_days - 7 * n_weeks  # align weeks to end at the last column
             weeks = values[:, offset:].reshape(n_accounts, n_weeks, 7)
@@ -84,6 +99,12 @@ class WeekdayProfile(Estimator):
                 usable &= ~before
                 share[np.broadcast_to(before[:, None, :], share.shape)] = np.nan
                 change_start = np.where(changed, offset + 7 * split, -1)
+            if self.recent_statistic is not None and following is not None:
+                statistic, shift, before_shares, change = recent_weeks_departure(share, usable)
+                # The weeks end at the last column, so the following week's days keep their positions.
+                carried = carried_on(before_shares, change, check_matrix(following, "following")[:, :7])
+                with np.errstate(invalid="ignore"):
+                    recent = (statistic > self.recent_statistic) & (shift > self.change_shift) & (carried >= 0.5)
             by_day = share.reshape(n_accounts * 7, n_weeks)
             raw = fast_nanmedian_rows(by_day, overwrite_input=True).reshape(n_accounts, 7)  # by column position
             weeks_used = usable.sum(axis=1)
@@ -100,6 +121,7 @@ class WeekdayProfile(Estimator):
         self.factors_ = factors
         self.weeks_ = weeks_used
         self.change_start_ = change_start
+        self.recent_change_ = recent
         return self
 
     def expected(self, weekdays) -> np.ndarray:

@@ -110,6 +110,11 @@ class ScanParams:
     # A change of weekday shape among those weeks (baseline.shape_change): the statistic's
     # threshold; under no change about 1 account in 200 of 3+ events a day crosses it.
     shape_change_statistic: float | None = 40.0
+    # The last one or two of those weeks departing from the weeks before them
+    # (baseline.shape_change.recent_weeks_departure), and the judged week carrying the new shape
+    # on: a new shape too young for the split, during which windows shorter than a week are not
+    # judged.  None: not tested.
+    recent_shape_statistic: float | None = 25.0
     onset_screen_p: float = 0.01
 
 
@@ -136,14 +141,17 @@ def _half_event(panel: Panel) -> np.ndarray:
 def _weekday_factors(values, weekdays, hist_end: int, params: ScanParams):
     """Weekday factors (A, D) from the ``profile_weeks`` weeks before the judged window: recent
     enough that a week shape changed months ago does not linger, and only the weeks since a
-    change of shape found among them.  Returns ``(profile, factors, shape_since)``:
+    change of shape found among them.  Returns ``(profile, factors, shape_since, whole_weeks_only)``:
     ``shape_since`` (A,) the column the account's present weekday shape began, -1 where it
-    did not change."""
+    did not change; ``whole_weeks_only`` (A,) bool where the weekday shape changed among those
+    weeks or may be changing in their last one or two."""
     first = max(0, hist_end - 7 * params.profile_weeks)
-    profile = WeekdayProfile(change_statistic=params.shape_change_statistic).fit(
-        values[:, first:hist_end], int(weekdays[first]))
+    following = values[:, hist_end:hist_end + 7] if values.shape[1] - hist_end >= 7 else None
+    profile = WeekdayProfile(change_statistic=params.shape_change_statistic,
+                             recent_statistic=params.recent_shape_statistic).fit(
+        values[:, first:hist_end], int(weekdays[first]), following=following)
     shape_since = np.where(profile.change_start_ >= 0, first + profile.change_start_, -1)
-    return profile, profile.factors_[:, weekdays], shape_since
+    return profile, profile.factors_[:, weekdays], shape_since, (shape_since >= 0) | profile.recent_change_
 
 
 def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams = ScanParams(),
@@ -160,7 +168,7 @@ def fleet_window_priors(counts, fleet_factor, masked, days, params: ScanParams =
     values = values / np.asarray(fleet_factor, float)[None, :]
     weekdays = weekday_of(np.asarray(days))
     hist_end = values.shape[1] - params.window_days
-    _, factors, _ = _weekday_factors(values, weekdays, hist_end, params)
+    _, factors, _, _ = _weekday_factors(values, weekdays, hist_end, params)
     first = np.where(np.isfinite(values).any(axis=1), np.isfinite(values).argmax(axis=1), values.shape[1])
     settings = dict(reference_days=params.reference_days, history_gap_days=params.history_gap_days)
     priors = window_priors(values, factors, first, np.full(len(values), 0.5), windows=params.windows, **settings)
@@ -192,7 +200,7 @@ def history_segments(panel: Panel, params: ScanParams = ScanParams()) -> list[li
     log of the weekday-adjusted series, as the scan's onset search sees it."""
     values = adjust_for_fleet(panel)
     weekdays = weekday_of(panel.days)
-    _, factors, _ = _weekday_factors(values, weekdays, panel.n_days - params.window_days, params)
+    _, factors, _, _ = _weekday_factors(values, weekdays, panel.n_days - params.window_days, params)
     z = values / factors
     out = []
     for row, first in zip(z, panel.first_seen):
@@ -250,7 +258,7 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     n_history = np.isfinite(values[:, :hist_end]).sum(axis=1)
     enough = n_history >= params.min_history_days
 
-    profile, factors, shape_since = _weekday_factors(values, weekdays, hist_end, params)
+    profile, factors, shape_since, whole_weeks_only = _weekday_factors(values, weekdays, hist_end, params)
     half_event = _half_event(panel)
     # Windows shorter than a week are judged by the weekday shape and calibrated on the account's
     # past: after a change of shape that past is of another shape, so until the change leaves the
@@ -258,9 +266,9 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     tests = WindowTests(windows=params.windows, reference_days=params.reference_days,
                         history_gap_days=params.history_gap_days).fit(
         values, factors, first_seen, half_event, priors=params.window_priors,
-        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=shape_since >= 0)
-    falling_tail_second_look(tests, values, factors, first_seen, half_event, shape_since >= 0, hist_end, params)
-    rising_tail_against_median_week(tests, values, factors, first_seen, half_event, shape_since >= 0, params)
+        count_dispersion=params.pooled_count_dispersion or 0.0, whole_weeks_only=whole_weeks_only)
+    falling_tail_second_look(tests, values, factors, first_seen, half_event, whole_weeks_only, hist_end, params)
+    rising_tail_against_median_week(tests, values, factors, first_seen, half_event, whole_weeks_only, params)
     windows = np.asarray(tests.windows_)
     p_level_low = nested_min_p(tests.p_low_.T, tests.windows_, params.reference_days)
     p_level_high = nested_min_p(tests.p_high_.T, tests.windows_, params.reference_days)
