@@ -66,23 +66,29 @@ def recent_weeks_departure(share, usable, *, recent_weeks=(1, 2), min_weeks_befo
     usable = np.asarray(usable, bool)
     n_accounts, _, n_weeks = share.shape
     x = np.where(usable[:, None, :] & np.isfinite(share), share, 0.0)
-    # Usable weeks counted from the newest: a run of the last r usable weeks, wherever the
-    # unusable ones fall between them.
+    total, squares_total, n_total = x.sum(axis=2), (x * x).sum(axis=2), usable.sum(axis=1)
+    # Usable weeks counted from the newest: the later run of r weeks is the last r usable weeks,
+    # wherever unusable ones fall between them; each step adds the next one back (one week's
+    # column an account, not a pass over all weeks).
     from_newest = np.cumsum(usable[:, ::-1], axis=1)[:, ::-1]
+    later_sum = np.zeros((n_accounts, 7))
     best = np.zeros(n_accounts)
     shift = np.zeros(n_accounts)
     best_before = np.ones((n_accounts, 7))
     best_change = np.zeros((n_accounts, 7))
-    for r in recent_weeks:
-        later = usable & (from_newest <= r)
-        earlier = usable & ~later
-        na, nb = later.sum(axis=1), earlier.sum(axis=1)
+    for r in range(1, max(recent_weeks) + 1):
+        is_rth = usable & (from_newest == r)
+        column = np.take_along_axis(x, is_rth.argmax(axis=1)[:, None, None], axis=2)[:, :, 0]
+        column *= is_rth.any(axis=1)[:, None]
+        later_sum += column
+        if r not in recent_weeks:
+            continue
+        na, nb = np.minimum(n_total, r), n_total - np.minimum(n_total, r)
         possible = (na == r) & (nb >= min_weeks_before)
         na_, nb_ = np.maximum(na, 1)[:, None], np.maximum(nb, 1)[:, None]
-        after = (x * later[:, None, :]).sum(axis=2) / na_
-        before = (x * earlier[:, None, :]).sum(axis=2) / nb_
-        squares = (x * x * earlier[:, None, :]).sum(axis=2) - nb_ * before**2
-        squares += (x * x * later[:, None, :]).sum(axis=2) - na_ * after**2
+        after = later_sum / na_
+        before = (total - later_sum) / nb_
+        squares = squares_total - nb_ * before**2 - na_ * after**2  # within both runs
         variance = np.maximum(squares, 0.0) / np.maximum(nb_ + na_ - 2, 1)
         statistic = ((after - before) ** 2 / ((variance + variance_floor) * (1 / nb_ + 1 / na_))).sum(axis=1)
         better = possible & (statistic > best)
