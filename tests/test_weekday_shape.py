@@ -26,6 +26,21 @@ def _counts(rng, shapes_by_week, rate, noise_shape=5.0):
     return rng.poisson(expected * rng.gamma(noise_shape, 1.0 / noise_shape, expected.shape)).astype(float)
 
 
+def _fleet_and_a_changed_week(seed, fleet_seed, old, new, *, weeks_since, rate=40.0):
+    """A quiet fleet's daily totals (80 accounts, a year to ``SUNDAY``) and one more account of
+    ``rate`` events a day whose weeks (from the first Monday) have the shape ``old`` and, for the
+    last ``weeks_since``, ``new``."""
+    rng = np.random.default_rng(seed)
+    totals = make_fleet(80, 365, as_of=SUNDAY, seed=fleet_seed, share_changed=0.0).counts.sum(axis=2)
+    n_days = totals.shape[1]
+    first_monday = (7 - (SUNDAY - timedelta(days=n_days - 1)).weekday()) % 7
+    weeks = (n_days - first_monday) // 7
+    series = np.zeros(n_days)
+    series[first_monday:] = _counts(rng, [old] * (weeks - weeks_since) + [new] * weeks_since, np.array([rate]))[0]
+    series[:first_monday] = rng.poisson(rate, first_monday)
+    return totals, series
+
+
 def test_stable_weeks_rarely_split_and_a_new_shape_is_found_where_it_began():
     rng = np.random.default_rng(3)
     profile = WeekdayProfile(change_statistic=40.0)
@@ -65,14 +80,7 @@ def test_an_account_that_stopped_working_weekends_is_not_alerted_on_its_weekend(
     """Five weeks ago the account moved its weekend work to the weekdays (the same weekly total).
     Judged on a Sunday after two empty weekend days, it used to read as a stop (or a drop) every
     weekend until the old shape left the profile's sixteen weeks."""
-    rng = np.random.default_rng(11)
-    totals = make_fleet(80, 365, as_of=SUNDAY, seed=0, share_changed=0.0).counts.sum(axis=2)
-    n_days = totals.shape[1]
-    first_monday = (7 - (SUNDAY - timedelta(days=n_days - 1)).weekday()) % 7
-    weeks = (n_days - first_monday) // 7
-    series = np.zeros(n_days)
-    series[first_monday:] = _counts(rng, [FLAT] * (weeks - 5) + [WEEKDAYS_ONLY] * 5, np.array([40.0]))[0]
-    series[:first_monday] = rng.poisson(40.0, first_monday)
+    totals, series = _fleet_and_a_changed_week(11, 0, FLAT, WEEKDAYS_ONLY, weeks_since=5)
     scores, alerts = judge(np.vstack([totals, series]), as_of=SUNDAY)
     account = f"a{totals.shape[0]}"
     assert account not in set(alerts["account"]), alerts
@@ -154,14 +162,7 @@ def test_an_account_that_began_working_weekends_two_weeks_ago_is_not_a_weekend_s
     total).  On a Sunday its weekend reads as many times its usual weekend, but the new shape is
     too young for the split search (three weeks a side), so its own weekdays' and weekends' past
     cannot judge a two-day window: only whole weeks do, and they have not moved."""
-    rng = np.random.default_rng(23)
-    totals = make_fleet(80, 365, as_of=SUNDAY, seed=2, share_changed=0.0).counts.sum(axis=2)
-    n_days = totals.shape[1]
-    first_monday = (7 - (SUNDAY - timedelta(days=n_days - 1)).weekday()) % 7
-    weeks = (n_days - first_monday) // 7
-    series = np.zeros(n_days)
-    series[first_monday:] = _counts(rng, [WEEKDAYS_ONLY] * (weeks - 2) + [FLAT] * 2, np.array([40.0]))[0]
-    series[:first_monday] = rng.poisson(40.0 * WEEKDAYS_ONLY[:first_monday] / WEEKDAYS_ONLY.mean())
+    totals, series = _fleet_and_a_changed_week(23, 2, WEEKDAYS_ONLY, FLAT, weeks_since=2)
     scores, alerts = judge(np.vstack([totals, series]), as_of=SUNDAY)
     account = f"a{totals.shape[0]}"
     assert account not in set(alerts["account"]), alerts
