@@ -33,7 +33,6 @@ def weekday_shape_split(share, usable, *, min_weeks: int = 3, variance_floor: fl
     weeks = np.concatenate([np.zeros((n_accounts, 1)), np.cumsum(usable, axis=1)], axis=1)
     best = np.zeros(n_accounts)
     split = np.full(n_accounts, -1)
-    shift = np.zeros(n_accounts)
     for c in range(min_weeks, n_weeks - min_weeks + 1):
         n_before, n_after = weeks[:, c], weeks[:, n_weeks] - weeks[:, c]
         possible = (n_before >= min_weeks) & (n_after >= min_weeks)
@@ -46,7 +45,13 @@ def weekday_shape_split(share, usable, *, min_weeks: int = 3, variance_floor: fl
         better = possible & (statistic > best)
         best = np.where(better, statistic, best)
         split = np.where(better, c, split)
-        shift = np.where(better, np.abs(after - before).max(axis=1), shift)
+    # The shift at each account's best split only, not at every split tried.
+    at = np.maximum(split, 0)[:, None, None]
+    rows_total = np.take_along_axis(total, at, axis=2)[:, :, 0]
+    n_before = np.maximum(np.take_along_axis(weeks, at[:, 0], axis=1), 1)
+    before = rows_total / n_before
+    after = (total[:, :, n_weeks] - rows_total) / np.maximum(weeks[:, n_weeks:] - n_before, 1)
+    shift = np.where(split >= 0, np.abs(after - before).max(axis=1), 0.0)
     return best, split, shift
 
 

@@ -133,8 +133,11 @@ PRIOR_SAMPLE = 1000  # accounts of the fleet sample the window priors are measur
 
 def _half_event(panel: Panel) -> np.ndarray:
     """Half an event in activity-index units, per account (the index may be per seat or user)."""
+    # Counts are NaN exactly where values are: one mask for both sums (half the time of nansum,
+    # which copies each array with its NaNs zeroed).
+    known = ~np.isnan(panel.values)
     with np.errstate(invalid="ignore", divide="ignore"):
-        per_event = np.nansum(panel.values, axis=1) / np.nansum(panel.counts, axis=1)
+        per_event = np.sum(panel.values, axis=1, where=known) / np.sum(panel.counts, axis=1, where=known)
     return 0.5 * np.where(np.isfinite(per_event) & (per_event > 0), per_event, 1.0)
 
 
