@@ -19,7 +19,7 @@ from .contrasts import BASE_WINDOW, WindowPriors, WindowTests, window_priors
 from .heavy_days import cap_heavy_days
 from .second_looks import falling_tail_second_look, long_windows, rising_tail_against_median_week
 from .silence import last_active_column, silence
-from .tail import rolling_window
+from .tail import weekly_levels
 from .trend import step_or_ramp, trend_test
 
 def sustained_changes(values, factors, pair_rows, pair_breakpoints, lookback: int = 56):
@@ -229,7 +229,7 @@ def _trends(values, factors, scale, max_weeks: int):
     weeks = min(max_weeks, n_days // 7)
     if weeks < MIN_TREND_WEEKS:
         return p_trend, change, used
-    weekly = rolling_window(values[:, -7 * weeks:], 7, factors[:, -7 * weeks:], period=7)[0][:, ::7] / scale[:, None]
+    weekly = weekly_levels(values[:, -7 * weeks:], factors[:, -7 * weeks:]) / scale[:, None]
     # Whole weeks counted back from the last: the first missing one ends the run.
     missing = ~np.isfinite(weekly[:, ::-1])
     run = np.where(missing.any(axis=1), missing.argmax(axis=1), weeks)

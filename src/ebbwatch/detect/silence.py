@@ -40,5 +40,8 @@ def silence(values, reference_end, weekdays, first_seen, last_active=None):
     after_last = idx[None, :] > last_active[:, None]
     silent_cols = after_last & valid
     silent_days = silent_cols.sum(axis=1)
-    log_p = (silent_cols * log_q[:, weekdays]).sum(axis=1)
+    # Only the silent accounts' rows: most accounts were active on the last day.
+    silent_rows = np.flatnonzero(silent_days)
+    log_p = np.zeros(n_accounts)
+    log_p[silent_rows] = (silent_cols[silent_rows] * log_q[silent_rows][:, weekdays]).sum(axis=1)
     return silent_days, np.exp(log_p), last_active

@@ -54,6 +54,22 @@ def rolling_window(values, window: int, expected=None, min_valid: int | None = N
     return levels, levels * full_weights
 
 
+def weekly_levels(values, expected) -> np.ndarray:
+    """The levels of consecutive whole weeks, (A, W) from (A, 7·W) ``values`` and their weekday
+    factors ``expected``: the ratio estimator of :func:`rolling_window` over each week's valid
+    days, NaN where under four are valid.  The same as ``rolling_window(values, 7, expected)``
+    at every seventh column, summed week by week instead of from running sums."""
+    values = np.asarray(values, float)
+    n_accounts, n_days = values.shape
+    by_week = values.reshape(n_accounts, n_days // 7, 7)
+    valid = np.isfinite(by_week)
+    sums = np.where(valid, by_week, 0.0).sum(axis=2)
+    weights = np.where(valid, np.asarray(expected, float).reshape(by_week.shape), 0.0).sum(axis=2)
+    keep = (valid.sum(axis=2) >= 4) & (weights > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(keep, sums / weights, np.nan)
+
+
 def trailing_levels(values, weekday_factors, weekdays, window: int = 7) -> np.ndarray:
     """Each day's weekday-adjusted level over the ``window`` days ending on it, (A, D), NaN for
     the first ``window - 1`` days and where under half the window's days are valid.
