@@ -14,6 +14,18 @@ from __future__ import annotations
 import numpy as np
 
 
+def _zeroed(share, usable) -> np.ndarray:
+    """``share`` (A, 7, W) with unusable weeks and missing days as 0, ready to be summed."""
+    return np.where(usable[:, None, :] & np.isfinite(share), share, 0.0)
+
+
+def _split_statistic(before, after, within, nb, na, variance_floor: float) -> np.ndarray:
+    """T of two runs of weeks, (A,): their mean shares ``before`` and ``after`` (A, 7), the sum of
+    squares ``within`` both runs (A, 7) and their numbers of weeks ``nb``, ``na`` (A, 1)."""
+    variance = np.maximum(within, 0.0) / np.maximum(nb + na - 2, 1)
+    return ((after - before) ** 2 / ((variance + variance_floor) * (1 / nb + 1 / na))).sum(axis=1)
+
+
 def weekday_shape_split(share, usable, *, min_weeks: int = 3, variance_floor: float = 0.01):
     """The best split of each account's weeks into two weekday shapes.
 
@@ -26,7 +38,7 @@ def weekday_shape_split(share, usable, *, min_weeks: int = 3, variance_floor: fl
     share = np.asarray(share, float)
     usable = np.asarray(usable, bool)
     n_accounts, _, n_weeks = share.shape
-    x = np.where(usable[:, None, :] & np.isfinite(share), share, 0.0)
+    x = _zeroed(share, usable)
     zero = np.zeros((n_accounts, 7, 1))
     total = np.concatenate([zero, np.cumsum(x, axis=2)], axis=2)
     squares = np.concatenate([zero, np.cumsum(x * x, axis=2)], axis=2)
@@ -40,8 +52,7 @@ def weekday_shape_split(share, usable, *, min_weeks: int = 3, variance_floor: fl
         before = total[:, :, c] / nb
         after = (total[:, :, n_weeks] - total[:, :, c]) / na
         within = (squares[:, :, c] - nb * before**2 + (squares[:, :, n_weeks] - squares[:, :, c]) - na * after**2)
-        variance = np.maximum(within, 0.0) / np.maximum(nb + na - 2, 1)
-        statistic = ((after - before) ** 2 / ((variance + variance_floor) * (1 / nb + 1 / na))).sum(axis=1)
+        statistic = _split_statistic(before, after, within, nb, na, variance_floor)
         better = possible & (statistic > best)
         best = np.where(better, statistic, best)
         split = np.where(better, c, split)
@@ -70,7 +81,7 @@ def recent_weeks_departure(share, usable, *, recent_weeks=(1, 2), min_weeks_befo
     share = np.asarray(share, float)
     usable = np.asarray(usable, bool)
     n_accounts, _, n_weeks = share.shape
-    x = np.where(usable[:, None, :] & np.isfinite(share), share, 0.0)
+    x = _zeroed(share, usable)
     total, squares_total, n_total = x.sum(axis=2), (x * x).sum(axis=2), usable.sum(axis=1)
     # Usable weeks counted from the newest: the later run of r weeks is the last r usable weeks,
     # wherever unusable ones fall between them; each step adds the next one back (one week's
@@ -93,9 +104,8 @@ def recent_weeks_departure(share, usable, *, recent_weeks=(1, 2), min_weeks_befo
         na_, nb_ = np.maximum(na, 1)[:, None], np.maximum(nb, 1)[:, None]
         after = later_sum / na_
         before = (total - later_sum) / nb_
-        squares = squares_total - nb_ * before**2 - na_ * after**2  # within both runs
-        variance = np.maximum(squares, 0.0) / np.maximum(nb_ + na_ - 2, 1)
-        statistic = ((after - before) ** 2 / ((variance + variance_floor) * (1 / nb_ + 1 / na_))).sum(axis=1)
+        within = squares_total - nb_ * before**2 - na_ * after**2
+        statistic = _split_statistic(before, after, within, nb_, na_, variance_floor)
         better = possible & (statistic > best)
         best = np.where(better, statistic, best)
         shift = np.where(better, np.abs(after - before).max(axis=1), shift)
