@@ -94,6 +94,28 @@ def test_the_young_accounts_benchmark_cuts_quiet_histories_and_plants_changes_in
             assert made.counts[row, onset:].sum() < 0.9 * fleet.counts[row, onset:].sum()
 
 
+def test_the_lead_ceiling_cuts_each_detector_at_the_same_share_of_quiet_days():
+    """``lead_ceiling.py``: each detector is cut where the given share of the quiet rows is
+    flagged, and the share of target rows past that cut is its recall (NaN statistics left out
+    of the cut)."""
+    import numpy as np
+
+    from .benchmarks.lead_ceiling import recall_at_quiet_share
+
+    quiet_p = np.linspace(0.001, 1.0, 1000)
+    frame = pd.DataFrame({
+        "role": ["quiet"] * 1000 + ["churn30"] * 4,
+        # the falling p-value: small is unusual; the told statistic: large is unusual
+        "p_down": np.concatenate([quiet_p, [0.0001, 0.005, 0.5, 0.9]]),
+        "told": np.concatenate([-quiet_p, [0.0, -0.001, -0.5, -0.0005]]),
+    })
+    frame.loc[3, "told"] = np.nan  # one quiet statistic unknown
+    at_one = recall_at_quiet_share(frame, "churn30", 0.01)
+    # Cut at the 1% quantile: p_down <= 0.01099 takes 2 of 4; told >= about -0.0109 takes 3 of 4.
+    assert at_one == {"ebbwatch": 0.5, "onset-told": 0.75, "n": 4}
+    assert recall_at_quiet_share(frame, "churn30", 0.6)["ebbwatch"] == 0.75
+
+
 def test_every_benchmark_script_answers_help_without_running():
     """``python tests/benchmarks/X.py --help`` prints its usage and exits: a help text with a '%'
     once crashed argparse, and a script without options ran its whole benchmark."""
