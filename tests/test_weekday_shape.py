@@ -171,3 +171,27 @@ def test_an_account_that_began_working_weekends_two_weeks_ago_is_not_a_weekend_s
     series[-14:] *= 3.0
     scores, _ = judge(np.vstack([totals, series]), as_of=SUNDAY)
     assert scores.loc[account, "p_up"] < 0.001
+
+
+def test_a_young_weekday_accounts_ordinary_weekend_is_not_a_drop():
+    """An account eight weeks old that works on weekdays only (a weekend day brings a
+    twenty-fifth of a weekday).  With its factors pulled toward flat by its number of weeks, its
+    weekend factors sat near 0.4 where its shares were 0.04, and every Sunday its 2-day window
+    read as a fall of over 90% (p 1e-10 on the development family's replayed year): a young
+    account has no history of its own windows to absorb that.  Pulled by their own noise, the
+    factors keep the weekends as seen (p_down 5e-5 -> 0.24 here); an empty working week is still
+    a drop."""
+    rng = np.random.default_rng(6)
+    totals = make_fleet(80, 365, as_of=SUNDAY, seed=3, share_changed=0.0).counts.sum(axis=2)
+    series = np.zeros(totals.shape[1])
+    series[-56:] = _counts(rng, [WEEKDAYS_ONLY] * 8, np.array([40.0]))[0]
+    scores, alerts = judge(np.vstack([totals, series]), as_of=SUNDAY)
+    account = f"a{totals.shape[0]}"
+    row = scores.loc[account]
+    assert row["status"] == "judged" and account not in set(alerts["account"]), alerts
+    assert row["p_down"] > 0.01, row[["p_down", "window_down", "change_down_pct", "model"]]
+    factors = np.asarray(row["weekday_factors"])
+    assert factors[5] < 0.2 and factors[6] < 0.2, factors
+    series[-7:-2] = 0.0  # Monday to Friday empty: five days where some forty events were usual
+    scores, _ = judge(np.vstack([totals, series]), as_of=SUNDAY)
+    assert scores.loc[account, "p_down"] < 0.001

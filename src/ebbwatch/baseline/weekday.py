@@ -40,20 +40,35 @@ class WeekdayProfile(Estimator):
         :func:`~ebbwatch.baseline.shape_change.carried_on`), ``recent_change_`` is set: a new shape
         is starting that is too young to vote alone.  The factors are unchanged.  None: not
         tested.
+    factor_spread : float or None
+        Where an account has fewer usable weeks than the fitted days hold (it is young, or its
+        weekday shape changed among them), each weekday's factor is pulled toward 1 by its own
+        noise instead of by the number of weeks: with weight ``factor_spread² / (factor_spread² +
+        se²)``, ``se²`` the variance of the median of its weekly shares (π/2 times their variance
+        over the weeks, that variance from their MAD pooled with ``share_noise²`` worth two weeks).
+        A shape seen clearly over a few weeks (a weekday-only account's empty weekends) is then
+        kept as seen, where the count-based pull made those weekends read as falls.  None: the
+        count-based pull everywhere.
+    share_noise : float
+        The week-to-week standard deviation of a weekday's share assumed before an account's own
+        weeks tell it (in units of the week's mean).
     """
 
     _parameters = ("shrink_weeks", "floor", "min_days_per_week", "change_statistic", "change_shift",
-                   "recent_statistic")
+                   "recent_statistic", "factor_spread", "share_noise")
 
     def __init__(self, shrink_weeks: float = 4.0, floor: float = 0.1, min_days_per_week: int = 6,
                  change_statistic: float | None = None, change_shift: float = 0.4,
-                 recent_statistic: float | None = None):
+                 recent_statistic: float | None = None, factor_spread: float | None = None,
+                 share_noise: float = 0.35):
         self.shrink_weeks = shrink_weeks
         self.floor = floor
         self.min_days_per_week = min_days_per_week
         self.change_statistic = change_statistic
         self.change_shift = change_shift
         self.recent_statistic = recent_statistic
+        self.factor_spread = factor_spread
+        self.share_noise = share_noise
 
     def fit(self, values, first_weekday: int, following=None):
         """``values`` (A, D) with NaN for missing days; ``first_weekday`` of column 0 (Monday 0);
@@ -67,6 +82,8 @@ class WeekdayProfile(Estimator):
         """
         if self.shrink_weeks < 0 or not 0 < self.floor < 1:
             raise ValueError("shrink_weeks must be >= 0 and floor in (0, 1)")
+        if (self.factor_spread is not None and self.factor_spread <= 0) or self.share_noise < 0:
+            raise ValueError("factor_spread must be None or > 0, and share_noise >= 0")
         if any(s is not None and s < 0 for s in (self.change_statistic, self.recent_statistic)) or self.change_shift < 0:
             raise ValueError("change_statistic and recent_statistic must be None or >= 0, and change_shift >= 0")
         values = check_matrix(values, "values")
@@ -105,15 +122,20 @@ class WeekdayProfile(Estimator):
                 carried = carried_on(before_shares, change, check_matrix(following, "following")[:, :7])
                 with np.errstate(invalid="ignore"):
                     recent = (statistic > self.recent_statistic) & (shift > self.change_shift) & (carried >= 0.5)
+            weeks_used = usable.sum(axis=1)
+            by_noise = np.flatnonzero(weeks_used < n_weeks) if self.factor_spread is not None else np.array([], int)
+            shares_by_noise = share[by_noise]  # a copy: the medians below overwrite ``share``
             by_day = share.reshape(n_accounts * 7, n_weeks)
             raw = fast_nanmedian_rows(by_day, overwrite_input=True).reshape(n_accounts, 7)  # by column position
-            weeks_used = usable.sum(axis=1)
             raw = np.where(np.isfinite(raw), raw, 1.0)
-            mean = raw.mean(axis=1, keepdims=True)
-            raw = np.where(mean > 0, raw / np.where(mean > 0, mean, 1.0), 1.0)
             weight = weeks_used / (weeks_used + self.shrink_weeks) if self.shrink_weeks else (weeks_used > 0) * 1.0
             weight = np.where(changed, weeks_used / np.maximum(weeks_used + 0.25 * self.shrink_weeks, 1e-9), weight)
-            shrunk = 1.0 + (raw - 1.0) * weight[:, None]
+            weight = np.repeat(weight[:, None], 7, axis=1)
+            if by_noise.size:
+                weight[by_noise] = self._noise_weights(shares_by_noise, raw[by_noise], weeks_used[by_noise])
+            mean = raw.mean(axis=1, keepdims=True)
+            raw = np.where(mean > 0, raw / np.where(mean > 0, mean, 1.0), 1.0)
+            shrunk = 1.0 + (raw - 1.0) * weight
             shrunk = np.maximum(shrunk, self.floor)
             shrunk /= shrunk.mean(axis=1, keepdims=True)
             position_weekday = (first_weekday + offset + np.arange(7)) % 7
@@ -123,6 +145,20 @@ class WeekdayProfile(Estimator):
         self.change_start_ = change_start
         self.recent_change_ = recent
         return self
+
+    def _noise_weights(self, shares, medians, weeks) -> np.ndarray:
+        """Per row and weekday, the pull of the median share ``medians`` (R, 7) away from 1:
+        ``factor_spread² / (factor_spread² + se²)`` (see the class), from the weekly shares
+        ``shares`` (R, 7, W; NaN in weeks that do not vote) and the weeks that voted (R,)."""
+        deviation = np.abs(shares - medians[:, :, None]).reshape(-1, shares.shape[2])
+        spread = 1.4826 * fast_nanmedian_rows(deviation, overwrite_input=True).reshape(medians.shape)
+        spread = np.where(np.isfinite(spread), spread, 0.0)
+        n = weeks[:, None].astype(float)
+        prior_weeks = 2.0
+        pooled = (n * spread ** 2 + prior_weeks * self.share_noise ** 2) / (n + prior_weeks)
+        with np.errstate(divide="ignore"):
+            se2 = np.where(n > 0, (np.pi / 2) * pooled / np.maximum(n, 1.0), np.inf)
+        return self.factor_spread ** 2 / (self.factor_spread ** 2 + se2)
 
     def expected(self, weekdays) -> np.ndarray:
         """Factors for each column, (A, D), given the weekday of each column."""

@@ -115,6 +115,11 @@ class ScanParams:
     # on: a new shape too young for the split, during which windows shorter than a week are not
     # judged.  None: not tested.
     recent_shape_statistic: float | None = 25.0
+    # A young account's weekday factors (or those since a change of shape) pulled toward flat by
+    # their own noise rather than by their number of weeks (baseline.WeekdayProfile's
+    # factor_spread): its short windows have no history of their own to absorb a factor's bias.
+    # None: by the number of weeks.
+    weekday_factor_spread: float | None = 0.5
     onset_screen_p: float = 0.01
 
 
@@ -151,7 +156,8 @@ def _weekday_factors(values, weekdays, hist_end: int, params: ScanParams):
     first = max(0, hist_end - 7 * params.profile_weeks)
     following = values[:, hist_end:hist_end + 7] if values.shape[1] - hist_end >= 7 else None
     profile = WeekdayProfile(change_statistic=params.shape_change_statistic,
-                             recent_statistic=params.recent_shape_statistic).fit(
+                             recent_statistic=params.recent_shape_statistic,
+                             factor_spread=params.weekday_factor_spread).fit(
         values[:, first:hist_end], int(weekdays[first]), following=following)
     shape_since = np.where(profile.change_start_ >= 0, first + profile.change_start_, -1)
     return profile, profile.factors_[:, weekdays], shape_since, (shape_since >= 0) | profile.recent_change_
