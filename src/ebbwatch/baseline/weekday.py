@@ -8,6 +8,8 @@ from ..series import fast_nanmedian_rows
 from ._base import Estimator, check_matrix
 from .shape_change import carried_on, recent_weeks_departure, weekday_shape_split
 
+SHARE_NOISE_WEEKS = 2.0  # weeks the assumed share noise counts for beside an account's own weeks
+
 
 class WeekdayProfile(Estimator):
     """Day-of-week factors, the median over weeks of each day's share of its week's mean.
@@ -41,11 +43,12 @@ class WeekdayProfile(Estimator):
         is starting that is too young to vote alone.  The factors are unchanged.  None: not
         tested.
     factor_spread : float or None
-        Where an account has fewer usable weeks than the fitted days hold (it is young, or its
-        weekday shape changed among them), each weekday's factor is pulled toward 1 by its own
+        Where an account has fewer usable weeks than the fitted days hold (it is young, a week of
+        it is missing, or its weekday shape changed among them), each weekday's factor is pulled toward 1 by its own
         noise instead of by the number of weeks: with weight ``factor_spread² / (factor_spread² +
         se²)``, ``se²`` the variance of the median of its weekly shares (π/2 times their variance
-        over the weeks, that variance from their MAD pooled with ``share_noise²`` worth two weeks).
+        over the weeks, that variance from their MAD pooled with ``share_noise²`` worth
+        ``SHARE_NOISE_WEEKS`` weeks).
         A shape seen clearly over a few weeks (a weekday-only account's empty weekends) is then
         kept as seen, where the count-based pull made those weekends read as falls.  None: the
         count-based pull everywhere.
@@ -154,8 +157,7 @@ class WeekdayProfile(Estimator):
         spread = 1.4826 * fast_nanmedian_rows(deviation, overwrite_input=True).reshape(medians.shape)
         spread = np.where(np.isfinite(spread), spread, 0.0)
         n = weeks[:, None].astype(float)
-        prior_weeks = 2.0
-        pooled = (n * spread ** 2 + prior_weeks * self.share_noise ** 2) / (n + prior_weeks)
+        pooled = (n * spread ** 2 + SHARE_NOISE_WEEKS * self.share_noise ** 2) / (n + SHARE_NOISE_WEEKS)
         with np.errstate(divide="ignore"):
             se2 = np.where(n > 0, (np.pi / 2) * pooled / np.maximum(n, 1.0), np.inf)
         return self.factor_spread ** 2 / (self.factor_spread ** 2 + se2)
