@@ -43,7 +43,7 @@ def scored_days(fleet, db: str, leads=LEADS) -> pd.DataFrame:
     import ebbwatch
 
     start = fleet.start
-    weekday = np.array([(start + timedelta(days=c)).weekday() for c in range(fleet.n_days)])
+    weekday = (start.weekday() + np.arange(fleet.n_days)) % 7
     truth = fleet.truth.set_index("account")
     index = {a: i for i, a in enumerate(fleet.accounts)}
     slide_start = fleet.episodes.drop_duplicates("account").set_index("account")["start"]
