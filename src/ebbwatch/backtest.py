@@ -15,6 +15,7 @@ import pandas as pd
 from .alerts import RESOLVE_DAYS, select_alerts
 from .baseline.counts import pooled_dispersion
 from .detect import ScanParams, fleet_window_priors, score_panel
+from .detect.fleet_null import N_BINS, against_fleet, judged_tallies
 from .fleet import fleet_factor
 from .series import Panel, missing_before_first_full_day
 
@@ -92,12 +93,14 @@ def replay_scores(panel: Panel, as_of_days, fleet_factors: list, *, params: Scan
     ``panel``: the block's whole history without a fleet factor; ``fleet_factors`` from
     :func:`replay_fleet_factors` (fleet-wide, so every block sees the same ones); ``churn``: per
     account the day of its cancellation (:func:`churn_days`), after which it is not judged.
-    Returns ``(candidates, judged)``: the score rows of judged accounts with a p-value at or
-    below ``fdr`` (only those can pass the Benjamini–Hochberg step), with an ``as_of_day``
-    column; and per replayed day the number of accounts judged (int64, len(as_of_days)).
+    Returns ``(candidates, tallies)``: the score rows of judged accounts with a p-value at or
+    below ``fdr`` (only those can pass the Benjamini–Hochberg step, and the fleet's null never
+    lowers a p-value), with an ``as_of_day`` column; and per replayed day the probit tallies of
+    the judged accounts' ``p_down`` and ``p_up`` (int64, (len(as_of_days), 2, ``fleet_null.N_BINS``);
+    each direction's tally sums to the accounts judged), which add up over blocks.
     """
     churn = np.full(len(panel.accounts), np.iinfo(np.int64).max) if churn is None else np.asarray(churn)
-    found, judged = [], np.zeros(len(as_of_days), dtype=np.int64)
+    found, tallies = [], np.zeros((len(as_of_days), 2, N_BINS), dtype=np.int64)
     for i, (day, (factor, masked, dispersion, priors)) in enumerate(zip(as_of_days, fleet_factors)):
         end = day - panel.start_day
         part = _slice(panel, end - history_days + 1, end, factor, masked)
@@ -106,7 +109,7 @@ def replay_scores(panel: Panel, as_of_days, fleet_factors: list, *, params: Scan
                      part.first_seen[keep], part.masked, part.fleet_factor)
         scores = score_panel(part, replace(params, pooled_count_dispersion=dispersion, window_priors=priors))
         is_judged = (scores["status"] == "judged").to_numpy()
-        judged[i] = int(is_judged.sum())
+        tallies[i] = judged_tallies(scores)
         small = np.minimum(scores["p_down"].to_numpy(float), scores["p_up"].to_numpy(float)) <= fdr
         rows = scores[is_judged & small]
         if len(rows):
@@ -114,33 +117,41 @@ def replay_scores(panel: Panel, as_of_days, fleet_factors: list, *, params: Scan
         if progress:
             progress(i + 1, len(as_of_days))
     candidates = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=["as_of_day"])
-    return candidates, judged
+    return candidates, tallies
 
 
-def select_replayed(candidates: pd.DataFrame, judged, as_of_days, *, fdr: float = 0.01, min_change_pct: float = 30.0,
-                    window_days: int = 7) -> tuple[pd.DataFrame, pd.DataFrame]:
+def select_replayed(candidates: pd.DataFrame, tallies, as_of_days, *, fdr: float = 0.01, min_change_pct: float = 30.0,
+                    window_days: int = 7, fleet_null_trigger: float = -0.5,
+                    read_against_fleet: bool = False) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The fleet-wide half of :func:`replay`: per day, the alerts among every block's candidates.
 
-    ``judged``: per day the fleet's judged accounts (the blocks' counts summed), so each day's
-    Benjamini–Hochberg family is the whole fleet's two p-values per account, as in the daily scan.
-    Returns ``(alerts, exposure)`` as :func:`replay` does.
+    ``tallies``: per day the fleet's probit tallies (the blocks' summed, :func:`replay_scores`), so
+    each day's :class:`fleet_null.FleetNull` is the whole fleet's (its p-values read against it with
+    ``read_against_fleet``) and its Benjamini–Hochberg family the whole fleet's two p-values per
+    account, as in the daily scan.  Returns ``(alerts, exposure)`` as :func:`replay` does;
+    ``exposure`` also says the days the fleet moved as a whole (``fleet_null``: ``down``, ``up``,
+    ``both`` or empty).
     """
     found, exposure = [], []
     by_day = dict(tuple(candidates.groupby("as_of_day"))) if len(candidates) else {}
-    for day, n_judged in zip(as_of_days, judged):
+    for day, tally in zip(as_of_days, tallies):
         as_of = EPOCH + timedelta(days=int(day))
-        exposure.append({"as_of": as_of, "judged": int(n_judged)})
         rows = by_day.get(int(day))
-        if rows is None:
+        rows, nulls = against_fleet(rows if rows is not None else pd.DataFrame({"status": []}), tally,
+                                    trigger=fleet_null_trigger, apply=read_against_fleet)
+        acted = [d for d in ("down", "up") if nulls[d]["moved"]]
+        exposure.append({"as_of": as_of, "judged": int(tally[0].sum()),
+                         "fleet_null": "both" if len(acted) == 2 else "".join(acted)})
+        if not len(rows):
             continue
         alerts = select_alerts(rows.drop(columns="as_of_day"), as_of=as_of, fdr=fdr, max_alerts=None,
                                min_change_pct=min_change_pct, window_days=window_days,
-                               family_size=2 * int(n_judged))
+                               family_size=2 * int(tally[0].sum()))
         if len(alerts):
             found.append(alerts[REPLAY_COLUMNS])
     alerts = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=REPLAY_COLUMNS)
     alerts["as_of"] = pd.to_datetime(alerts["as_of"]).dt.date
-    return alerts, pd.DataFrame(exposure, columns=["as_of", "judged"])
+    return alerts, pd.DataFrame(exposure, columns=["as_of", "judged", "fleet_null"])
 
 
 def replay(panel: Panel, as_of_days, *, params: ScanParams = ScanParams(), history_days: int = 365,
@@ -158,10 +169,11 @@ def replay(panel: Panel, as_of_days, *, params: ScanParams = ScanParams(), histo
     step = max(1, len(panel.accounts) // fleet_sample)
     factors = replay_fleet_factors(panel.counts[::step], panel.start_day, as_of_days, history_days=history_days,
                                    params=params)
-    candidates, judged = replay_scores(panel, as_of_days, factors, params=params, history_days=history_days,
-                                       churn=churn_days(panel.accounts, outcomes), fdr=fdr, progress=progress)
-    return select_replayed(candidates, judged, as_of_days, fdr=fdr, min_change_pct=min_change_pct,
-                           window_days=params.window_days)
+    candidates, tallies = replay_scores(panel, as_of_days, factors, params=params, history_days=history_days,
+                                        churn=churn_days(panel.accounts, outcomes), fdr=fdr, progress=progress)
+    return select_replayed(candidates, tallies, as_of_days, fdr=fdr, min_change_pct=min_change_pct,
+                           window_days=params.window_days, fleet_null_trigger=params.fleet_null_trigger,
+                           read_against_fleet=params.read_against_fleet)
 
 
 def lookback_days(sampled_days, resolve_days: int = RESOLVE_DAYS) -> list[int]:

@@ -70,6 +70,7 @@ class ScanConfig:
     min_change_pct: float = 30.0
     min_severity: float = 0.0
     dormant_days: int = 91
+    read_against_fleet: bool = False
 
 
 @dataclass(frozen=True)

@@ -122,7 +122,8 @@ def run(family: str, seed: int, accounts: int, step: int, workdir: Path) -> dict
             "false_per_100": false_episodes_per_100_months(result, fleet),
             "strict_false_per_100": false_episodes_per_100_months(result, fleet, count_level_shifts=True),
             "api_false_per_100": result["false_alerts_per_100_account_months"],
-            "alerts_per_day": result["alerts_per_day"], "seconds": result["seconds"]}
+            "alerts_per_day": result["alerts_per_day"], "seconds": result["seconds"],
+            "null_days": result.get("fleet_null_days", {})}
 
 
 def main(argv=None):
@@ -133,7 +134,8 @@ def main(argv=None):
     parser.add_argument("--step", type=int, default=1)
     args = parser.parse_args(argv)
     print(f"{'family':<8}{'seed':>5}{'churned at 30d':>18}{'any':>6}{'ceil':>6}{'lead':>6}"
-          f"{'expanded at 30d':>18}{'any':>6}{'ceil':>6}{'lead':>6}{'false/100 acct-mo':>19}{'(+shifts)':>10}{'(any change)':>14}{'alerts/day':>12}{'s':>6}")
+          f"{'expanded at 30d':>18}{'any':>6}{'ceil':>6}{'lead':>6}{'false/100 acct-mo':>19}{'(+shifts)':>10}{'(any change)':>14}{'alerts/day':>12}{'s':>6}"
+          f"{'fleet-null days down/up':>25}")
     for family in args.families.split(","):
         rows = []
         for seed in range(args.seeds):
@@ -145,7 +147,8 @@ def main(argv=None):
                   f"{r['expanded']:>12.2f} ({r['expanded_n']:>2}){r['expanded_any']:>6.2f}"
                   f"{r['expanded_ceiling']:>6.2f}{r['expanded_lead'] or 0:>6.0f}"
                   f"{r['false_per_100']:>19.2f}{r['strict_false_per_100']:>10.2f}{r['api_false_per_100']:>14.2f}"
-                  f"{r['alerts_per_day']:>12.2f}{r['seconds']:>6.0f}")
+                  f"{r['alerts_per_day']:>12.2f}{r['seconds']:>6.0f}"
+                  f"{r['null_days'].get('down', 0):>20}/{r['null_days'].get('up', 0)}")
         pooled = {key: sum(r[key] * r[f"{kind}_n"] for r in rows) / sum(r[f"{kind}_n"] for r in rows)
                   for kind in ("churned", "expanded") for key in (kind, f"{kind}_any", f"{kind}_ceiling")}
         print(f"{family:<8}{'all':>5}{pooled['churned']:>17.2f}{pooled['churned_any']:>6.2f}{pooled['churned_ceiling']:>6.2f}"

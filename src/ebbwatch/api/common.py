@@ -31,7 +31,7 @@ SCORING_ONLY = ("windows", "reference_days", "history_gap_days", "cusum_threshol
                 "pooled_count_dispersion", "window_priors", "log_offset", "stop_p", "trend_screen_p", "ramp_advantage",
                 "profile_weeks", "shape_change_statistic", "recent_shape_statistic", "weekday_factor_spread",
                 "onset_screen_p", "falling_screen_p", "heavy_day_multiple", "falling_median_reference_from",
-                "rising_screen_p", "rising_median_reference_from")
+                "rising_screen_p", "rising_median_reference_from", "fleet_null_trigger")
 
 
 def scan_settings_for_scoring() -> tuple[str, ...]:

@@ -35,6 +35,7 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     """
     import functools
 
+    from ..detect.fleet_null import N_BINS
     from ..backtest import (calibrate, churn_days, evaluate, lookback_days, replay_fleet_factors, select_replayed,
                            sweep)
     from ..engine import default_threads
@@ -101,9 +102,11 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
 
     found = [candidates for candidates, _ in results if len(candidates)]
     candidates = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=["as_of_day"])
-    judged = np.sum([j for _, j in results], axis=0) if results else np.zeros(len(days), dtype=np.int64)
-    alerts, exposure = select_replayed(candidates, judged, days, fdr=cfg.scan.fdr,
-                                       min_change_pct=cfg.scan.min_change_pct, window_days=params.window_days)
+    tallies = np.sum([t for _, t in results], axis=0) if results else np.zeros((len(days), 2, N_BINS), dtype=np.int64)
+    alerts, exposure = select_replayed(candidates, tallies, days, fdr=cfg.scan.fdr,
+                                       min_change_pct=cfg.scan.min_change_pct, window_days=params.window_days,
+                                       fleet_null_trigger=params.fleet_null_trigger,
+                                       read_against_fleet=params.read_against_fleet)
     exposure["sampled"] = np.isin(days, sampled)
     kw = dict(lead_days=lead_days, horizon_days=horizon_days)
     result = evaluate(alerts[alerts["severity"] >= cfg.scan.min_severity], outcome_frame, exposure, **kw)
@@ -121,6 +124,9 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
             "min_severity": chosen["min_severity"], "budget": budget, "target_precision": target_precision,
             "alerts_per_day": chosen["alerts_per_day"],
             "config": f"[scan]\nmin_severity = {chosen['min_severity']}\n"},
+        "fleet_null_days": {d: int((exposure["sampled"] & exposure["fleet_null"].isin([d, "both"])).sum())
+                            for d in ("down", "up")},
+        "read_against_fleet": params.read_against_fleet,
         "seconds": round(time.perf_counter() - started, 3),
         "outcomes_for_unknown_accounts": {"outcomes": int((~held).sum()), "accounts": len(unknown),
                                           "examples": unknown[:5]},

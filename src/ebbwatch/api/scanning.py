@@ -117,6 +117,14 @@ def scan(
             finally:
                 loader.wait_for_fleet()
             scores = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
+        # On a day the fleet's typical account moves, each account may be read against the fleet.
+        fleet_null = None
+        if len(scores):
+            from ..detect.fleet_null import against_fleet, judged_tallies
+
+            params = _fleet_params(cfg, loader)
+            scores, fleet_null = against_fleet(scores, judged_tallies(scores), trigger=params.fleet_null_trigger,
+                                               apply=params.read_against_fleet)
         # The day's judgement is the whole fleet's, whatever is printed: --kind, --max-alerts and
         # the output format choose what is shown, never what is recorded.
         alerts = select_alerts(
@@ -169,6 +177,7 @@ def scan(
         "history_changed": history_changed,
         "masked_days": masked_days,
         "fleet_factor": fleet_factor_summary(loader.fleet_voters),
+        "fleet_null": fleet_null,
         "seconds": round(time.perf_counter() - started, 3),
     }
     if at_risk is not None:

@@ -76,7 +76,7 @@ def scan(db, config_path, as_of, fmt, kinds, max_alerts, fail_on_alert, chunk_si
         f"{' (recorded)' if summary['recorded'] else ''}; {summary['judged']:,} accounts judged, "
         f"{len(summary['not_enough_history']):,} with not enough history, {summary['dormant']:,} dormant"
         + (f"; masked data-gap days: {', '.join(summary['masked_days'])}" if summary["masked_days"] else "")
-        + _fleet_words(summary["fleet_factor"])
+        + _fleet_words(summary["fleet_factor"]) + _fleet_null_words(summary.get("fleet_null"))
         + ("" if summary["as_of_reason"].startswith("given") else f"; judged {summary['as_of_reason']}") + ".",
         err=True,
     )
@@ -100,6 +100,16 @@ def _fleet_words(fleet: dict) -> str:
         return f"; fleet-wide days read from {fleet['voting_accounts']:,} accounts"
     return (f"; no fleet-wide factor ({fleet['voting_accounts']} account(s) vote, {fleet['needed_for_large_moves']} "
             "needed): each account judged on its own")
+
+
+def _fleet_null_words(nulls: dict | None) -> str:
+    moved = {"down": "falling", "up": "rising"}
+    words = [f"the fleet's typical account is {moved[d]} today (median z {n['median_z']:+.2f}): "
+             + (f"{moved[d]} p-values read against the fleet's own spread (centre {n['shift']:+.2f}, scale "
+                f"{n['scale']:.2f})" if n["applied"] else
+                "[scan] read_against_fleet = true would read each account against the fleet's own spread")
+             for d, n in (nulls or {}).items() if n["moved"]]
+    return "".join(f"; {w}" for w in words)
 
 
 @main.command("explain")

@@ -13,12 +13,12 @@ import pandas as pd
 
 from ..baseline import WeekdayProfile
 from ..series import Panel, adjust_for_fleet, missing_before_first_full_day, quiet_nanmean, weekday_of
-from .calibrate import cauchy_combination, nested_min_p
+from .calibrate import nested_min_p
 from .changepoint import ChangepointSearch, changepoints, cusum_split, fill_gaps, robust_sigma
 from .contrasts import BASE_WINDOW, WindowPriors, WindowTests, window_priors
 from .heavy_days import cap_heavy_days
 from .second_looks import falling_tail_second_look, long_windows, rising_tail_against_median_week
-from .silence import last_active_column, silence
+from .silence import SILENT_DAYS, falling_p, last_active_column, silence
 from .tail import weekly_levels
 from .trend import step_or_ramp, trend_test
 
@@ -121,6 +121,10 @@ class ScanParams:
     # None: by the number of weeks.
     weekday_factor_spread: float | None = 0.5
     onset_screen_p: float = 0.01
+    # A day whose median account's probit is below ``fleet_null_trigger`` moved as a fleet
+    # (detect.fleet_null.FleetNull); with ``read_against_fleet`` its p-values are read against it.
+    read_against_fleet: bool = False
+    fleet_null_trigger: float = -0.5
 
 
 SCORE_COLUMNS = (
@@ -295,9 +299,9 @@ def score_panel(panel: Panel, params: ScanParams = ScanParams()) -> pd.DataFrame
     silent_days, p_silence, last_active = silence(values, np.minimum(hist_end, last_active + 1), weekdays,
                                                   np.maximum(first_seen, shape_since), last_active=last_active)
     dormant = silent_days >= params.dormant_days
-    silent = silent_days >= 2
+    silent = silent_days >= SILENT_DAYS
     p_stop = np.where(silent, p_silence, 1.0)
-    p_down = np.where(silent, cauchy_combination(np.vstack([p_level_low, p_stop])), p_level_low)
+    p_down = falling_p(p_level_low, p_stop, silent_days)
     p_up = p_level_high
 
     # Onset and levels: a vectorised CUSUM screen, then the exact search on the accounts it picks.

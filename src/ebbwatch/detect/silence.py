@@ -4,6 +4,21 @@ from __future__ import annotations
 
 import numpy as np
 
+from .calibrate import cauchy_combination
+
+SILENT_DAYS = 2  # the fewest quiet days in a row whose chance joins the falling p-value
+
+
+def falling_p(p_level_low, p_stop, silent_days) -> np.ndarray:
+    """The falling p-value (A,): the window tests' ``p_level_low``, joined by the Cauchy
+    combination with the silence test's ``p_stop`` where the account has been silent for
+    ``SILENT_DAYS`` or more (``silent_days``, (A,))."""
+    silent = np.asarray(silent_days) >= SILENT_DAYS
+    p_level_low = np.asarray(p_level_low, float)
+    if not silent.any():
+        return p_level_low
+    return np.where(silent, cauchy_combination(np.vstack([p_level_low, p_stop])), p_level_low)
+
 
 def last_active_column(values) -> np.ndarray:
     """Column of each account's last day with activity, -1 if none; (A,)."""

@@ -30,6 +30,12 @@ def render_backtest(r: dict) -> str:
         names = ", ".join(unknown["examples"]) + (", ..." if unknown["accounts"] > len(unknown["examples"]) else "")
         lines.append(f"  left out: {unknown['outcomes']} outcome(s) of {unknown['accounts']} account(s) the store "
                      f"does not hold ({names}); a misspelt id?")
+    null_days = r.get("fleet_null_days") or {}
+    if any(null_days.values()):
+        then = ("each account read against the fleet's spread on them" if r.get("read_against_fleet") else
+                "[scan] read_against_fleet = true reads each account against the fleet's spread on them")
+        lines.append(f"  days the fleet's typical account itself moved: {null_days.get('down', 0)} falling, "
+                     f"{null_days.get('up', 0)} rising ({then})")
     fa = r["false_alerts_per_100_account_months"]
     lines += ["", f"new alerts on the days judged {r['alert_episodes']}, {r['alerts_per_day']:.2f} a day; false alerts "
                   f"{'-' if fa is None else f'{fa:.2f}'} per 100 account-months", "",

@@ -152,8 +152,15 @@ def _fleet_section(data: dict) -> list[str]:
     s, fleet = data["summary"], data["fleet"]
     masked = [i for i, m in enumerate(fleet["masked"]) if m]
     dips = [i for i, f in enumerate(fleet["factor"]) if f < 0.9 and not fleet["masked"][i]]
+    moved = {"down": "falling", "up": "rising"}
+    nulls = [f'<p>The fleet\'s typical account is {moved[d]} today (median z {n["median_z"]:+.2f}): '
+             + (f'{moved[d]} p-values were read against the fleet\'s own spread (centre {n["shift"]:+.2f}, scale '
+                f'{n["scale"]:.2f}), not against each account\'s history alone.</p>' if n["applied"] else
+                'a move of the whole fleet, which the accounts\' alerts also show; <code>[scan] read_against_fleet '
+                '= true</code> reads each account against the fleet\'s own spread on such days.</p>')
+             for d, n in (s.get("fleet_null") or {}).items() if n["moved"]]
     return ['<h3>Fleet-wide daily factor</h3>',
-            _fleet_words(s.get("fleet_factor", {})),
+            _fleet_words(s.get("fleet_factor", {})), *nulls,
             '<p class="muted">1 is an ordinary day (the dotted line); grey stripes mark masked data-gap days'
             + (f" ({esc(', '.join(fleet['masked_days']))})" if fleet["masked_days"] else "")
             + (f"; {len(dips)} day(s) under 0.9 were divided out as fleet-wide dips" if dips else "") + ".</p>",
