@@ -123,3 +123,16 @@ def test_a_day_the_whole_fleet_is_lower_is_told_and_on_request_raises_the_stops_
     assert away.attrs["summary"]["fleet_null"]["down"]["applied"]
     assert {"a000", "a001", "a002"} <= set(away.loc[away["kind"] == "stop", "account"])
     assert (away["direction"] == "down").sum() <= 6  # 2% of 300
+
+
+def test_the_backtest_reads_every_block_against_the_same_fleet(tmp_path):
+    db = _store(tmp_path, away=True)
+    outcomes = tmp_path / "outcomes.csv"
+    pd.DataFrame({"account": ["a000"], "date": [AS_OF.isoformat()], "outcome": ["churned"]}).to_csv(outcomes, index=False)
+    asked = Config(scan=ScanConfig(read_against_fleet=True))
+    runs = [ebbwatch.backtest(str(outcomes), start=AS_OF - timedelta(days=2), end=AS_OF, db=db, config=asked,
+                              chunk_size=size) for size in (40, 1000)]
+    for r in runs:
+        assert r["read_against_fleet"] and r["fleet_null_days"]["down"] == 3
+    pd.testing.assert_frame_equal(runs[0]["_alerts"].reset_index(drop=True), runs[1]["_alerts"].reset_index(drop=True))
+    assert (runs[0]["_alerts"]["as_of"] == AS_OF).sum() <= 6

@@ -96,8 +96,9 @@ def replay_scores(panel: Panel, as_of_days, fleet_factors: list, *, params: Scan
     Returns ``(candidates, tallies)``: the score rows of judged accounts with a p-value at or
     below ``fdr`` (only those can pass the Benjamini–Hochberg step, and the fleet's null never
     lowers a p-value), with an ``as_of_day`` column; and per replayed day the probit tallies of
-    the judged accounts' ``p_down`` and ``p_up`` (int64, (len(as_of_days), 2, ``fleet_null.N_BINS``);
-    each direction's tally sums to the accounts judged), which add up over blocks.
+    the judged accounts' window tests, falling and rising (``fleet_null.judged_tallies``; int64,
+    (len(as_of_days), 2, ``fleet_null.N_BINS``); each sums to the accounts judged), which add up
+    over blocks.
     """
     churn = np.full(len(panel.accounts), np.iinfo(np.int64).max) if churn is None else np.asarray(churn)
     found, tallies = [], np.zeros((len(as_of_days), 2, N_BINS), dtype=np.int64)

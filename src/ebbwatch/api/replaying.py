@@ -35,9 +35,9 @@ def backtest(outcomes: str, *, start=None, end=None, step: int = 1, lead_days: i
     """
     import functools
 
-    from ..detect.fleet_null import N_BINS
     from ..backtest import (calibrate, churn_days, evaluate, lookback_days, replay_fleet_factors, select_replayed,
                            sweep)
+    from ..detect.fleet_null import N_BINS
     from ..engine import default_threads
     from ..ingest.csvs import read_outcomes
 
