@@ -118,6 +118,9 @@ def test_a_day_the_whole_fleet_is_lower_is_told_and_on_request_raises_the_stops_
     assert (told["direction"] == "down").sum() > 50  # by default each account is judged on its own
     line = CliRunner().invoke(main, ["scan", "--db", db, "--as-of", AS_OF.isoformat()]).stderr
     assert "typical account is falling today" in line and "read_against_fleet = true" in line
+    page = tmp_path / "report.html"
+    assert CliRunner().invoke(main, ["report", "--db", db, "--as-of", AS_OF.isoformat(), "--html", str(page)]).exit_code == 0
+    assert "typical account is falling today" in page.read_text()
     asked = Config(scan=ScanConfig(read_against_fleet=True))
     away = ebbwatch.scan(db=db, as_of=AS_OF, max_alerts=1000, drivers=False, config=asked)
     assert away.attrs["summary"]["fleet_null"]["down"]["applied"]
