@@ -103,13 +103,9 @@ def _fleet_words(fleet: dict) -> str:
 
 
 def _fleet_null_words(nulls: dict | None) -> str:
-    moved = {"down": "falling", "up": "rising"}
-    words = [f"the fleet's typical account is {moved[d]} today (median z {n['median_z']:+.2f}): "
-             + (f"{moved[d]} p-values read against the fleet's own spread (centre {n['shift']:+.2f}, scale "
-                f"{n['scale']:.2f})" if n["applied"] else
-                "[scan] read_against_fleet = true would read each account against the fleet's own spread")
-             for d, n in (nulls or {}).items() if n["moved"]]
-    return "".join(f"; {w}" for w in words)
+    from ..report.tables import fleet_null_sentences
+
+    return "".join(f"; {sentence}" for sentence in fleet_null_sentences(nulls))
 
 
 @main.command("explain")

@@ -10,6 +10,7 @@ from __future__ import annotations
 import html
 
 from .charts import INK, account_chart, fleet_chart, sparkline
+from .tables import fleet_null_sentences
 
 # Direction: a burnt orange for falls and a blue for rises, a pair that colour-blind readers tell
 # apart; both reach 4.5:1 on white (WCAG 2.1 text contrast), and the solid/dashed border and the
@@ -152,13 +153,8 @@ def _fleet_section(data: dict) -> list[str]:
     s, fleet = data["summary"], data["fleet"]
     masked = [i for i, m in enumerate(fleet["masked"]) if m]
     dips = [i for i, f in enumerate(fleet["factor"]) if f < 0.9 and not fleet["masked"][i]]
-    moved = {"down": "falling", "up": "rising"}
-    nulls = [f'<p>The fleet\'s typical account is {moved[d]} today (median z {n["median_z"]:+.2f}): '
-             + (f'{moved[d]} p-values were read against the fleet\'s own spread (centre {n["shift"]:+.2f}, scale '
-                f'{n["scale"]:.2f}), not against each account\'s history alone.</p>' if n["applied"] else
-                'a move of the whole fleet, which the accounts\' alerts also show; <code>[scan] read_against_fleet '
-                '= true</code> reads each account against the fleet\'s own spread on such days.</p>')
-             for d, n in (s.get("fleet_null") or {}).items() if n["moved"]]
+    nulls = [f"<p>{esc(sentence[0].upper() + sentence[1:])}.</p>"
+             for sentence in fleet_null_sentences(s.get("fleet_null"))]
     return ['<h3>Fleet-wide daily factor</h3>',
             _fleet_words(s.get("fleet_factor", {})), *nulls,
             '<p class="muted">1 is an ordinary day (the dotted line); grey stripes mark masked data-gap days'

@@ -143,3 +143,15 @@ def render_log(log, fmt: str = "table") -> str:
     widths = [max(len(c), *(len(row[i]) for row in rows)) for i, c in enumerate(LOG_COLUMNS)]
     line = lambda cells: "  ".join(str(x).ljust(w) for x, w in zip(cells, widths)).rstrip()  # noqa: E731
     return "\n".join([line(LOG_COLUMNS), line(["-" * w for w in widths])] + [line(r) for r in rows]) + "\n"
+
+
+def fleet_null_sentences(nulls: dict | None) -> list[str]:
+    """One plain sentence per direction in which the day's fleet moved as a whole (the scan
+    summary's ``fleet_null``), saying whether its accounts were read against the fleet's spread."""
+    moved = {"down": "falling", "up": "rising"}
+    return [f"the fleet's typical account is {moved[d]} today (median z {n['median_z']:+.2f}): "
+            + (f"{moved[d]} p-values read against the fleet's own spread (centre {n['shift']:+.2f}, scale "
+               f"{n['scale']:.2f})" if n["applied"] else
+               "[scan] read_against_fleet = true would read each account against the fleet's own spread")
+            for d, n in (nulls or {}).items() if n["moved"]]
+
