@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from ebbwatch import tasks
-from ebbwatch.ingest.line_index import LineIndex, read_spans
+from ebbwatch.ingest.line_index import LineIndex, NewlineCounts, read_spans
 from ebbwatch.ingest.readers import scan_file
 
 from .conftest import write_jsonl
@@ -192,3 +192,82 @@ def test_scan_file_builds_the_same_index_for_a_gzip_file(tmp_path):
     assert found[0] == found[1]
     assert len(found[0][0]) == 200_000 - len(range(0, 200_000, 13))
     assert found[0][1] == [b'{"n": 199997}', b'{"n": 199998}', b'{"n": 199999}']
+
+
+def _exact_lines(data: bytes):
+    """Longest line and the most opening brackets on a line of 1,000+ bytes, by splitting."""
+    lines = data.split(b"\n")
+    longest = max(len(line) for line in lines)
+    deepest = max([line.count(b"[") + line.count(b"{") for line in lines if len(line) >= 1000], default=0)
+    return longest, deepest
+
+
+@pytest.mark.parametrize("length", [999, 1000, 1001, 1100])
+@pytest.mark.parametrize("where", [3, 250_123, (1 << 20) - 600, (1 << 20) - 1])
+def test_scan_file_measures_long_lines_exactly_without_finding_every_newline(tmp_path, length, where):
+    # Most blocks hold only short lines and are measured at their edges alone; one line of
+    # about 1,000 bytes of brackets anywhere (across the 1 MiB blocks' edge too) must still be
+    # measured exactly, and its brackets counted from 1,000 bytes up.
+    short = b'{"n": 1, "pad": "xxxxxxxxxxxxxxxxxxxxxxxxx"}\n'
+    pad = where % len(short)
+    data = short * (where // len(short)) + (b"a" * (pad - 1) + b"\n" if pad else b"")
+    data += b"[" * length + b"\n" + short * 30_000
+    path = tmp_path / "f.jsonl"
+    path.write_bytes(data)
+    longest, deepest = _exact_lines(data)
+    assert (longest, deepest) == (length, length if length >= 1000 else 0)
+    assert scan_file(str(path))[1:] == (longest, deepest)
+    assert scan_file(str(path), index=LineIndex())[1:] == (longest, deepest)
+    # A limit below the depth check's 1,000 bytes: lines over it are measured exactly too.
+    path.write_bytes(short * 1000 + b"a" * 301 + b"\n" + short * 1000)
+    assert scan_file(str(path), short_line=301)[1] == 301
+
+
+def test_a_line_of_1000_bytes_is_measured_wherever_it_starts(tmp_path):
+    # Every offset against the runs the blocks are checked in: a run of 500 bytes is the
+    # widest that no line of 1,000 bytes can miss covering whole.
+    path = tmp_path / "f.jsonl"
+    for length in (1000, 1001):
+        for start in range(0, 1100, 1):
+            rest = start % 100
+            data = (b"a" * 99 + b"\n") * (start // 100) + (b"a" * (rest - 1) + b"\n" if rest else b"")
+            data += b"{" * length + b"\n" + b"b\n" * 2000
+            path.write_bytes(data)
+            assert scan_file(str(path))[1:] == (length, length), (length, start)
+
+
+@pytest.mark.parametrize("final_newline", [True, False])
+@pytest.mark.parametrize("width", [1, 7, 500])
+def test_newline_counts_find_the_same_lines_as_the_line_index(tmp_path, final_newline, width):
+    rng = random.Random(width)
+    lines = [b'{"n": %d, "pad": "%s"}\r' % (i, b"x" * rng.randint(0, 900)) if i % 5 == 0 else b'{"n": %d}' % i
+             for i in range(3000)]
+    data = b"\n".join(lines) + (b"\n" if final_newline else b"")
+    path = tmp_path / "f.jsonl"
+    path.write_bytes(data)
+    counts, index = NewlineCounts(width), LineIndex()
+    for i in range(0, len(data), 4096):
+        block = data[i:i + 4096]
+        counts.feed(block, NewlineCounts.of_block(block, width))
+        index.feed(block, np.flatnonzero(np.frombuffer(block, dtype=np.uint8) == 10))
+    rows = np.array([0, 1, 5, 999, 2998, 2999])
+    numbers, starts, ends = counts.spans(str(path), rows, 3000)
+    assert [numbers.tolist(), starts.tolist(), ends.tolist()] == [a.tolist() for a in index.nonblank_lines(str(path), rows)[1:]]
+    assert read_spans(str(path), starts, ends)[:2] == [lines[0][:-1], lines[1]]
+    # Rows that are not as many as the lines (a blank line, or another reader's lines): no spans.
+    assert counts.spans(str(path), rows, 2999) is None
+
+
+def test_a_blank_line_among_doubted_rows_still_finds_their_lines(tmp_path):
+    # A blank line makes the reader's rows fewer than the file's lines: the lines are then
+    # indexed by a pass of their own, and the doubted rows still get their own reasons.
+    rows = [ev(f"2026-03-02T10:{i % 60:02d}:00Z", id=f"e-{i}") for i in range(200)]
+    text = [json.dumps(r) for r in rows]
+    text[50] = "not json"
+    text.insert(120, "   ")
+    path = tmp_path / "e.jsonl"
+    path.write_text("\n".join(text) + "\n")
+    rejects = tmp_path / "rejects.jsonl"
+    s = ingest(str(tmp_path / "s.duckdb"), [path], rejects_path=str(rejects))
+    assert s["paths"] == {"fast": 1, "precise": 0} and s["ingested"] == 199
+    assert [(r["line"], r["reason"]) for r in lines_of(rejects)] == [(51, "not_json")]

@@ -23,9 +23,9 @@ from . import store as store_mod
 from .errors import InputError
 from .frames import FileResult, Reject
 from .ingest.lines import LineRejected, LineRules, excerpt, parse_line
-from .ingest.line_index import LineIndex, read_spans
-from .ingest.readers import (copied_compression, decompressed_copy, first_value_is_text, is_parquet, iter_lines,
-                             looks_like_csv, remove_quietly, scan_file)
+from .ingest.line_index import LineIndex, NewlineCounts, read_spans
+from .ingest.readers import (copied_compression, decompressed_copy, first_value_is_text, index_lines, is_gzip,
+                             is_parquet, iter_lines, line_run_width, looks_like_csv, remove_quietly, scan_file)
 from .series import NEVER_ACTIVE, Panel, build_panel
 
 # Python's JSON parser (the precise path) gives up near 1,000 levels of nesting; a file whose
@@ -96,13 +96,20 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
         raise InputError(f"{display} looks like CSV (first line {header!r}), not JSON lines: daily counts go "
                          "through --daily, accounts through --accounts, identities through --identities")
     rejects: list[Reject] = []
-    # Hashing (and measuring the longest line, and noting where lines start) runs in a thread
-    # beside the fast-path parse: both release the GIL.  Staging writes only temporary tables,
-    # so a fast-path parse error cannot touch the store.
+    # Hashing (and measuring the longest line, and counting newlines, which find a doubted
+    # row's line again) runs in a thread beside the fast-path parse: both release the GIL.
+    # Staging writes only temporary tables, so a fast-path parse error cannot touch the store.
     ts_text = rules.ts_format == "auto" and first_value_is_text(path, fields.ts)
-    index = LineIndex()
+    # A gzip file keeps where every line starts: its text is inflated in that pass anyway, and
+    # finding lines from the counts would inflate it once more.
+    short_line = rules.max_line_bytes + 1
+    if is_gzip(path):
+        index, counts = LineIndex(), None
+    else:
+        index = counts = NewlineCounts(line_run_width(short_line))
     with ThreadPoolExecutor(max_workers=1) as pool:
-        scanning = pool.submit(scan_file, path, legacy_digest, index)
+        scanning = pool.submit(scan_file, path, legacy_digest, index if counts is None else None,
+                               short_line=short_line, counts=counts)
         try:
             staged = st.stage_jsonl_fast(path, fields, rules.ts_format, ts_text=ts_text,
                                          naive_timezone=rules.naive_timezone)
@@ -135,8 +142,8 @@ def _settle_doubtful_lines(st, path, display, rules, fields, staged: int, index,
     result.lines = staged
     if not doubtful.size:
         return staged
-    nonblank, numbers, starts, ends = index.nonblank_lines(path, doubtful)
-    if nonblank != staged:
+    numbers, starts, ends = _lines_of_rows(path, index, doubtful, staged)
+    if numbers is None:
         return None  # the reader and the line index disagree on what a line is
     if doubtful.size > max(RECHECK_LINES, staged // 100):
         pick = np.arange(0, doubtful.size, max(1, doubtful.size // RECHECK_SAMPLE))[:RECHECK_SAMPLE]
@@ -148,12 +155,25 @@ def _settle_doubtful_lines(st, path, display, rules, fields, staged: int, index,
                                   naive_timezone=rules.naive_timezone) != staged:
                 return None
             doubtful = st.doubtful_staged_rows(rules.earliest_us, rules.latest_us)
-            _, numbers, starts, ends = index.nonblank_lines(path, doubtful)
+            numbers, starts, ends = _lines_of_rows(path, index, doubtful, staged)
     checked = _decide_doubtful(st, path, display, rules, doubtful, numbers, read_spans(path, starts, ends),
                                result, rejects)
     # Lines the precise parser finds blank (a byte-order mark alone) are not lines it counts.
     result.lines = staged - doubtful.size + checked.lines
     return result.lines - sum(checked.rejected.values())
+
+
+def _lines_of_rows(path: str, index: LineIndex | NewlineCounts, rows: np.ndarray, row_count: int):
+    """The native reader's ``rows`` (of ``row_count``) as lines: ``(line_numbers, starts,
+    ends)``, or three ``None`` when the reader and the file's lines disagree.  Newline counts
+    find them where no line is blank; otherwise a pass of its own indexes the lines."""
+    if isinstance(index, NewlineCounts):
+        found = index.spans(path, rows, row_count)
+        if found is not None:
+            return found
+        index = index_lines(path)
+    nonblank, numbers, starts, ends = index.nonblank_lines(path, rows)
+    return (numbers, starts, ends) if nonblank == row_count else (None, None, None)
 
 
 def _decide_doubtful(st, path, display, rules, doubtful, line_numbers, raw_lines, result, rejects) -> FileResult:

@@ -7,9 +7,8 @@ built in the same pass that hashes the file, says where they are.
 
 from __future__ import annotations
 
-import gzip
-
 import numpy as np
+from isal import igzip
 
 from .lines import LINE_SPACE
 
@@ -121,17 +120,84 @@ class LineIndex:
         return nonblank, lines + 1, starts, ends
 
 
-def read_spans(path: str, starts: np.ndarray, ends: np.ndarray) -> list[bytes]:
+class NewlineCounts:
+    """How many newlines each run of ``width`` bytes of a stream holds (the decompressed text for
+    gzip), fed block by block: 2 bytes per ``width`` bytes of text, where :class:`LineIndex`
+    keeps 4 per line, and counted by the same comparison that measures the lines
+    (``readers.scan_file``) instead of finding every newline.  When the native reader's rows
+    are as many as the stream's lines (so no line was blank), row ``k`` is line ``k`` and its
+    span is found by reading the one or two runs that hold its newlines again.
+    """
+
+    def __init__(self, width: int):
+        self.width = width
+        self._bases: list[int] = []
+        self._counts: list[np.ndarray] = []
+        self.size = 0
+        self._ends_with_newline = False
+
+    @staticmethod
+    def of_block(block: bytes, width: int) -> np.ndarray:
+        """Newlines in each run of ``width`` bytes of ``block`` (the last run may be shorter)."""
+        is_newline = np.frombuffer(block, dtype=np.uint8) == 10
+        whole = len(block) - len(block) % width
+        counts = is_newline[:whole].reshape(-1, width).sum(axis=1, dtype=np.uint16)
+        if whole < len(block):
+            counts = np.append(counts, np.uint16(np.count_nonzero(is_newline[whole:])))
+        return counts
+
+    def feed(self, block: bytes, counts: np.ndarray):
+        """``counts``: :meth:`of_block` of ``block``."""
+        if not block:
+            return
+        self._bases.append(self.size)
+        self._counts.append(counts)
+        self.size += len(block)
+        self._ends_with_newline = block.endswith(b"\n")
+
+    def spans(self, path: str, rows: np.ndarray, row_count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        """For the native reader's ``rows`` (0-based, ascending) out of its ``row_count``:
+        ``(line_numbers, starts, ends)`` as :meth:`LineIndex.nonblank_lines` gives them, or
+        ``None`` when the stream's lines are not exactly ``row_count`` (some were blank, or the
+        reader split them otherwise): then only a :class:`LineIndex` can tell."""
+        counts = np.concatenate(self._counts) if self._counts else np.zeros(0, dtype=np.uint16)
+        after = np.cumsum(counts, dtype=np.int64)  # newlines up to the end of each run
+        newlines = int(after[-1]) if after.size else 0
+        lines = newlines + (0 if self._ends_with_newline or not self.size else 1)
+        rows = np.asarray(rows, dtype=np.int64)
+        if lines != row_count:
+            return None
+        run_starts = np.concatenate([base + np.arange(c.size, dtype=np.int64) * self.width
+                                     for base, c in zip(self._bases, self._counts)]) if self._counts else after
+        run_ends = np.append(run_starts[1:], self.size)
+        # Line k starts after newline k - 1 and ends at newline k (or at the stream's end).
+        wanted = np.unique(np.concatenate([rows - 1, rows]))
+        wanted = wanted[(wanted >= 0) & (wanted < newlines)]
+        runs = np.searchsorted(after, wanted, side="right")
+        position = {}
+        chosen = np.unique(runs)
+        texts = read_spans(path, run_starts[chosen], run_ends[chosen], drop_cr=False)
+        for run, text in zip(chosen.tolist(), texts):
+            here = np.flatnonzero(np.frombuffer(text, dtype=np.uint8) == 10) + run_starts[run]
+            first = int(after[run]) - here.size
+            for j in wanted[runs == run].tolist():
+                position[j] = int(here[j - first])
+        starts = np.array([0 if k == 0 else position[k - 1] + 1 for k in rows.tolist()], dtype=np.int64)
+        ends = np.array([position[k] if k < newlines else self.size for k in rows.tolist()], dtype=np.int64)
+        return rows + 1, starts, ends
+
+
+def read_spans(path: str, starts: np.ndarray, ends: np.ndarray, drop_cr: bool = True) -> list[bytes]:
     """The bytes ``[start, end)`` of the (decompressed) file for each span, in the order given;
-    a trailing ``\\r`` is dropped, as ``readers.iter_lines`` drops it.  Spans are read in
-    ascending order (a gzip file is decompressed once, forwards)."""
+    a trailing ``\\r`` is dropped (unless not ``drop_cr``), as ``readers.iter_lines`` drops it.
+    Spans are read in ascending order (a gzip file is decompressed once, forwards)."""
     order = np.argsort(starts, kind="stable")
     out: list[bytes] = [b""] * len(order)
     with open(path, "rb") as probe:
         gz = probe.read(2) == b"\x1f\x8b"
-    with (gzip.open if gz else open)(path, "rb") as handle:
+    with (igzip.open if gz else open)(path, "rb") as handle:
         for i in order:
             handle.seek(int(starts[i]))
             raw = handle.read(int(ends[i] - starts[i]))
-            out[i] = raw[:-1] if raw.endswith(b"\r") else raw
+            out[i] = raw[:-1] if drop_cr and raw.endswith(b"\r") else raw
     return out
