@@ -31,16 +31,18 @@ class Attribution:
         (by reason).
         """
         con = self.con
+        # Rows without a time are lines the precise parser took over (``settle_doubtful_staged``).
+        events = "(SELECT * FROM staged WHERE ts_us IS NOT NULL)"
         without_account, repeated = con.execute(
-            "SELECT count_if(account IS NULL), count(id_hash) - count(DISTINCT id_hash) FROM staged"
+            f"SELECT count_if(account IS NULL), count(id_hash) - count(DISTINCT id_hash) FROM {events}"
         ).fetchone()
         if repeated:
             # Only now is the line order needed ("first delivery wins").
-            con.execute("CREATE OR REPLACE TEMP TABLE staged_n AS SELECT *, row_number() OVER () AS line_order FROM staged")
+            con.execute(f"CREATE OR REPLACE TEMP TABLE staged_n AS SELECT *, row_number() OVER () AS line_order FROM {events}")
             con.execute("DROP TABLE staged")
-            base = "staged_n"
+            base = base_table = "staged_n"
         else:
-            base = "staged"
+            base, base_table = events, "staged"
         unattributed = {}
         source = base
         if without_account:
@@ -60,7 +62,7 @@ class Attribution:
                   ON s.account IS NULL AND i.account IS NULL AND k."user" = s."user"
                 """
             )
-            con.execute(f"DROP TABLE {base}")
+            con.execute(f"DROP TABLE {base_table}")
             unattributed = dict(con.execute(
                 "SELECT unattributed, count(*) FROM attributed WHERE unattributed IS NOT NULL GROUP BY 1"
             ).fetchall())
