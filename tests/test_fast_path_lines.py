@@ -10,7 +10,7 @@ import pytest
 
 from ebbwatch import tasks
 from ebbwatch.ingest.line_index import LineIndex, NewlineCounts, read_spans
-from ebbwatch.ingest.readers import scan_file
+from ebbwatch.ingest.readers import line_run_width, scan_file
 
 from .conftest import write_jsonl
 from .test_ingest import daily, ev, ingest, ingest_precisely
@@ -271,3 +271,23 @@ def test_a_blank_line_among_doubted_rows_still_finds_their_lines(tmp_path):
     s = ingest(str(tmp_path / "s.duckdb"), [path], rejects_path=str(rejects))
     assert s["paths"] == {"fast": 1, "precise": 0} and s["ingested"] == 199
     assert [(r["line"], r["reason"]) for r in lines_of(rejects)] == [(51, "not_json")]
+
+
+@pytest.mark.parametrize("limit", [76, 200, 1_048_576])
+def test_doubted_lines_are_found_whatever_the_line_limit(tmp_path, limit):
+    # Under a short line limit the lines' starts are all kept (newline counts per run of half
+    # the limit would outgrow the text); otherwise the counts find them.  Either way the
+    # doubted lines get their own reasons and line numbers.
+    from ebbwatch.config import Config, IngestConfig
+
+    text = [json.dumps({"ts": f"2026-03-02T10:{i % 60:02d}:00Z", "event": "e", "user": f"u{i % 9}", "account": "a"})
+            for i in range(300)]
+    assert max(map(len, text)) <= 76 and line_run_width(77) < 40 <= line_run_width(201)
+    text[40], text[250] = "not json", '{"ts": 5, "event": "e"}'
+    path = tmp_path / "e.jsonl"
+    path.write_text("\n".join(text) + "\n")
+    rejects = tmp_path / "rejects.jsonl"
+    cfg = Config(ingest=IngestConfig(max_line_bytes=limit))
+    s = ingest(str(tmp_path / "s.duckdb"), [path], rejects_path=str(rejects), config=cfg)
+    assert s["paths"] == {"fast": 1, "precise": 0} and s["ingested"] == 298
+    assert [(r["line"], r["reason"]) for r in lines_of(rejects)] == [(41, "not_json"), (251, "missing_field")]

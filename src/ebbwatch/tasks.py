@@ -101,9 +101,10 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     # Staging writes only temporary tables, so a fast-path parse error cannot touch the store.
     ts_text = rules.ts_format == "auto" and first_value_is_text(path, fields.ts)
     # A gzip file keeps where every line starts: its text is inflated in that pass anyway, and
-    # finding lines from the counts would inflate it once more.
+    # finding lines from the counts would inflate it once more.  So does a line limit so short
+    # that the counts (2 bytes a run) would grow past a twentieth of the text.
     short_line = rules.max_line_bytes + 1
-    if is_gzip(path):
+    if is_gzip(path) or line_run_width(short_line) < 40:
         index, counts = LineIndex(), None
     else:
         index = counts = NewlineCounts(line_run_width(short_line))

@@ -1,8 +1,9 @@
 """Finding the n-th non-blank line of a file again without reading the lines before it.
 
 DuckDB's JSON reader gives one row per non-blank line, in file order, but not the line's
-number.  When it doubts a few rows, the precise parser takes just those lines; this index,
-built in the same pass that hashes the file, says where they are.
+number.  When it doubts a few rows, the precise parser takes just those lines; the newline
+counts kept in the pass that hashes the file (:class:`NewlineCounts`) say where they are, or,
+where some lines are blank, an index of every line's start (:class:`LineIndex`).
 """
 
 from __future__ import annotations
@@ -160,15 +161,16 @@ class NewlineCounts:
         ``(line_numbers, starts, ends)`` as :meth:`LineIndex.nonblank_lines` gives them, or
         ``None`` when the stream's lines are not exactly ``row_count`` (some were blank, or the
         reader split them otherwise): then only a :class:`LineIndex` can tell."""
-        counts = np.concatenate(self._counts) if self._counts else np.zeros(0, dtype=np.uint16)
-        after = np.cumsum(counts, dtype=np.int64)  # newlines up to the end of each run
-        newlines = int(after[-1]) if after.size else 0
-        lines = newlines + (0 if self._ends_with_newline or not self.size else 1)
         rows = np.asarray(rows, dtype=np.int64)
+        if not self._counts:
+            return (rows + 1, rows, rows) if row_count == 0 else None
+        after = np.cumsum(np.concatenate(self._counts), dtype=np.int64)  # newlines up to each run's end
+        newlines = int(after[-1])
+        lines = newlines + (0 if self._ends_with_newline else 1)
         if lines != row_count:
             return None
         run_starts = np.concatenate([base + np.arange(c.size, dtype=np.int64) * self.width
-                                     for base, c in zip(self._bases, self._counts)]) if self._counts else after
+                                     for base, c in zip(self._bases, self._counts)])
         run_ends = np.append(run_starts[1:], self.size)
         # Line k starts after newline k - 1 and ends at newline k (or at the stream's end).
         wanted = np.unique(np.concatenate([rows - 1, rows]))

@@ -202,9 +202,10 @@ class _LongestLine:
     Lines shorter than ``short_line`` bytes (at most ``_DEPTH_CHECK_BYTES``) need not be
     measured: a block in which every aligned run of ``line_run_width(short_line)`` bytes holds
     a newline has no line of ``short_line`` bytes inside it (a longer one would cover such a run
-    whole), so only its first and last lines, which continue across blocks, are measured.  ``result()`` is then exact from ``short_line`` bytes up and below it only a
-    lower bound.  Finding every newline costs twice as much as that check, and the check
-    competes with DuckDB's parse for the same two cores.
+    whole), so only its first and last lines, which continue across blocks, are measured.
+    ``result()`` is then exact from ``short_line`` bytes up and below it only a lower bound.
+    Finding every newline costs twice as much as that check, in a thread that competes with
+    DuckDB's parse for the same two cores.
     """
 
     def __init__(self, short_line: int = _DEPTH_CHECK_BYTES):
