@@ -291,3 +291,26 @@ def test_doubted_lines_are_found_whatever_the_line_limit(tmp_path, limit):
     s = ingest(str(tmp_path / "s.duckdb"), [path], rejects_path=str(rejects), config=cfg)
     assert s["paths"] == {"fast": 1, "precise": 0} and s["ingested"] == 298
     assert [(r["line"], r["reason"]) for r in lines_of(rejects)] == [(41, "not_json"), (251, "missing_field")]
+
+
+def test_gzip_reads_the_same_with_the_standard_library_as_with_isal(tmp_path, monkeypatch):
+    # ISA-L is a dependency only where it has wheels; elsewhere zlib inflates the same streams.
+    import zlib
+
+    from ebbwatch.ingest import inflate
+
+    rows = [json.dumps(ev(f"2026-03-02T10:{i % 60:02d}:00Z", id=f"e-{i}")) for i in range(3000)]
+    rows[1234] = "not json"
+    path = tmp_path / "e.jsonl.gz"
+    path.write_bytes(gzip.compress(("\n".join(rows) + "\n").encode()[:40_000]) + gzip.compress(
+        ("\n".join(rows) + "\n").encode()[40_000:]))  # two members, a line split between them
+    found = []
+    for modules in ((inflate._gzip, inflate._zlib), (gzip, zlib)):
+        monkeypatch.setattr(inflate, "_gzip", modules[0])
+        monkeypatch.setattr(inflate, "_zlib", modules[1])
+        rejects = tmp_path / f"rejects-{len(found)}.jsonl"
+        s = ingest(str(tmp_path / f"{len(found)}.duckdb"), [path], rejects_path=str(rejects))
+        found.append((s["ingested"], s["paths"], [(r["line"], r["reason"]) for r in lines_of(rejects)],
+                      scan_file(str(path))))
+    assert found[0] == found[1]
+    assert found[0][:3] == (2999, {"fast": 1, "precise": 0}, [(1235, "not_json")])

@@ -9,8 +9,8 @@ where some lines are blank, an index of every line's start (:class:`LineIndex`).
 from __future__ import annotations
 
 import numpy as np
-from isal import igzip
 
+from .inflate import gzip_open
 from .lines import LINE_SPACE
 
 # First bytes of a line that may be blank (only whitespace: ``lines.LINE_SPACE``) or empty;
@@ -197,7 +197,7 @@ def read_spans(path: str, starts: np.ndarray, ends: np.ndarray, drop_cr: bool = 
     out: list[bytes] = [b""] * len(order)
     with open(path, "rb") as probe:
         gz = probe.read(2) == b"\x1f\x8b"
-    with (igzip.open if gz else open)(path, "rb") as handle:
+    with (gzip_open if gz else open)(path, "rb") as handle:
         for i in order:
             handle.seek(int(starts[i]))
             raw = handle.read(int(ends[i] - starts[i]))

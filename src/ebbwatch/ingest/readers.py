@@ -14,9 +14,9 @@ from typing import Iterator
 
 import numpy as np
 import xxhash
-from isal import igzip, isal_zlib
 
 from ..errors import InputError
+from .inflate import INFLATE_ERRORS, gzip_decompressobj, gzip_open
 from .line_index import LineIndex, NewlineCounts
 
 JSONL_SUFFIXES = (".jsonl", ".ndjson", ".json", ".jsonl.gz", ".ndjson.gz", ".json.gz")
@@ -260,12 +260,9 @@ def _text_blocks(path: str, on_stored=None) -> Iterator[bytes]:
     """The file's text in blocks of about 1 MiB, decompressed for gzip (concatenated members
     too); ``on_stored(block)`` sees each block of the bytes as stored first.  Raises
     :class:`InputError` when the file cannot be read to its end."""
-    # ISA-L's inflate rather than zlib's: the ingest benchmark's 87 MB gzip file (374 MB of
-    # text) inflates in 0.50 s against 1.20 s, in a thread that competes with DuckDB's own
-    # inflating and parsing of the same file for the same two cores.
     try:
         gz = is_gzip(path)
-        inflater = isal_zlib.decompressobj(wbits=47) if gz else None
+        inflater = gzip_decompressobj() if gz else None
         with open(path, "rb") as handle:
             for block in iter(lambda: handle.read(1 << 20), b""):
                 if on_stored is not None:
@@ -279,13 +276,13 @@ def _text_blocks(path: str, on_stored=None) -> Iterator[bytes]:
                     if inflater.eof and inflater.unused_data:
                         # A second gzip member follows (concatenated files are valid gzip).
                         rest = inflater.unused_data
-                        inflater = isal_zlib.decompressobj(wbits=47)
+                        inflater = gzip_decompressobj()
                         block = rest
         if inflater is not None and not inflater.eof:
             # The precise path's reader says the same of such a file (``iter_lines``); DuckDB
             # would read one named .jsonl as raw bytes.
             raise InputError(f"cannot read {path} to its end: the gzip stream stops before its end-of-stream marker")
-    except (zlib.error, isal_zlib.error) as exc:
+    except INFLATE_ERRORS as exc:
         raise InputError(f"cannot read {path}: not a valid gzip file ({exc})") from exc
     except OSError as exc:
         raise InputError(f"cannot read {path}: {exc.strerror or exc}") from exc
@@ -397,7 +394,7 @@ def iter_lines(path: str) -> Iterator[tuple[int, bytes]]:
 
     Raises :class:`InputError` when the file cannot be read to its end (a gzip file cut short).
     """
-    opener = igzip.open if is_gzip(path) else open
+    opener = gzip_open if is_gzip(path) else open
     try:
         with opener(path, "rb") as handle:
             for number, raw in enumerate(handle, start=1):
@@ -406,7 +403,7 @@ def iter_lines(path: str) -> Iterator[tuple[int, bytes]]:
                 if raw.endswith(b"\r"):
                     raw = raw[:-1]
                 yield number, raw
-    except (EOFError, gzip.BadGzipFile, OSError, zlib.error, isal_zlib.error) as exc:
+    except (EOFError, gzip.BadGzipFile, OSError, *INFLATE_ERRORS) as exc:
         raise InputError(f"cannot read {path} to its end: {exc}") from exc
 
 
