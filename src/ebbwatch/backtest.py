@@ -141,13 +141,14 @@ def select_replayed(candidates: pd.DataFrame, tallies, as_of_days, *, fdr: float
         rows, nulls = against_fleet(rows if rows is not None else pd.DataFrame({"status": []}), tally,
                                     trigger=fleet_null_trigger, apply=read_against_fleet)
         acted = [d for d in ("down", "up") if nulls[d]["moved"]]
-        exposure.append({"as_of": as_of, "judged": int(tally[0].sum()),
+        n_judged = int(tally[0].sum())
+        exposure.append({"as_of": as_of, "judged": n_judged,
                          "fleet_null": "both" if len(acted) == 2 else "".join(acted)})
         if not len(rows):
             continue
         alerts = select_alerts(rows.drop(columns="as_of_day"), as_of=as_of, fdr=fdr, max_alerts=None,
                                min_change_pct=min_change_pct, window_days=window_days,
-                               family_size=2 * int(tally[0].sum()))
+                               family_size=2 * n_judged)
         if len(alerts):
             found.append(alerts[REPLAY_COLUMNS])
     alerts = pd.concat(found, ignore_index=True) if found else pd.DataFrame(columns=REPLAY_COLUMNS)

@@ -104,13 +104,10 @@ def stage_file(st, path: str, display: str, rules: LineRules, fields, skip_reaso
     # finding lines from the counts would inflate it once more.  So does a line limit so short
     # that the counts (2 bytes a run) would grow past a twentieth of the text.
     short_line = rules.max_line_bytes + 1
-    if is_gzip(path) or line_run_width(short_line) < 40:
-        index, counts = LineIndex(), None
-    else:
-        index = counts = NewlineCounts(line_run_width(short_line))
+    keep_starts = is_gzip(path) or line_run_width(short_line) < 40
+    index = LineIndex() if keep_starts else NewlineCounts(line_run_width(short_line))
     with ThreadPoolExecutor(max_workers=1) as pool:
-        scanning = pool.submit(scan_file, path, legacy_digest, index if counts is None else None,
-                               short_line=short_line, counts=counts)
+        scanning = pool.submit(scan_file, path, legacy_digest, index, short_line=short_line)
         try:
             staged = st.stage_jsonl_fast(path, fields, rules.ts_format, ts_text=ts_text,
                                          naive_timezone=rules.naive_timezone)

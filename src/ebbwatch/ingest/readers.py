@@ -292,9 +292,8 @@ def _newlines(block: bytes) -> np.ndarray:
     return np.flatnonzero(np.frombuffer(block, dtype=np.uint8) == 10)
 
 
-def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None,
-              measure_lines: bool = True, short_line: int = _DEPTH_CHECK_BYTES,
-              counts: NewlineCounts | None = None) -> tuple[list[str], int, int]:
+def scan_file(path: str, legacy: bool = False, index: LineIndex | NewlineCounts | None = None,
+              measure_lines: bool = True, short_line: int = _DEPTH_CHECK_BYTES) -> tuple[list[str], int, int]:
     """One pass over a file: its content hashes (of the bytes as stored), its longest line in
     bytes and an upper bound of its deepest bracket nesting (of the decompressed text for gzip).
     DuckDB's reader enforces neither a per-line size limit nor Python's nesting limit, so the
@@ -307,15 +306,17 @@ def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None,
     that competes with DuckDB for the same two cores.  It is not a cryptographic hash: whoever
     can write the input files could craft one to be skipped (they could as well remove lines).
     The longest line is exact from ``short_line`` bytes up (below, a lower bound: see
-    ``_LongestLine``).  The same pass fills ``counts`` (of width ``line_run_width(short_line)``)
-    or, slower, ``index`` (see ``NewlineCounts`` and ``LineIndex``; :func:`index_lines` builds
-    one on its own); without ``measure_lines`` (a Parquet file has no lines) it only hashes,
-    and returns 0 and 0.
+    ``_LongestLine``).  The same pass fills ``index``: ``NewlineCounts`` (of width
+    ``line_run_width(short_line)``) or, slower, a ``LineIndex`` (:func:`index_lines` builds one
+    on its own); without ``measure_lines`` (a Parquet file has no lines) it only hashes, and
+    returns 0 and 0.
     """
     hashers = [(CONTENT_HASH, xxhash.xxh3_128())]
     if legacy:
         hashers.append((LEGACY_CONTENT_HASH, hashlib.sha256()))
     longest = _LongestLine(short_line)
+    counts = index if isinstance(index, NewlineCounts) else None
+    starts = index if isinstance(index, LineIndex) else None
     if counts is not None and counts.width != longest.chunk:
         raise ValueError(f"counts of runs of {counts.width} bytes, not {longest.chunk}")
 
@@ -326,7 +327,7 @@ def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None,
     for text in _text_blocks(path, hash_block):
         if not measure_lines or not text:
             continue
-        if index is None:
+        if starts is None:
             per_run = NewlineCounts.of_block(text, longest.chunk)
             if counts is not None:
                 counts.feed(text, per_run)
@@ -336,8 +337,8 @@ def scan_file(path: str, legacy: bool = False, index: LineIndex | None = None,
                 continue
         newlines = _newlines(text)
         longest.feed(text, newlines)
-        if index is not None:
-            index.feed(text, newlines)
+        if starts is not None:
+            starts.feed(text, newlines)
     return [f"{name}:{hasher.hexdigest()}" for name, hasher in hashers], longest.result(), longest.deepest
 
 
